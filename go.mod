@@ -1,0 +1,3 @@
+module github.com/aftercast/aftercast
+
+go 1.26.8
