@@ -1,0 +1,98 @@
+package scoring
+
+import (
+	"math"
+	"slices"
+)
+
+// LeadMetrics are the metrics of the pairs of one lead.
+type LeadMetrics struct {
+	Lead int
+	Metrics
+}
+
+// Table is the per-lead accuracy of a selection of pairs plus the overall
+// metrics pooled over every pair of every lead of the selection.
+type Table struct {
+	Leads   []LeadMetrics // ascending by lead; leads without pairs are absent
+	Overall Metrics
+}
+
+// Tabulator accumulates pairs per lead. The zero value is ready to use.
+type Tabulator struct {
+	leads map[int]*Accumulator
+}
+
+// Add scores the pair (actual y, forecast f) at lead h.
+func (t *Tabulator) Add(h int, y, f float64) { t.acc(h).Add(y, f) }
+
+// Remove takes back a pair added earlier at lead h.
+func (t *Tabulator) Remove(h int, y, f float64) { t.acc(h).Remove(y, f) }
+
+// Merge adds every pair of o to t.
+func (t *Tabulator) Merge(o *Tabulator) {
+	for h, a := range o.leads {
+		t.acc(h).Merge(a)
+	}
+}
+
+// Len is the number of pairs over all leads.
+func (t *Tabulator) Len() int64 {
+	var n int64
+	for _, a := range t.leads {
+		n += a.N()
+	}
+	return n
+}
+
+func (t *Tabulator) acc(h int) *Accumulator {
+	if t.leads == nil {
+		t.leads = make(map[int]*Accumulator)
+	}
+	a := t.leads[h]
+	if a == nil {
+		a = new(Accumulator)
+		t.leads[h] = a
+	}
+	return a
+}
+
+// Table returns the per-lead and overall metrics. scale is the MASE scale,
+// NaN when unknown.
+func (t *Tabulator) Table(scale float64) Table {
+	hs := make([]int, 0, len(t.leads))
+	for h, a := range t.leads {
+		if a.N() > 0 {
+			hs = append(hs, h)
+		}
+	}
+	slices.Sort(hs)
+	var all Accumulator
+	tab := Table{Leads: make([]LeadMetrics, 0, len(hs))}
+	for _, h := range hs {
+		a := t.leads[h]
+		all.Merge(a)
+		tab.Leads = append(tab.Leads, LeadMetrics{Lead: h, Metrics: a.Metrics(scale)})
+	}
+	tab.Overall = all.Metrics(scale)
+	return tab
+}
+
+// Pair is one scored (origin, lead) pair: the actual and the forecast.
+type Pair struct {
+	Lead     int
+	Actual   float64
+	Forecast float64
+}
+
+// Tabulate is the per-lead table of a slice of pairs.
+func Tabulate(pairs []Pair, scale float64) Table {
+	var t Tabulator
+	for _, p := range pairs {
+		t.Add(p.Lead, p.Actual, p.Forecast)
+	}
+	return t.Table(scale)
+}
+
+// NoScale is the MASE scale to pass when none is known.
+var NoScale = math.NaN()
