@@ -1,0 +1,403 @@
+// Package evaluate scores a CSV file of (origin, target, forecast, actual)
+// rows offline, per series, model and lead: the engine behind `aftercast
+// evaluate`. It streams: for input sorted by origin within each series it
+// holds one origin's rows per series at a time, so memory does not grow
+// with the file's length. Unsorted input is re-read with every row held.
+package evaluate
+
+import (
+	"errors"
+	"fmt"
+	"io"
+	"math"
+	"os"
+	"slices"
+	"strings"
+	"time"
+
+	"github.com/aftercast/aftercast/cmd/aftercast/internal/records"
+	"github.com/aftercast/aftercast/cmd/aftercast/internal/report"
+	"github.com/aftercast/aftercast/scoring"
+)
+
+// Options select and configure an evaluation. Zero times leave a range
+// open; an empty Leads keeps every lead.
+type Options struct {
+	Step       string         // "" = infer per series from the data
+	Location   *time.Location // zone of calendar steps; nil = UTC
+	Season     int            // MASE season m in steps; < 1 = 1
+	Leads      []int
+	OriginFrom time.Time // inclusive
+	OriginTo   time.Time // exclusive
+	TargetFrom time.Time // inclusive
+	TargetTo   time.Time // exclusive
+	// Notes receives what the user should know but is not a result, such
+	// as an inferred step. May be nil.
+	Notes io.Writer
+}
+
+// maxErrors is how many input errors are collected before giving up, so a
+// wrong file gives a useful list rather than a million lines.
+const maxErrors = 10
+
+// Columns of the pairs file.
+const (
+	colSeries   = "series"
+	colModel    = "model"
+	colOrigin   = "origin_time"
+	colTarget   = "target_time"
+	colForecast = "forecast"
+	colActual   = "actual"
+)
+
+// File evaluates the pairs file at path, with optional training history
+// (historyPath "" for none) for the MASE scale. Results are sorted by series
+// and model. Any input error fails the whole evaluation: nothing is returned
+// that could be mistaken for a result.
+func File(path, historyPath string, opt Options) ([]report.Result, error) {
+	if opt.Location == nil {
+		opt.Location = time.UTC
+	}
+	e := &evaluation{opt: opt, leadSet: leadSet(opt.Leads)}
+	if opt.Step != "" {
+		st, err := scoring.ParseStep(opt.Step, opt.Location)
+		if err != nil {
+			return nil, err
+		}
+		e.fixedStep = st
+	} else if err := e.inferSteps(path); err != nil {
+		return nil, err
+	}
+	err := e.pass(path, false)
+	if errors.Is(err, errUnsorted) {
+		e.notef("%s is not sorted by origin within each series: reading it again with every row held in memory", path)
+		err = e.pass(path, true)
+	}
+	if err != nil {
+		return nil, err
+	}
+	var scales map[string]history
+	if historyPath != "" {
+		if scales, err = readHistory(historyPath); err != nil {
+			return nil, err
+		}
+	}
+	return e.results(scales)
+}
+
+type evaluation struct {
+	opt       Options
+	leadSet   map[int]bool
+	fixedStep scoring.Step
+	inferred  map[groupKey]scoring.Step
+	groups    map[groupKey]*group
+	errs      []error
+}
+
+type groupKey struct{ series, model string }
+
+type pairValues struct{ f, y float64 }
+
+type group struct {
+	key         groupKey
+	step        scoring.Step
+	tab         scoring.Tabulator
+	firstOrigin time.Time
+	// Streaming: the rows of the newest origin, by target, for duplicate checks.
+	cur    time.Time
+	curRow map[int64]pairValues
+	// Holding all rows (unsorted input): every (origin, target).
+	all map[[2]int64]pairValues
+}
+
+var errUnsorted = errors.New("input not sorted by origin within series")
+
+func (e *evaluation) notef(format string, args ...any) {
+	if e.opt.Notes != nil {
+		fmt.Fprintf(e.opt.Notes, "aftercast: "+format+"\n", args...)
+	}
+}
+
+func (e *evaluation) fail(err error) error {
+	e.errs = append(e.errs, err)
+	if len(e.errs) >= maxErrors {
+		return e.joined()
+	}
+	return nil
+}
+
+func (e *evaluation) joined() error {
+	if len(e.errs) >= maxErrors {
+		e.errs = append(e.errs, fmt.Errorf("stopped after %d errors", maxErrors))
+	}
+	return errors.Join(e.errs...)
+}
+
+func open(path string, required ...string) (*os.File, *records.Reader, error) {
+	f, err := os.Open(path)
+	if err != nil {
+		return nil, nil, fmt.Errorf("opening input: %w", err)
+	}
+	rd, err := records.NewReader(f, path, required...)
+	if err != nil {
+		f.Close()
+		return nil, nil, err
+	}
+	return f, rd, nil
+}
+
+// rowTimes parses series, model, origin and target of the current row,
+// re-using the previous origin when its text repeats, as it does for every
+// lead of one forecast.
+type rowTimes struct {
+	lastOrigin     string
+	lastOriginTime time.Time
+}
+
+func (rt *rowTimes) read(rd *records.Reader) (groupKey, time.Time, time.Time, error) {
+	series, err := rd.Required(colSeries)
+	if err != nil {
+		return groupKey{}, time.Time{}, time.Time{}, err
+	}
+	k := groupKey{series: series, model: strings.TrimSpace(rd.String(colModel))}
+	var o time.Time
+	if s := rd.String(colOrigin); s != "" && s == rt.lastOrigin {
+		o = rt.lastOriginTime
+	} else {
+		if o, err = rd.Time(colOrigin); err != nil {
+			return k, o, o, err
+		}
+		rt.lastOrigin, rt.lastOriginTime = s, o
+	}
+	t, err := rd.Time(colTarget)
+	return k, o, t, err
+}
+
+// inferSteps reads only the times of every row to infer each group's step.
+func (e *evaluation) inferSteps(path string) error {
+	f, rd, err := open(path, colSeries, colOrigin, colTarget)
+	if err != nil {
+		return err
+	}
+	defer f.Close()
+	guesses := make(map[groupKey]*scoring.StepGuess)
+	var rt rowTimes
+	for {
+		if err := rd.Next(); err == io.EOF {
+			break
+		} else if err != nil {
+			return err
+		}
+		k, o, t, err := rt.read(rd)
+		if err != nil {
+			if err := e.fail(err); err != nil {
+				return err
+			}
+			continue
+		}
+		g := guesses[k]
+		if g == nil {
+			g = scoring.NewStepGuess(e.opt.Location)
+			guesses[k] = g
+		}
+		g.Observe(o)
+		g.Observe(t)
+	}
+	if len(e.errs) > 0 {
+		return e.joined()
+	}
+	e.inferred = make(map[groupKey]scoring.Step, len(guesses))
+	var failed []string
+	for _, k := range sortedKeys(guesses) {
+		st, err := guesses[k].Step()
+		if err != nil {
+			failed = append(failed, fmt.Sprintf("%s: %v", k.label(), err))
+			continue
+		}
+		e.inferred[k] = st
+		e.notef("no --step given: inferred step %s for %s", st, k.label())
+	}
+	if len(failed) > 0 {
+		return fmt.Errorf("cannot infer the step, pass --step:\n  %s", strings.Join(failed, "\n  "))
+	}
+	return nil
+}
+
+func (k groupKey) label() string {
+	if k.model == "" {
+		return "series " + k.series
+	}
+	return fmt.Sprintf("series %s model %s", k.series, k.model)
+}
+
+func (e *evaluation) stepFor(k groupKey) scoring.Step {
+	if e.inferred != nil {
+		return e.inferred[k]
+	}
+	return e.fixedStep
+}
+
+// pass reads the file once and scores every selected row. With holdAll
+// false it returns errUnsorted as soon as a series goes back in origin.
+func (e *evaluation) pass(path string, holdAll bool) error {
+	f, rd, err := open(path, colSeries, colOrigin, colTarget, colForecast, colActual)
+	if err != nil {
+		return err
+	}
+	defer f.Close()
+	e.groups = make(map[groupKey]*group)
+	e.errs = nil
+	var (
+		rt   rowTimes
+		last *group
+	)
+	for {
+		if err := rd.Next(); err == io.EOF {
+			break
+		} else if err != nil {
+			return err // a broken CSV structure: later lines cannot be trusted
+		}
+		k, o, t, err := rt.read(rd)
+		var fc, y float64
+		if err == nil {
+			fc, err = rd.Float(colForecast)
+		}
+		if err == nil {
+			y, err = rd.Float(colActual)
+		}
+		if err != nil {
+			if err := e.fail(err); err != nil {
+				return err
+			}
+			continue
+		}
+		g := last
+		if g == nil || g.key != k {
+			if g = e.groups[k]; g == nil {
+				g = &group{key: k, step: e.stepFor(k), firstOrigin: o, cur: o}
+				if holdAll {
+					g.all = make(map[[2]int64]pairValues)
+				} else {
+					g.curRow = make(map[int64]pairValues)
+				}
+				e.groups[k] = g
+			}
+			last = g
+		}
+		if err := e.score(rd, g, o, t, fc, y, holdAll); err != nil {
+			if errors.Is(err, errUnsorted) {
+				return err
+			}
+			if err := e.fail(err); err != nil {
+				return err
+			}
+		}
+	}
+	if len(e.errs) > 0 {
+		return e.joined()
+	}
+	return nil
+}
+
+func (e *evaluation) score(rd *records.Reader, g *group, o, t time.Time, fc, y float64, holdAll bool) error {
+	h, err := g.step.Lead(o, t)
+	if err != nil {
+		return rd.Errorf("%s: %v", g.key.label(), err)
+	}
+	v := pairValues{fc, y}
+	if holdAll {
+		key := [2]int64{o.UnixNano(), t.UnixNano()}
+		if prev, ok := g.all[key]; ok {
+			return duplicate(rd, prev, v)
+		}
+		g.all[key] = v
+	} else {
+		switch c := o.Compare(g.cur); {
+		case c < 0:
+			return errUnsorted
+		case c > 0:
+			g.cur = o
+			clear(g.curRow)
+		}
+		if prev, ok := g.curRow[t.UnixNano()]; ok {
+			return duplicate(rd, prev, v)
+		}
+		g.curRow[t.UnixNano()] = v
+	}
+	if o.Before(g.firstOrigin) {
+		g.firstOrigin = o
+	}
+	if !e.selected(h, o, t) {
+		return nil
+	}
+	g.tab.Add(h, y, fc)
+	return nil
+}
+
+// duplicate accepts an exact repeat of a row (it is counted once) and
+// refuses a conflicting one.
+func duplicate(rd *records.Reader, prev, v pairValues) error {
+	if prev == v {
+		return nil
+	}
+	return rd.Errorf("duplicate (series, origin, target) with different values: forecast %v, actual %v here; forecast %v, actual %v earlier",
+		v.f, v.y, prev.f, prev.y)
+}
+
+func (e *evaluation) selected(h int, o, t time.Time) bool {
+	if e.leadSet != nil && !e.leadSet[h] {
+		return false
+	}
+	return inRange(o, e.opt.OriginFrom, e.opt.OriginTo) && inRange(t, e.opt.TargetFrom, e.opt.TargetTo)
+}
+
+func inRange(t, from, to time.Time) bool {
+	return (from.IsZero() || !t.Before(from)) && (to.IsZero() || t.Before(to))
+}
+
+func leadSet(leads []int) map[int]bool {
+	if len(leads) == 0 {
+		return nil
+	}
+	s := make(map[int]bool, len(leads))
+	for _, h := range leads {
+		s[h] = true
+	}
+	return s
+}
+
+func (e *evaluation) results(hist map[string]history) ([]report.Result, error) {
+	out := make([]report.Result, 0, len(e.groups))
+	var errs []error
+	for _, k := range sortedKeys(e.groups) {
+		g := e.groups[k]
+		scale := math.NaN()
+		if h, ok := hist[k.series]; ok {
+			s, err := h.scale(g.step, g.firstOrigin, e.opt.Season)
+			if err != nil {
+				errs = append(errs, err)
+				continue
+			}
+			scale = s
+		}
+		out = append(out, report.Result{Series: k.series, Model: k.model, Step: g.step.String(), Table: g.tab.Table(scale)})
+	}
+	if len(errs) > 0 {
+		return nil, errors.Join(errs...)
+	}
+	return out, nil
+}
+
+func sortedKeys[V any](m map[groupKey]V) []groupKey {
+	ks := make([]groupKey, 0, len(m))
+	for k := range m {
+		ks = append(ks, k)
+	}
+	slices.SortFunc(ks, func(a, b groupKey) int {
+		if c := strings.Compare(a.series, b.series); c != 0 {
+			return c
+		}
+		return strings.Compare(a.model, b.model)
+	})
+	return ks
+}

@@ -1,0 +1,91 @@
+// Command aftercast is the aftercast binary: the service (serve, migrate),
+// its command-line clients, offline evaluation and the demo. Each
+// subcommand lives in its own file and only wires flags to packages.
+package main
+
+import (
+	"errors"
+	"flag"
+	"fmt"
+	"io"
+	"os"
+)
+
+// command is one subcommand: it parses its own flags from args and returns
+// an error to report, or errUsage after printing usage itself.
+type command struct {
+	name  string
+	short string
+	run   func(args []string, stdout, stderr io.Writer) error
+}
+
+var errUsage = errors.New("usage")
+
+func commands() []command {
+	return []command{
+		{"evaluate", "score a CSV of forecasts and actuals offline, per lead", runEvaluate},
+	}
+}
+
+func main() { os.Exit(run(os.Args[1:], os.Stdout, os.Stderr)) }
+
+func run(args []string, stdout, stderr io.Writer) int {
+	if len(args) == 0 || args[0] == "-h" || args[0] == "--help" || args[0] == "help" {
+		usage(stderr)
+		if len(args) == 0 {
+			return 2
+		}
+		return 0
+	}
+	for _, c := range commands() {
+		if c.name != args[0] {
+			continue
+		}
+		err := c.run(args[1:], stdout, stderr)
+		switch {
+		case err == nil:
+			return 0
+		case errors.Is(err, flag.ErrHelp):
+			return 0
+		case errors.Is(err, errUsage):
+			return 2
+		}
+		fmt.Fprintf(stderr, "aftercast %s: %v\n", c.name, err)
+		return 1
+	}
+	fmt.Fprintf(stderr, "aftercast: unknown command %q\n\n", args[0])
+	usage(stderr)
+	return 2
+}
+
+func usage(w io.Writer) {
+	fmt.Fprintln(w, "usage: aftercast COMMAND [flags]\n\ncommands:")
+	for _, c := range commands() {
+		fmt.Fprintf(w, "  %-10s %s\n", c.name, c.short)
+	}
+	fmt.Fprintln(w, "\nRun 'aftercast COMMAND -h' for a command's flags.")
+}
+
+// newFlags makes a flag set whose errors are returned, not fatal, and
+// whose usage line names the command.
+func newFlags(name, args string, stderr io.Writer) *flag.FlagSet {
+	fs := flag.NewFlagSet("aftercast "+name, flag.ContinueOnError)
+	fs.SetOutput(stderr)
+	fs.Usage = func() {
+		fmt.Fprintf(stderr, "usage: aftercast %s [flags] %s\n\nflags:\n", name, args)
+		fs.PrintDefaults()
+	}
+	return fs
+}
+
+// parseFlags parses args, mapping a flag error to errUsage (the flag
+// package has already printed it).
+func parseFlags(fs *flag.FlagSet, args []string) error {
+	if err := fs.Parse(args); err != nil {
+		if errors.Is(err, flag.ErrHelp) {
+			return err
+		}
+		return errUsage
+	}
+	return nil
+}
