@@ -20,8 +20,13 @@ type Table struct {
 
 // Tabulator accumulates pairs per lead. The zero value is ready to use.
 type Tabulator struct {
-	leads map[int]*Accumulator
+	dense []Accumulator        // by lead, for leads up to maxDenseLead
+	far   map[int]*Accumulator // beyond it
 }
+
+// maxDenseLead bounds the lead-indexed slice; a direct index is several
+// times cheaper than a map lookup on the hot path of scoring.
+const maxDenseLead = 4096
 
 // Add scores the pair (actual y, forecast f) at lead h.
 func (t *Tabulator) Add(h int, y, f float64) { t.acc(h).Add(y, f) }
@@ -31,28 +36,39 @@ func (t *Tabulator) Remove(h int, y, f float64) { t.acc(h).Remove(y, f) }
 
 // Merge adds every pair of o to t.
 func (t *Tabulator) Merge(o *Tabulator) {
-	for h, a := range o.leads {
-		t.acc(h).Merge(a)
-	}
+	o.each(func(h int, a *Accumulator) { t.acc(h).Merge(a) })
 }
 
 // Len is the number of pairs over all leads.
 func (t *Tabulator) Len() int64 {
 	var n int64
-	for _, a := range t.leads {
-		n += a.N()
-	}
+	t.each(func(_ int, a *Accumulator) { n += a.N() })
 	return n
 }
 
-func (t *Tabulator) acc(h int) *Accumulator {
-	if t.leads == nil {
-		t.leads = make(map[int]*Accumulator)
+func (t *Tabulator) each(f func(h int, a *Accumulator)) {
+	for h := range t.dense {
+		f(h, &t.dense[h])
 	}
-	a := t.leads[h]
+	for h, a := range t.far {
+		f(h, a)
+	}
+}
+
+func (t *Tabulator) acc(h int) *Accumulator {
+	if h >= 0 && h <= maxDenseLead {
+		if h >= len(t.dense) {
+			t.dense = append(t.dense, make([]Accumulator, h+1-len(t.dense))...)
+		}
+		return &t.dense[h]
+	}
+	if t.far == nil {
+		t.far = make(map[int]*Accumulator)
+	}
+	a := t.far[h]
 	if a == nil {
 		a = new(Accumulator)
-		t.leads[h] = a
+		t.far[h] = a
 	}
 	return a
 }
@@ -60,17 +76,17 @@ func (t *Tabulator) acc(h int) *Accumulator {
 // Table returns the per-lead and overall metrics. scale is the MASE scale,
 // NaN when unknown.
 func (t *Tabulator) Table(scale float64) Table {
-	hs := make([]int, 0, len(t.leads))
-	for h, a := range t.leads {
+	var hs []int
+	t.each(func(h int, a *Accumulator) {
 		if a.N() > 0 {
 			hs = append(hs, h)
 		}
-	}
+	})
 	slices.Sort(hs)
 	var all Accumulator
 	tab := Table{Leads: make([]LeadMetrics, 0, len(hs))}
 	for _, h := range hs {
-		a := t.leads[h]
+		a := t.acc(h)
 		all.Merge(a)
 		tab.Leads = append(tab.Leads, LeadMetrics{Lead: h, Metrics: a.Metrics(scale)})
 	}

@@ -36,6 +36,10 @@ type Options struct {
 	Notes io.Writer
 }
 
+// maxStreamLead bounds a lead, so that a target decades after its origin
+// (a typo in a year) is an error and not a huge allocation.
+const maxStreamLead = 1_000_000
+
 // maxErrors is how many input errors are collected before giving up, so a
 // wrong file gives a useful list rather than a million lines.
 const maxErrors = 10
@@ -103,9 +107,12 @@ type group struct {
 	step        scoring.Step
 	tab         scoring.Tabulator
 	firstOrigin time.Time
-	// Streaming: the rows of the newest origin, by target, for duplicate checks.
-	cur    time.Time
-	curRow map[int64]pairValues
+	// Streaming: the rows of the newest origin, by lead (one target per
+	// lead), for duplicate checks; curLeads lists the leads set in curRow.
+	cur      time.Time
+	curRow   []pairValues
+	curSet   []bool
+	curLeads []int
 	// Holding all rows (unsorted input): every (origin, target).
 	all map[[2]int64]pairValues
 }
@@ -146,30 +153,44 @@ func open(path string, required ...string) (*os.File, *records.Reader, error) {
 	return f, rd, nil
 }
 
-// rowTimes parses series, model, origin and target of the current row,
-// re-using the previous origin when its text repeats, as it does for every
-// lead of one forecast.
-type rowTimes struct {
+// rowReader parses the rows of a pairs file, re-using the previous origin
+// and group key when their text repeats, as it does for every lead of one
+// forecast.
+type rowReader struct {
+	*records.Reader
+	series, model, origin, target, forecast, actual records.Column
+
 	lastOrigin     string
 	lastOriginTime time.Time
+	lastKey        groupKey
 }
 
-func (rt *rowTimes) read(rd *records.Reader) (groupKey, time.Time, time.Time, error) {
-	series, err := rd.Required(colSeries)
+func newRowReader(rd *records.Reader) *rowReader {
+	return &rowReader{Reader: rd, series: rd.Column(colSeries), model: rd.Column(colModel),
+		origin: rd.Column(colOrigin), target: rd.Column(colTarget),
+		forecast: rd.Column(colForecast), actual: rd.Column(colActual)}
+}
+
+func (rr *rowReader) times() (groupKey, time.Time, time.Time, error) {
+	series, err := rr.Required(rr.series)
 	if err != nil {
 		return groupKey{}, time.Time{}, time.Time{}, err
 	}
-	k := groupKey{series: series, model: strings.TrimSpace(rd.String(colModel))}
+	k := rr.lastKey
+	if model := strings.TrimSpace(rr.String(rr.model)); series != k.series || model != k.model {
+		k = groupKey{series: series, model: model}
+		rr.lastKey = k
+	}
 	var o time.Time
-	if s := rd.String(colOrigin); s != "" && s == rt.lastOrigin {
-		o = rt.lastOriginTime
+	if s := rr.String(rr.origin); s != "" && s == rr.lastOrigin {
+		o = rr.lastOriginTime
 	} else {
-		if o, err = rd.Time(colOrigin); err != nil {
+		if o, err = rr.Time(rr.origin); err != nil {
 			return k, o, o, err
 		}
-		rt.lastOrigin, rt.lastOriginTime = s, o
+		rr.lastOrigin, rr.lastOriginTime = s, o
 	}
-	t, err := rd.Time(colTarget)
+	t, err := rr.Time(rr.target)
 	return k, o, t, err
 }
 
@@ -181,14 +202,14 @@ func (e *evaluation) inferSteps(path string) error {
 	}
 	defer f.Close()
 	guesses := make(map[groupKey]*scoring.StepGuess)
-	var rt rowTimes
+	rr := newRowReader(rd)
 	for {
 		if err := rd.Next(); err == io.EOF {
 			break
 		} else if err != nil {
 			return err
 		}
-		k, o, t, err := rt.read(rd)
+		k, o, t, err := rr.times()
 		if err != nil {
 			if err := e.fail(err); err != nil {
 				return err
@@ -198,7 +219,7 @@ func (e *evaluation) inferSteps(path string) error {
 		g := guesses[k]
 		if g == nil {
 			g = scoring.NewStepGuess(e.opt.Location)
-			guesses[k] = g
+			guesses[k.clone()] = g
 		}
 		g.Observe(o)
 		g.Observe(t)
@@ -222,6 +243,9 @@ func (e *evaluation) inferSteps(path string) error {
 	}
 	return nil
 }
+
+// clone detaches a key from the input chunk its strings point into.
+func (k groupKey) clone() groupKey { return groupKey{strings.Clone(k.series), strings.Clone(k.model)} }
 
 func (k groupKey) label() string {
 	if k.model == "" {
@@ -247,23 +271,21 @@ func (e *evaluation) pass(path string, holdAll bool) error {
 	defer f.Close()
 	e.groups = make(map[groupKey]*group)
 	e.errs = nil
-	var (
-		rt   rowTimes
-		last *group
-	)
+	rr := newRowReader(rd)
+	var last *group
 	for {
 		if err := rd.Next(); err == io.EOF {
 			break
 		} else if err != nil {
 			return err // a broken CSV structure: later lines cannot be trusted
 		}
-		k, o, t, err := rt.read(rd)
+		k, o, t, err := rr.times()
 		var fc, y float64
 		if err == nil {
-			fc, err = rd.Float(colForecast)
+			fc, err = rr.Float(rr.forecast)
 		}
 		if err == nil {
-			y, err = rd.Float(colActual)
+			y, err = rr.Float(rr.actual)
 		}
 		if err != nil {
 			if err := e.fail(err); err != nil {
@@ -274,11 +296,10 @@ func (e *evaluation) pass(path string, holdAll bool) error {
 		g := last
 		if g == nil || g.key != k {
 			if g = e.groups[k]; g == nil {
+				k = k.clone()
 				g = &group{key: k, step: e.stepFor(k), firstOrigin: o, cur: o}
 				if holdAll {
 					g.all = make(map[[2]int64]pairValues)
-				} else {
-					g.curRow = make(map[int64]pairValues)
 				}
 				e.groups[k] = g
 			}
@@ -302,7 +323,7 @@ func (e *evaluation) pass(path string, holdAll bool) error {
 func (e *evaluation) score(rd *records.Reader, g *group, o, t time.Time, fc, y float64, holdAll bool) error {
 	h, err := g.step.Lead(o, t)
 	if err != nil {
-		return rd.Errorf("%s: %v", g.key.label(), err)
+		return rd.Errorf("%s: %w", g.key.label(), err)
 	}
 	v := pairValues{fc, y}
 	if holdAll {
@@ -317,12 +338,23 @@ func (e *evaluation) score(rd *records.Reader, g *group, o, t time.Time, fc, y f
 			return errUnsorted
 		case c > 0:
 			g.cur = o
-			clear(g.curRow)
+			for _, l := range g.curLeads {
+				g.curSet[l] = false
+			}
+			g.curLeads = g.curLeads[:0]
 		}
-		if prev, ok := g.curRow[t.UnixNano()]; ok {
-			return duplicate(rd, prev, v)
+		if h >= len(g.curSet) {
+			if h > maxStreamLead {
+				return rd.Errorf("%s: lead %d is beyond %d steps", g.key.label(), h, maxStreamLead)
+			}
+			g.curSet = append(g.curSet, make([]bool, h+1-len(g.curSet))...)
+			g.curRow = append(g.curRow, make([]pairValues, h+1-len(g.curRow))...)
 		}
-		g.curRow[t.UnixNano()] = v
+		if g.curSet[h] {
+			return duplicate(rd, g.curRow[h], v)
+		}
+		g.curSet[h], g.curRow[h] = true, v
+		g.curLeads = append(g.curLeads, h)
 	}
 	if o.Before(g.firstOrigin) {
 		g.firstOrigin = o

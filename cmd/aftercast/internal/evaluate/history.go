@@ -5,6 +5,7 @@ import (
 	"fmt"
 	"io"
 	"math"
+	"strings"
 	"time"
 
 	"github.com/aftercast/aftercast/cmd/aftercast/internal/records"
@@ -34,26 +35,28 @@ func readHistory(path string) (map[string]history, error) {
 	out := make(map[string]history)
 	seen := make(map[string]map[int64]float64)
 	var errs []error
+	cSeries, cTime, cValue := rd.Column("series"), rd.Column("time"), rd.Column("value")
 	for len(errs) < maxErrors {
 		if err := rd.Next(); err == io.EOF {
 			break
 		} else if err != nil {
 			return nil, err
 		}
-		s, err := rd.Required("series")
+		s, err := rd.Required(cSeries)
 		var t time.Time
 		var v float64
 		if err == nil {
-			t, err = rd.Time("time")
+			t, err = rd.Time(cTime)
 		}
 		if err == nil {
-			v, err = rd.Float("value")
+			v, err = rd.Float(cValue)
 		}
 		if err != nil {
 			errs = append(errs, err)
 			continue
 		}
 		if seen[s] == nil {
+			s = strings.Clone(s) // a map key outlives the input chunk
 			seen[s] = make(map[int64]float64)
 		}
 		if prev, ok := seen[s][t.UnixNano()]; ok {
