@@ -1,0 +1,543 @@
+package store
+
+import (
+	"context"
+	"fmt"
+	"math"
+	"slices"
+	"time"
+
+	"github.com/jackc/pgx/v5"
+	"github.com/jackc/pgx/v5/pgtype"
+)
+
+// ForecastVector is one issued forecast: the values for leads 1..k from
+// one origin.
+type ForecastVector struct {
+	Series   string
+	Model    string
+	Origin   time.Time
+	IssuedAt time.Time // zero: the producer gave none, the receive time stands in
+	// Values[i] is the forecast for lead i+1; NaN marks a lead the producer
+	// did not send (sparse input). Infinite values are rejected.
+	Values    []float64
+	Quantiles []Quantile
+}
+
+// Quantile is a forecast quantile at one level for the same leads as the
+// vector's Values. Stored, not scored yet.
+type Quantile struct {
+	Level  float64
+	Values []float64
+}
+
+// Actual is one observed value of a series.
+type Actual struct {
+	Series string
+	Time   time.Time
+	Value  float64
+}
+
+// Rejection says why one item, or one lead of it, was not stored.
+type Rejection struct {
+	Index  int // position of the item in the whole push, from 0
+	Lead   int // 0 when the whole item was rejected
+	Field  string
+	Reason string
+}
+
+// Ack is what a write did, counted in points (one forecast value for one
+// lead, or one actual). Forecasts: Accepted (stored and scorable),
+// Duplicate (the same value was already stored), Late (arrived after the
+// actual of its target was known: stored but never scored, or — for a
+// re-issue — not applied), Rejected. Actuals: Accepted (new), Revised (a
+// changed value replaced the stored one), Duplicate, Rejected.
+type Ack struct {
+	Accepted, Duplicate, Late, Revised, Rejected int64
+	Rejections                                   []Rejection
+}
+
+// Add folds another acknowledgement into a.
+func (a *Ack) Add(b Ack) {
+	a.Accepted += b.Accepted
+	a.Duplicate += b.Duplicate
+	a.Late += b.Late
+	a.Revised += b.Revised
+	a.Rejected += b.Rejected
+	a.Rejections = append(a.Rejections, b.Rejections...)
+}
+
+var modelPattern = keyPattern
+
+func countPoints(vals []float64) int64 {
+	var n int64
+	for _, v := range vals {
+		if !math.IsNaN(v) {
+			n++
+		}
+	}
+	return n
+}
+
+type forecastKey struct {
+	series int64
+	model  string
+	origin int64 // unix nanoseconds
+}
+
+// forecastRow is a forecast vector as stored, being merged.
+type forecastRow struct {
+	se        *Series
+	model     string
+	origin    time.Time
+	vals      []float64 // NaN = no value
+	late      []bool
+	qLevels   []float64
+	qVals     [][]float64
+	issuedAt  time.Time
+	firstRecv time.Time
+	exists    bool
+	changed   bool
+}
+
+// WriteForecasts stores a batch of forecast vectors under the rules of
+// method.md §3 and returns what it did. firstIndex is the position of the
+// batch's first vector in the whole push, for rejections. Invalid vectors or
+// leads are rejected and the rest stored; the batch is committed before
+// WriteForecasts returns, so an acknowledged point is never lost.
+func (s *Store) WriteForecasts(ctx context.Context, vs []ForecastVector, firstIndex int) (Ack, error) {
+	var ack Ack
+	if len(vs) > s.limits.MaxBatch {
+		return ack, invalid("vectors", "a batch holds at most %d vectors, got %d", s.limits.MaxBatch, len(vs))
+	}
+	keys := make([]string, 0, len(vs))
+	for _, v := range vs {
+		keys = append(keys, v.Series)
+	}
+	series, err := s.seriesByKeys(ctx, keys)
+	if err != nil {
+		return ack, err
+	}
+	reject := func(i, lead int, field, format string, args ...any) {
+		ack.Rejections = append(ack.Rejections, Rejection{firstIndex + i, lead, field, fmt.Sprintf(format, args...)})
+	}
+	type item struct {
+		i  int
+		v  *ForecastVector
+		se *Series
+	}
+	var items []item
+	for i := range vs {
+		v := &vs[i]
+		se := series[v.Series]
+		n := countPoints(v.Values)
+		switch {
+		case se == nil:
+			reject(i, 0, "series", "unknown series %q: create it first", v.Series)
+		case !modelPattern.MatchString(v.Model):
+			reject(i, 0, "model", "want 1–200 characters of A-Z a-z 0-9 _ . : / -")
+		case v.Origin.IsZero():
+			reject(i, 0, "origin", "missing")
+		case n == 0:
+			reject(i, 0, "values", "no forecast values")
+		case !validQuantiles(v):
+			reject(i, 0, "quantiles", "each level must lie in (0, 1), once, with one value per lead of the vector")
+		default:
+			// Leads beyond the horizon and infinite values are rejected one by one.
+			for h := 1; h <= len(v.Values); h++ {
+				x := v.Values[h-1]
+				switch {
+				case math.IsNaN(x):
+				case h > se.Horizon:
+					reject(i, h, "values", "lead %d is beyond the series horizon %d", h, se.Horizon)
+					v.Values[h-1] = math.NaN()
+					ack.Rejected++
+				case math.IsInf(x, 0):
+					reject(i, h, "values", "not a finite number")
+					v.Values[h-1] = math.NaN()
+					ack.Rejected++
+				}
+			}
+			if countPoints(v.Values) > 0 {
+				items = append(items, item{i, v, se})
+			}
+			continue
+		}
+		ack.Rejected += n
+	}
+	if len(items) == 0 {
+		return ack, nil
+	}
+	now := time.Now().UTC()
+	err = s.inTx(ctx, func(tx pgx.Tx) error {
+		ids := make([]int64, 0, len(items))
+		for _, it := range items {
+			ids = append(ids, it.se.ID)
+		}
+		if err := lockSeries(ctx, tx, ids); err != nil {
+			return err
+		}
+		rows, err := loadForecasts(ctx, tx, items2keys(items, func(it item) (*Series, string, time.Time) { return it.se, it.v.Model, it.v.Origin }))
+		if err != nil {
+			return err
+		}
+		known, err := knownActuals(ctx, tx, items2spans(items, func(it item) (*Series, time.Time, int) { return it.se, it.v.Origin, len(it.v.Values) }))
+		if err != nil {
+			return err
+		}
+		for _, it := range items {
+			k := forecastKey{it.se.ID, it.v.Model, it.v.Origin.UnixNano()}
+			r := rows[k]
+			if r == nil {
+				r = &forecastRow{model: it.v.Model, origin: it.v.Origin, firstRecv: now}
+				rows[k] = r
+			}
+			r.se = it.se
+			mergeForecast(r, it.v, known[it.se.ID], now, &ack)
+		}
+		return storeForecasts(ctx, tx, rows, now)
+	})
+	if err != nil {
+		return Ack{Rejected: ack.Rejected, Rejections: ack.Rejections}, err
+	}
+	return ack, nil
+}
+
+func validQuantiles(v *ForecastVector) bool {
+	seen := map[float64]bool{}
+	for _, q := range v.Quantiles {
+		if !(q.Level > 0 && q.Level < 1) || seen[q.Level] || len(q.Values) != len(v.Values) {
+			return false
+		}
+		seen[q.Level] = true
+	}
+	return true
+}
+
+func items2keys[T any](items []T, f func(T) (*Series, string, time.Time)) []forecastKey {
+	out := make([]forecastKey, 0, len(items))
+	for _, it := range items {
+		se, model, origin := f(it)
+		out = append(out, forecastKey{se.ID, model, origin.UnixNano()})
+	}
+	return out
+}
+
+// targetSpan is the range of target times one series' forecasts in a
+// batch can reach.
+type targetSpan struct{ lo, hi time.Time }
+
+func items2spans[T any](items []T, f func(T) (*Series, time.Time, int)) map[int64]targetSpan {
+	out := map[int64]targetSpan{}
+	for _, it := range items {
+		se, origin, k := f(it)
+		lo, hi := se.step.Add(origin, 1), se.step.Add(origin, max(k, 1))
+		sp, ok := out[se.ID]
+		if !ok || lo.Before(sp.lo) {
+			sp.lo = lo
+		}
+		if !ok || hi.After(sp.hi) {
+			sp.hi = hi
+		}
+		out[se.ID] = sp
+	}
+	return out
+}
+
+// mergeForecast applies one pushed vector to the stored row (method.md
+// §3): an identical value is a duplicate; a value for a target whose actual
+// is already known is late — stored and flagged when the lead had no value,
+// not applied when it replaces one (a re-issue only replaces values whose
+// actual has not arrived); anything else is stored.
+func mergeForecast(r *forecastRow, v *ForecastVector, known map[int64]bool, now time.Time, ack *Ack) {
+	if n := len(v.Values); n > len(r.vals) {
+		grown := make([]float64, n)
+		copy(grown, r.vals)
+		for i := len(r.vals); i < n; i++ {
+			grown[i] = math.NaN()
+		}
+		r.vals = grown
+		if r.late != nil {
+			r.late = append(r.late, make([]bool, n-len(r.late))...)
+		}
+	}
+	step := r.se.step
+	for i, x := range v.Values {
+		if math.IsNaN(x) {
+			continue
+		}
+		old := r.vals[i]
+		switch {
+		case old == x:
+			ack.Duplicate++
+		case known[step.Add(r.origin, i+1).UnixNano()]:
+			ack.Late++
+			if math.IsNaN(old) {
+				r.vals[i] = x
+				if r.late == nil {
+					r.late = make([]bool, len(r.vals))
+				}
+				r.late[i] = true
+				r.changed = true
+			}
+		default:
+			ack.Accepted++
+			r.vals[i] = x
+			if r.late != nil {
+				r.late[i] = false
+			}
+			r.changed = true
+		}
+	}
+	if len(v.Quantiles) > 0 && r.changed {
+		r.qLevels = r.qLevels[:0]
+		r.qVals = r.qVals[:0]
+		for _, q := range v.Quantiles {
+			r.qLevels = append(r.qLevels, q.Level)
+			r.qVals = append(r.qVals, padTo(q.Values, len(r.vals)))
+		}
+	}
+	if r.changed {
+		r.issuedAt = v.IssuedAt
+		if r.issuedAt.IsZero() {
+			r.issuedAt = now
+		}
+	}
+}
+
+func padTo(xs []float64, n int) []float64 {
+	out := make([]float64, n)
+	copy(out, xs)
+	for i := len(xs); i < n; i++ {
+		out[i] = math.NaN()
+	}
+	return out
+}
+
+// lockSeries takes the per-series transaction locks that serialise writes
+// to a series across replicas, in id order so that two batches over the
+// same series cannot deadlock. Reads take no lock.
+func lockSeries(ctx context.Context, tx pgx.Tx, ids []int64) error {
+	ids = slices.Clone(ids)
+	slices.Sort(ids)
+	ids = slices.Compact(ids)
+	for _, id := range ids {
+		if _, err := tx.Exec(ctx, "SELECT pg_advisory_xact_lock($1)", id); err != nil {
+			return fmt.Errorf("locking series: %w", err)
+		}
+	}
+	return nil
+}
+
+func loadForecasts(ctx context.Context, tx pgx.Tx, keys []forecastKey) (map[forecastKey]*forecastRow, error) {
+	ids, models, origins := make([]int64, len(keys)), make([]string, len(keys)), make([]time.Time, len(keys))
+	for i, k := range keys {
+		ids[i], models[i], origins[i] = k.series, k.model, time.Unix(0, k.origin)
+	}
+	rows, err := tx.Query(ctx, `SELECT f.series_id, f.model, f.origin, f.vals, f.late, f.quantile_levels, f.quantile_vals, f.issued_at, f.first_received_at
+		FROM forecasts f JOIN (SELECT DISTINCT * FROM unnest($1::bigint[], $2::text[], $3::timestamptz[])) AS k(series_id, model, origin)
+		USING (series_id, model, origin)`, ids, models, origins)
+	if err != nil {
+		return nil, fmt.Errorf("reading stored forecasts: %w", err)
+	}
+	defer rows.Close()
+	out := make(map[forecastKey]*forecastRow, len(keys))
+	for rows.Next() {
+		var (
+			id     int64
+			r      = &forecastRow{exists: true}
+			vals   []pgtype.Float8
+			qVals  [][]pgtype.Float8
+			issued pgtype.Timestamptz
+		)
+		if err := rows.Scan(&id, &r.model, &r.origin, &vals, &r.late, &r.qLevels, &qVals, &issued, &r.firstRecv); err != nil {
+			return nil, fmt.Errorf("reading stored forecasts: %w", err)
+		}
+		r.vals = fromFloat8(vals)
+		for _, q := range qVals {
+			r.qVals = append(r.qVals, fromFloat8(q))
+		}
+		r.issuedAt = issued.Time
+		out[forecastKey{id, r.model, r.origin.UnixNano()}] = r
+	}
+	return out, rows.Err()
+}
+
+// knownActuals returns, per series, the times of actuals already stored in
+// the span the batch's targets cover.
+func knownActuals(ctx context.Context, tx pgx.Tx, spans map[int64]targetSpan) (map[int64]map[int64]bool, error) {
+	ids, los, his := make([]int64, 0, len(spans)), make([]time.Time, 0, len(spans)), make([]time.Time, 0, len(spans))
+	for id, sp := range spans {
+		ids, los, his = append(ids, id), append(los, sp.lo), append(his, sp.hi)
+	}
+	rows, err := tx.Query(ctx, `SELECT a.series_id, a.time FROM unnest($1::bigint[], $2::timestamptz[], $3::timestamptz[]) AS r(series_id, lo, hi)
+		JOIN actuals a ON a.series_id = r.series_id AND a.time BETWEEN r.lo AND r.hi`, ids, los, his)
+	if err != nil {
+		return nil, fmt.Errorf("reading known actuals: %w", err)
+	}
+	defer rows.Close()
+	out := make(map[int64]map[int64]bool, len(spans))
+	for rows.Next() {
+		var id int64
+		var t time.Time
+		if err := rows.Scan(&id, &t); err != nil {
+			return nil, err
+		}
+		if out[id] == nil {
+			out[id] = map[int64]bool{}
+		}
+		out[id][t.UnixNano()] = true
+	}
+	return out, rows.Err()
+}
+
+func toFloat8(xs []float64) []pgtype.Float8 {
+	out := make([]pgtype.Float8, len(xs))
+	for i, x := range xs {
+		out[i] = pgtype.Float8{Float64: x, Valid: !math.IsNaN(x)}
+	}
+	return out
+}
+
+func fromFloat8(xs []pgtype.Float8) []float64 {
+	out := make([]float64, len(xs))
+	for i, x := range xs {
+		if x.Valid {
+			out[i] = x.Float64
+		} else {
+			out[i] = math.NaN()
+		}
+	}
+	return out
+}
+
+var stageColumns = []string{"series_id", "model", "origin", "vals", "late", "quantile_levels", "quantile_vals", "issued_at", "first_received_at", "received_at"}
+
+// storeForecasts writes the changed rows: COPY into a session-local staging
+// table, then one upsert. COPY is the fastest way in; the upsert keeps the
+// write idempotent and first_received_at untouched.
+func storeForecasts(ctx context.Context, tx pgx.Tx, rows map[forecastKey]*forecastRow, now time.Time) error {
+	var src [][]any
+	for _, r := range rows {
+		if !r.changed {
+			continue
+		}
+		var late any
+		if slices.Contains(r.late, true) {
+			late = r.late
+		}
+		var qLevels, qVals any
+		if len(r.qLevels) > 0 {
+			qLevels = r.qLevels
+			q := make([][]pgtype.Float8, len(r.qVals))
+			for i, v := range r.qVals {
+				q[i] = toFloat8(padTo(v, len(r.vals)))
+			}
+			qVals = q
+		}
+		src = append(src, []any{r.se.ID, r.model, r.origin, toFloat8(r.vals), late, qLevels, qVals, r.issuedAt, r.firstRecv, now})
+	}
+	if len(src) == 0 {
+		return nil
+	}
+	if _, err := tx.Exec(ctx, `CREATE TEMP TABLE IF NOT EXISTS forecast_stage (LIKE forecasts) ON COMMIT DELETE ROWS`); err != nil {
+		return fmt.Errorf("creating staging table: %w", err)
+	}
+	if _, err := tx.CopyFrom(ctx, pgx.Identifier{"forecast_stage"}, stageColumns, pgx.CopyFromRows(src)); err != nil {
+		return fmt.Errorf("copying forecasts: %w", err)
+	}
+	_, err := tx.Exec(ctx, `INSERT INTO forecasts SELECT * FROM forecast_stage
+		ON CONFLICT (series_id, model, origin) DO UPDATE SET vals = excluded.vals, late = excluded.late,
+			quantile_levels = excluded.quantile_levels, quantile_vals = excluded.quantile_vals,
+			issued_at = excluded.issued_at, received_at = excluded.received_at`)
+	if err != nil {
+		return fmt.Errorf("storing forecasts: %w", err)
+	}
+	return nil
+}
+
+// WriteActuals stores a batch of actuals: a new time is accepted, a changed
+// value revises the stored one (first_received_at stays), an identical
+// value is a duplicate. Within a batch the last value for a time wins.
+func (s *Store) WriteActuals(ctx context.Context, as []Actual, firstIndex int) (Ack, error) {
+	var ack Ack
+	if len(as) > s.limits.MaxBatch {
+		return ack, invalid("actuals", "a batch holds at most %d actuals, got %d", s.limits.MaxBatch, len(as))
+	}
+	keys := make([]string, 0, len(as))
+	for _, a := range as {
+		keys = append(keys, a.Series)
+	}
+	series, err := s.seriesByKeys(ctx, keys)
+	if err != nil {
+		return ack, err
+	}
+	type key struct {
+		id int64
+		t  int64
+	}
+	latest := make(map[key]int, len(as)) // → index into ids/times/vals
+	var (
+		ids   []int64
+		times []time.Time
+		vals  []float64
+	)
+	for i, a := range as {
+		se := series[a.Series]
+		var field, reason string
+		switch {
+		case se == nil:
+			field, reason = "series", fmt.Sprintf("unknown series %q: create it first", a.Series)
+		case a.Time.IsZero():
+			field, reason = "time", "missing"
+		case math.IsNaN(a.Value) || math.IsInf(a.Value, 0):
+			field, reason = "value", "not a finite number"
+		}
+		if field != "" {
+			ack.Rejected++
+			ack.Rejections = append(ack.Rejections, Rejection{firstIndex + i, 0, field, reason})
+			continue
+		}
+		k := key{se.ID, a.Time.UnixNano()}
+		if j, ok := latest[k]; ok {
+			if vals[j] == a.Value {
+				ack.Duplicate++
+			} else {
+				ack.Revised++
+				vals[j] = a.Value
+			}
+			continue
+		}
+		latest[k] = len(ids)
+		ids, times, vals = append(ids, se.ID), append(times, a.Time), append(vals, a.Value)
+	}
+	if len(ids) == 0 {
+		return ack, nil
+	}
+	err = s.inTx(ctx, func(tx pgx.Tx) error {
+		if err := lockSeries(ctx, tx, ids); err != nil {
+			return err
+		}
+		var inserted, revised int64
+		err := tx.QueryRow(ctx, `WITH up AS (
+				INSERT INTO actuals (series_id, time, value, first_received_at, received_at)
+				SELECT series_id, time, value, $4, $4 FROM unnest($1::bigint[], $2::timestamptz[], $3::float8[]) AS u(series_id, time, value)
+				ON CONFLICT (series_id, time) DO UPDATE
+					SET value = excluded.value, received_at = excluded.received_at, revisions = actuals.revisions + 1
+					WHERE actuals.value <> excluded.value
+				RETURNING xmax = 0 AS inserted)
+			SELECT count(*) FILTER (WHERE inserted), count(*) FILTER (WHERE NOT inserted) FROM up`,
+			ids, times, vals, time.Now().UTC()).Scan(&inserted, &revised)
+		if err != nil {
+			return fmt.Errorf("storing actuals: %w", err)
+		}
+		ack.Accepted += inserted
+		ack.Revised += revised
+		ack.Duplicate += int64(len(ids)) - inserted - revised
+		return nil
+	})
+	if err != nil {
+		return Ack{Rejected: ack.Rejected, Rejections: ack.Rejections}, err
+	}
+	return ack, nil
+}

@@ -1,0 +1,3 @@
+DROP TABLE actuals;
+DROP TABLE forecasts;
+DROP TABLE series;

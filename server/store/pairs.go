@@ -1,0 +1,392 @@
+package store
+
+import (
+	"context"
+	"encoding/base64"
+	"encoding/binary"
+	"errors"
+	"fmt"
+	"math"
+	"slices"
+	"time"
+
+	"github.com/jackc/pgx/v5"
+	"github.com/jackc/pgx/v5/pgtype"
+
+	"github.com/aftercast/aftercast/scoring"
+)
+
+// Selection chooses pairs of one (series, model). Zero times leave a range
+// open; ranges are inclusive–exclusive. Window > 0 keeps, per lead, only
+// the pairs of the last Window origins that have a scored pair for that
+// lead (method.md §5), within the ranges.
+type Selection struct {
+	OriginFrom, OriginTo time.Time
+	TargetFrom, TargetTo time.Time
+	Leads                []int // empty = all
+	Window               int
+}
+
+// Pair is one (origin, lead) with both its forecast and its actual.
+type Pair struct {
+	Origin, Target      time.Time
+	Lead                int
+	Forecast, Actual    float64
+	ForecastReceivedAt  time.Time
+	ActualFirstReceived time.Time
+	Late                bool // excluded from scoring by the hindsight guard
+}
+
+func (s *Store) checkSelection(se *Series, sel *Selection) error {
+	if sel.Window < 0 || sel.Window > s.limits.MaxWindow {
+		return invalid("selection.window", "want 0 (none) to %d origins, got %d", s.limits.MaxWindow, sel.Window)
+	}
+	for _, h := range sel.Leads {
+		if h < 1 || h > se.Horizon {
+			return invalid("selection.leads", "lead %d is outside 1..%d", h, se.Horizon)
+		}
+	}
+	if !sel.OriginTo.IsZero() && !sel.OriginFrom.IsZero() && !sel.OriginFrom.Before(sel.OriginTo) {
+		return invalid("selection.origin_range", "from must be before to")
+	}
+	if !sel.TargetTo.IsZero() && !sel.TargetFrom.IsZero() && !sel.TargetFrom.Before(sel.TargetTo) {
+		return invalid("selection.target_range", "from must be before to")
+	}
+	return nil
+}
+
+// originBounds turns the selection into the origin range to read: a target
+// range reaches back by the horizon.
+func originBounds(se *Series, sel *Selection) (lo, hi time.Time) {
+	lo, hi = sel.OriginFrom, sel.OriginTo
+	if !sel.TargetFrom.IsZero() {
+		if t := se.step.Add(sel.TargetFrom, -se.Horizon); lo.IsZero() || t.After(lo) {
+			lo = t
+		}
+	}
+	if !sel.TargetTo.IsZero() && (hi.IsZero() || sel.TargetTo.Before(hi)) {
+		hi = sel.TargetTo
+	}
+	return lo, hi
+}
+
+// chunkOrigins is how many forecast vectors are read per query while
+// walking a selection; each chunk costs one forecast and one actual query.
+const chunkOrigins = 2000
+
+type storedForecast struct {
+	origin   time.Time
+	vals     []float64
+	late     []bool
+	received time.Time
+}
+
+type storedActual struct {
+	value     float64
+	firstRecv time.Time
+}
+
+// walk calls fn with every pair of (se, model) in the selection's ranges
+// and lead set, in origin order (descending when desc), leads ascending
+// within an origin. fn returns false to stop.
+func (s *Store) walk(ctx context.Context, se *Series, model string, sel *Selection, desc bool, from time.Time, fn func(Pair) bool) error {
+	lo, hi := originBounds(se, sel)
+	leadOK := func(h int) bool { return len(sel.Leads) == 0 || slices.Contains(sel.Leads, h) }
+	if !from.IsZero() {
+		if desc {
+			hi = from.Add(time.Nanosecond)
+			if !sel.OriginTo.IsZero() && sel.OriginTo.Before(hi) {
+				hi = sel.OriginTo
+			}
+		} else if lo.IsZero() || from.After(lo) {
+			lo = from
+		}
+	}
+	for {
+		fs, err := s.readForecasts(ctx, se.ID, model, lo, hi, desc)
+		if err != nil {
+			return err
+		}
+		if len(fs) == 0 {
+			return nil
+		}
+		tlo, thi := fs[0].origin, fs[0].origin
+		for _, f := range fs {
+			if f.origin.Before(tlo) {
+				tlo = f.origin
+			}
+			if t := se.step.Add(f.origin, len(f.vals)); t.After(thi) {
+				thi = t
+			}
+		}
+		acts, err := s.readActuals(ctx, se.ID, tlo, thi)
+		if err != nil {
+			return err
+		}
+		for _, f := range fs {
+			for i, x := range f.vals {
+				h := i + 1
+				if math.IsNaN(x) || !leadOK(h) {
+					continue
+				}
+				t := se.step.Add(f.origin, h)
+				if !inRange(t, sel.TargetFrom, sel.TargetTo) {
+					continue
+				}
+				a, ok := acts[t.UnixNano()]
+				if !ok {
+					continue
+				}
+				p := Pair{Origin: f.origin, Target: t, Lead: h, Forecast: x, Actual: a.value,
+					ForecastReceivedAt: f.received, ActualFirstReceived: a.firstRecv, Late: f.late != nil && i < len(f.late) && f.late[i]}
+				if !fn(p) {
+					return nil
+				}
+			}
+		}
+		if len(fs) < chunkOrigins {
+			return nil
+		}
+		last := fs[len(fs)-1].origin
+		if desc {
+			hi = last
+		} else {
+			lo = last.Add(time.Nanosecond)
+		}
+	}
+}
+
+func inRange(t, from, to time.Time) bool {
+	return (from.IsZero() || !t.Before(from)) && (to.IsZero() || t.Before(to))
+}
+
+var (
+	minTime = time.Date(1, 1, 1, 0, 0, 0, 0, time.UTC)
+	maxTime = time.Date(9999, 1, 1, 0, 0, 0, 0, time.UTC)
+)
+
+func orMin(t time.Time) time.Time {
+	if t.IsZero() {
+		return minTime
+	}
+	return t
+}
+
+func orMax(t time.Time) time.Time {
+	if t.IsZero() {
+		return maxTime
+	}
+	return t
+}
+
+func (s *Store) readForecasts(ctx context.Context, seriesID int64, model string, lo, hi time.Time, desc bool) ([]storedForecast, error) {
+	order := "ASC"
+	if desc {
+		order = "DESC"
+	}
+	rows, err := s.pool.Query(ctx, `SELECT origin, vals, late, received_at FROM forecasts
+		WHERE series_id = $1 AND model = $2 AND origin >= $3 AND origin < $4
+		ORDER BY origin `+order+` LIMIT $5`, seriesID, model, orMin(lo), orMax(hi), chunkOrigins)
+	if err != nil {
+		return nil, fmt.Errorf("reading forecasts: %w", err)
+	}
+	defer rows.Close()
+	var out []storedForecast
+	for rows.Next() {
+		var f storedForecast
+		var vals []pgtype.Float8
+		if err := rows.Scan(&f.origin, &vals, &f.late, &f.received); err != nil {
+			return nil, fmt.Errorf("reading forecasts: %w", err)
+		}
+		f.vals = fromFloat8(vals)
+		out = append(out, f)
+	}
+	return out, rows.Err()
+}
+
+func (s *Store) readActuals(ctx context.Context, seriesID int64, lo, hi time.Time) (map[int64]storedActual, error) {
+	rows, err := s.pool.Query(ctx, `SELECT time, value, first_received_at FROM actuals
+		WHERE series_id = $1 AND time > $2 AND time <= $3`, seriesID, lo, hi)
+	if err != nil {
+		return nil, fmt.Errorf("reading actuals: %w", err)
+	}
+	defer rows.Close()
+	out := map[int64]storedActual{}
+	for rows.Next() {
+		var t time.Time
+		var a storedActual
+		if err := rows.Scan(&t, &a.value, &a.firstRecv); err != nil {
+			return nil, fmt.Errorf("reading actuals: %w", err)
+		}
+		out[t.UnixNano()] = a
+	}
+	return out, rows.Err()
+}
+
+// selectPairs returns the selected pairs, late ones included (flagged), in
+// origin then lead order. With a window it walks back from the newest
+// origin until every selected lead has Window scored pairs.
+func (s *Store) selectPairs(ctx context.Context, se *Series, model string, sel *Selection, fn func(Pair) bool) error {
+	if sel.Window == 0 {
+		return s.walk(ctx, se, model, sel, false, time.Time{}, fn)
+	}
+	leads := sel.Leads
+	if len(leads) == 0 {
+		leads = make([]int, se.Horizon)
+		for i := range leads {
+			leads[i] = i + 1
+		}
+	}
+	need := make(map[int]int, len(leads))
+	for _, h := range leads {
+		need[h] = sel.Window
+	}
+	var got []Pair
+	budget := s.limits.MaxScanPairs
+	err := s.walk(ctx, se, model, sel, true, time.Time{}, func(p Pair) bool {
+		budget--
+		if need[p.Lead] > 0 {
+			got = append(got, p)
+			if !p.Late {
+				if need[p.Lead]--; need[p.Lead] == 0 {
+					delete(need, p.Lead)
+				}
+			}
+		}
+		return len(need) > 0 && budget > 0
+	})
+	if err != nil {
+		return err
+	}
+	slices.SortFunc(got, func(a, b Pair) int {
+		if c := a.Origin.Compare(b.Origin); c != 0 {
+			return c
+		}
+		return a.Lead - b.Lead
+	})
+	for _, p := range got {
+		if !fn(p) {
+			break
+		}
+	}
+	return nil
+}
+
+// AccuracyResult is the accuracy of a selection.
+type AccuracyResult struct {
+	Series Series
+	Table  scoring.Table
+	Late   int64 // pairs excluded by the hindsight guard
+}
+
+// Accuracy scores the selected pairs of (series, model) per lead and
+// overall. scale is the MASE scale (NaN when unknown).
+func (s *Store) Accuracy(ctx context.Context, key, model string, sel Selection, scale float64) (AccuracyResult, error) {
+	se, err := s.seriesModel(ctx, key, model)
+	if err != nil {
+		return AccuracyResult{}, err
+	}
+	if err := s.checkSelection(se, &sel); err != nil {
+		return AccuracyResult{}, err
+	}
+	var tab scoring.Tabulator
+	var late int64
+	err = s.selectPairs(ctx, se, model, &sel, func(p Pair) bool {
+		if p.Late {
+			late++
+		} else {
+			tab.Add(p.Lead, p.Actual, p.Forecast)
+		}
+		return true
+	})
+	if err != nil {
+		return AccuracyResult{}, err
+	}
+	return AccuracyResult{Series: *se, Table: tab.Table(scale), Late: late}, nil
+}
+
+// seriesModel resolves a series and checks that the model has forecasts
+// for it, so that a mistyped model is NotFound rather than an empty table.
+func (s *Store) seriesModel(ctx context.Context, key, model string) (*Series, error) {
+	se, err := s.seriesByKey(ctx, key)
+	if err != nil {
+		return nil, err
+	}
+	var one int
+	err = s.pool.QueryRow(ctx, "SELECT 1 FROM forecasts WHERE series_id = $1 AND model = $2 LIMIT 1", se.ID, model).Scan(&one)
+	if errors.Is(err, pgx.ErrNoRows) {
+		return nil, fmt.Errorf("no forecasts of model %q for series %q: %w", model, key, ErrNotFound)
+	}
+	if err != nil {
+		return nil, fmt.Errorf("reading forecasts: %w", err)
+	}
+	return se, nil
+}
+
+// Pairs returns one page of the selected pairs (late ones included and
+// flagged) in origin then lead order, and the token of the next page ("" at
+// the end).
+func (s *Store) Pairs(ctx context.Context, key, model string, sel Selection, pageToken string, pageSize int) ([]Pair, string, error) {
+	se, err := s.seriesModel(ctx, key, model)
+	if err != nil {
+		return nil, "", err
+	}
+	if err := s.checkSelection(se, &sel); err != nil {
+		return nil, "", err
+	}
+	if pageSize <= 0 || pageSize > s.limits.MaxPageSize {
+		pageSize = min(1000, s.limits.MaxPageSize)
+	}
+	after, afterLead, err := decodeToken(pageToken)
+	if err != nil {
+		return nil, "", err
+	}
+	var page []Pair
+	more := false
+	fn := func(p Pair) bool {
+		if !after.IsZero() && (p.Origin.Before(after) || p.Origin.Equal(after) && p.Lead <= afterLead) {
+			return true
+		}
+		if len(page) == pageSize {
+			more = true
+			return false
+		}
+		page = append(page, p)
+		return true
+	}
+	if sel.Window == 0 {
+		err = s.walk(ctx, se, model, &sel, false, after, fn)
+	} else {
+		err = s.selectPairs(ctx, se, model, &sel, fn)
+	}
+	if err != nil {
+		return nil, "", err
+	}
+	next := ""
+	if more {
+		last := page[len(page)-1]
+		next = encodeToken(last.Origin, last.Lead)
+	}
+	return page, next, nil
+}
+
+func encodeToken(origin time.Time, lead int) string {
+	b := binary.AppendVarint(nil, origin.UnixNano())
+	b = binary.AppendUvarint(b, uint64(lead))
+	return base64.RawURLEncoding.EncodeToString(b)
+}
+
+func decodeToken(tok string) (time.Time, int, error) {
+	if tok == "" {
+		return time.Time{}, 0, nil
+	}
+	b, err := base64.RawURLEncoding.DecodeString(tok)
+	if err == nil {
+		ns, n := binary.Varint(b)
+		lead, m := binary.Uvarint(b[max(n, 0):])
+		if n > 0 && m > 0 && n+m == len(b) && lead < 1<<20 {
+			return time.Unix(0, ns).UTC(), int(lead), nil
+		}
+	}
+	return time.Time{}, 0, invalid("page_token", "not a token this service issued")
+}

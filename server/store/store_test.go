@@ -1,0 +1,260 @@
+package store_test
+
+import (
+	"context"
+	"errors"
+	"math"
+	"os"
+	"testing"
+	"time"
+
+	"github.com/aftercast/aftercast/scoring"
+	"github.com/aftercast/aftercast/server/store"
+	"github.com/aftercast/aftercast/server/store/storetest"
+)
+
+func TestMain(m *testing.M) { os.Exit(storetest.Main(m)) }
+
+var t0 = time.Date(2026, 1, 1, 0, 0, 0, 0, time.UTC)
+
+func ctxT(t *testing.T) context.Context {
+	ctx, cancel := context.WithTimeout(context.Background(), 2*time.Minute)
+	t.Cleanup(cancel)
+	return ctx
+}
+
+func mustSeries(t *testing.T, s *store.Store, key, step string, horizon int) store.Series {
+	t.Helper()
+	se, _, err := s.CreateSeries(ctxT(t), store.Series{Key: key, Step: step, Horizon: horizon})
+	if err != nil {
+		t.Fatal(err)
+	}
+	return se
+}
+
+func TestCreateSeries(t *testing.T) {
+	t.Parallel()
+	s := storetest.Store(t)
+	ctx := ctxT(t)
+	in := store.Series{Key: "plant-7/heat", Step: "1h", Horizon: 48, Season: 24, Unit: "MW", TimeZone: "Europe/Copenhagen", DecisionLeads: []int{25, 26}}
+	se, created, err := s.CreateSeries(ctx, in)
+	if err != nil || !created || se.ID == 0 {
+		t.Fatalf("create: %+v %v %v", se, created, err)
+	}
+	if _, created, err := s.CreateSeries(ctx, in); err != nil || created {
+		t.Errorf("identical create: created %v err %v; want a no-op", created, err)
+	}
+	other := in
+	other.Horizon = 96
+	if _, _, err := s.CreateSeries(ctx, other); !errors.Is(err, store.ErrConflict) {
+		t.Errorf("different settings: err %v, want ErrConflict", err)
+	}
+	got, err := s.GetSeries(ctx, "plant-7/heat")
+	if err != nil || got.Unit != "MW" || got.TimeZone != "Europe/Copenhagen" || len(got.DecisionLeads) != 2 {
+		t.Errorf("get: %+v %v", got, err)
+	}
+	if _, err := s.GetSeries(ctx, "nope"); !errors.Is(err, store.ErrNotFound) {
+		t.Errorf("get unknown: %v", err)
+	}
+	bad := store.Series{Key: "bad key!", Step: "7x", Horizon: 0, TimeZone: "Mars/Olympus", DecisionLeads: []int{99}}
+	_, _, err = s.CreateSeries(ctx, bad)
+	var inv *store.InvalidError
+	if !errors.As(err, &inv) {
+		t.Fatalf("invalid create: %v", err)
+	}
+	fields := map[string]bool{}
+	for _, v := range inv.Violations {
+		fields[v.Field] = true
+	}
+	for _, f := range []string{"key", "step", "horizon", "time_zone", "decision_leads"} {
+		if !fields[f] {
+			t.Errorf("invalid create: no violation for %s in %v", f, inv.Violations)
+		}
+	}
+	list, err := s.ListSeries(ctx, "", 10)
+	if err != nil || len(list) != 1 {
+		t.Errorf("list: %v %v", list, err)
+	}
+}
+
+// The worked example of method.md §2, pushed as lead 1 of three hourly
+// origins, actuals first for one of them and after for the others.
+func TestWorkedExampleThroughStore(t *testing.T) {
+	t.Parallel()
+	s := storetest.Store(t)
+	ctx := ctxT(t)
+	mustSeries(t, s, "p", "1h", 24)
+	h := time.Hour
+	if _, err := s.WriteActuals(ctx, []store.Actual{{Series: "p", Time: t0.Add(3 * h), Value: 5}}, 0); err != nil {
+		t.Fatal(err)
+	}
+	ack, err := s.WriteForecasts(ctx, []store.ForecastVector{
+		{Series: "p", Model: "m", Origin: t0, Values: []float64{8}},
+		{Series: "p", Model: "m", Origin: t0.Add(h), Values: []float64{1}},
+		{Series: "p", Model: "m", Origin: t0.Add(2 * h), Values: []float64{5}},
+	}, 0)
+	if err != nil {
+		t.Fatal(err)
+	}
+	// The third forecast reached us after its actual: stored, not scored.
+	if ack.Accepted != 2 || ack.Late != 1 {
+		t.Fatalf("ack %+v, want 2 accepted 1 late", ack)
+	}
+	if _, err := s.WriteActuals(ctx, []store.Actual{{Series: "p", Time: t0.Add(h), Value: 10}, {Series: "p", Time: t0.Add(2 * h), Value: 0}}, 0); err != nil {
+		t.Fatal(err)
+	}
+	res, err := s.Accuracy(ctx, "p", "m", store.Selection{}, math.NaN())
+	if err != nil {
+		t.Fatal(err)
+	}
+	if res.Late != 1 || res.Table.Overall.N != 2 {
+		t.Fatalf("late %d n %d, want 1 and 2", res.Late, res.Table.Overall.N)
+	}
+	// In a fresh series, forecasts first and actuals after: all three score
+	// and give the worked example, MASE 0.6 with the example's scale 5/3.
+	mustSeries(t, s, "q", "1h", 24)
+	if _, err := s.WriteForecasts(ctx, []store.ForecastVector{
+		{Series: "q", Model: "m", Origin: t0, Values: []float64{8}},
+		{Series: "q", Model: "m", Origin: t0.Add(h), Values: []float64{1}},
+		{Series: "q", Model: "m", Origin: t0.Add(2 * h), Values: []float64{5}},
+	}, 0); err != nil {
+		t.Fatal(err)
+	}
+	if _, err := s.WriteActuals(ctx, []store.Actual{{Series: "q", Time: t0.Add(h), Value: 10}, {Series: "q", Time: t0.Add(2 * h), Value: 0}, {Series: "q", Time: t0.Add(3 * h), Value: 5}}, 0); err != nil {
+		t.Fatal(err)
+	}
+	res, err = s.Accuracy(ctx, "q", "m", store.Selection{}, 5.0/3)
+	if err != nil {
+		t.Fatal(err)
+	}
+	m := res.Table.Overall
+	if res.Late != 0 || m.N != 3 || m.MAE != 1 || m.MAPE != 10 || m.MAPEExcluded != 1 || m.WAPE != 20 ||
+		math.Abs(m.SMAPE-74.07407407407408) > 1e-12 || math.Abs(m.MASE-0.6) > 1e-12 || math.Abs(m.RMSE-1.2909944487358056) > 1e-15 {
+		t.Errorf("worked example through the store: %+v late %d", m, res.Late)
+	}
+	if _, err := s.Accuracy(ctx, "p", "typo", store.Selection{}, math.NaN()); !errors.Is(err, store.ErrNotFound) {
+		t.Errorf("unknown model: %v, want ErrNotFound", err)
+	}
+}
+
+func TestRejections(t *testing.T) {
+	t.Parallel()
+	s := storetest.Store(t)
+	ctx := ctxT(t)
+	mustSeries(t, s, "p", "1h", 3)
+	ack, err := s.WriteForecasts(ctx, []store.ForecastVector{
+		{Series: "p", Model: "m", Origin: t0, Values: []float64{1, 2, 3, 4}},                    // lead 4 beyond H
+		{Series: "nope", Model: "m", Origin: t0, Values: []float64{1}},                          // unknown series
+		{Series: "p", Model: "", Origin: t0, Values: []float64{1}},                              // no model
+		{Series: "p", Model: "m", Origin: t0.Add(time.Hour), Values: []float64{math.Inf(1), 2}}, // Inf at lead 1
+	}, 10)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if ack.Accepted != 4 || ack.Rejected != 4 {
+		t.Errorf("ack %+v, want 4 accepted 4 rejected", ack)
+	}
+	want := map[[2]int]string{{10, 4}: "values", {11, 0}: "series", {12, 0}: "model", {13, 1}: "values"}
+	for _, r := range ack.Rejections {
+		if want[[2]int{r.Index, r.Lead}] != r.Field {
+			t.Errorf("unexpected rejection %+v", r)
+		}
+		delete(want, [2]int{r.Index, r.Lead})
+	}
+	if len(want) > 0 {
+		t.Errorf("missing rejections %v", want)
+	}
+	aack, err := s.WriteActuals(ctx, []store.Actual{{Series: "p", Time: t0, Value: math.NaN()}, {Series: "x", Time: t0, Value: 1}}, 0)
+	if err != nil || aack.Rejected != 2 || len(aack.Rejections) != 2 {
+		t.Errorf("actuals ack %+v err %v", aack, err)
+	}
+	var inv *store.InvalidError
+	big := make([]store.Actual, store.DefaultLimits.MaxBatch+1)
+	if _, err := s.WriteActuals(ctx, big, 0); !errors.As(err, &inv) {
+		t.Errorf("oversized batch: %v, want InvalidError", err)
+	}
+}
+
+// Re-issues replace values only for targets whose actual is unknown;
+// revisions re-score; repeats are duplicates.
+func TestReissueAndRevision(t *testing.T) {
+	t.Parallel()
+	s := storetest.Store(t)
+	ctx := ctxT(t)
+	mustSeries(t, s, "p", "1h", 3)
+	h := time.Hour
+	write := func(v store.ForecastVector) store.Ack {
+		t.Helper()
+		ack, err := s.WriteForecasts(ctx, []store.ForecastVector{v}, 0)
+		if err != nil {
+			t.Fatal(err)
+		}
+		return ack
+	}
+	act := func(at time.Time, v float64) store.Ack {
+		t.Helper()
+		ack, err := s.WriteActuals(ctx, []store.Actual{{Series: "p", Time: at, Value: v}}, 0)
+		if err != nil {
+			t.Fatal(err)
+		}
+		return ack
+	}
+	if a := write(store.ForecastVector{Series: "p", Model: "m", Origin: t0, Values: []float64{10, 20, 30}}); a.Accepted != 3 {
+		t.Fatalf("first push %+v", a)
+	}
+	if a := write(store.ForecastVector{Series: "p", Model: "m", Origin: t0, Values: []float64{10, 20, 30}}); a.Duplicate != 3 {
+		t.Fatalf("repeat %+v, want 3 duplicates", a)
+	}
+	if a := act(t0.Add(h), 12); a.Accepted != 1 {
+		t.Fatalf("actual %+v", a)
+	}
+	// Re-issue: lead 1's actual is known, so 11 is not applied (late); leads 2, 3 change.
+	if a := write(store.ForecastVector{Series: "p", Model: "m", Origin: t0, Values: []float64{11, 21, 30}}); a.Late != 1 || a.Accepted != 1 || a.Duplicate != 1 {
+		t.Fatalf("re-issue %+v, want 1 late 1 accepted 1 duplicate", a)
+	}
+	act(t0.Add(2*h), 25)
+	if a := act(t0.Add(2*h), 25); a.Duplicate != 1 {
+		t.Fatalf("repeated actual %+v", a)
+	}
+	if a := act(t0.Add(2*h), 19); a.Revised != 1 {
+		t.Fatalf("revised actual %+v", a)
+	}
+	res, err := s.Accuracy(ctx, "p", "m", store.Selection{}, math.NaN())
+	if err != nil {
+		t.Fatal(err)
+	}
+	// Pairs: lead 1 (12, 10) e=2; lead 2 (19, 21) e=-2.
+	want := scoring.Tabulate([]scoring.Pair{{Lead: 1, Actual: 12, Forecast: 10}, {Lead: 2, Actual: 19, Forecast: 21}}, math.NaN())
+	if !sameTable(res.Table, want) {
+		t.Errorf("table %+v, want %+v", res.Table, want)
+	}
+	pairs, next, err := s.Pairs(ctx, "p", "m", store.Selection{}, "", 1)
+	if err != nil || len(pairs) != 1 || next == "" || pairs[0].Lead != 1 {
+		t.Fatalf("page 1: %+v %q %v", pairs, next, err)
+	}
+	pairs, next, err = s.Pairs(ctx, "p", "m", store.Selection{}, next, 1)
+	if err != nil || len(pairs) != 1 || next != "" || pairs[0].Lead != 2 || pairs[0].Actual != 19 {
+		t.Fatalf("page 2: %+v %q %v", pairs, next, err)
+	}
+	if _, _, err := s.Pairs(ctx, "p", "m", store.Selection{}, "garbage!", 1); err == nil {
+		t.Error("bad page token accepted")
+	}
+}
+
+// sameTable compares tables exactly, NaN equal to NaN.
+func sameTable(a, b scoring.Table) bool {
+	eq := func(x, y scoring.Metrics) bool {
+		f := func(p, q float64) bool { return p == q || math.IsNaN(p) && math.IsNaN(q) }
+		return x.N == y.N && x.MAPEExcluded == y.MAPEExcluded && x.SMAPEExcluded == y.SMAPEExcluded &&
+			f(x.ME, y.ME) && f(x.MAE, y.MAE) && f(x.RMSE, y.RMSE) && f(x.MAPE, y.MAPE) && f(x.SMAPE, y.SMAPE) && f(x.WAPE, y.WAPE) && f(x.MASE, y.MASE)
+	}
+	if len(a.Leads) != len(b.Leads) || !eq(a.Overall, b.Overall) {
+		return false
+	}
+	for i := range a.Leads {
+		if a.Leads[i].Lead != b.Leads[i].Lead || !eq(a.Leads[i].Metrics, b.Leads[i].Metrics) {
+			return false
+		}
+	}
+	return true
+}
