@@ -23,6 +23,12 @@ var errUsage = errors.New("usage")
 
 func commands() []command {
 	return []command{
+		{"serve", "run the aftercast service (gRPC, /metrics, health)", runServe},
+		{"migrate", "apply the database schema migrations and exit", runMigrate},
+		{"series", "create, get or list series (client)", runSeries},
+		{"push", "push forecasts or actuals from a CSV file (client)", runPush},
+		{"accuracy", "per-lead accuracy of a series and model (client)", runAccuracy},
+		{"pairs", "export the scored pairs of a series and model (client)", runPairs},
 		{"evaluate", "score a CSV of forecasts and actuals offline, per lead", runEvaluate},
 	}
 }
