@@ -276,7 +276,8 @@ func (s *Store) selectPairs(ctx context.Context, se *Series, model string, sel *
 type AccuracyResult struct {
 	Series Series
 	Table  scoring.Table
-	Late   int64 // pairs excluded by the hindsight guard
+	Late   int64         // pairs excluded by the hindsight guard
+	LateBy map[int]int64 // the same, per lead
 }
 
 // Accuracy scores the selected pairs of (series, model) per lead and
@@ -291,9 +292,11 @@ func (s *Store) Accuracy(ctx context.Context, key, model string, sel Selection, 
 	}
 	var tab scoring.Tabulator
 	var late int64
+	lateBy := map[int]int64{}
 	err = s.selectPairs(ctx, se, model, &sel, func(p Pair) bool {
 		if p.Late {
 			late++
+			lateBy[p.Lead]++
 		} else {
 			tab.Add(p.Lead, p.Actual, p.Forecast)
 		}
@@ -302,7 +305,7 @@ func (s *Store) Accuracy(ctx context.Context, key, model string, sel Selection, 
 	if err != nil {
 		return AccuracyResult{}, err
 	}
-	return AccuracyResult{Series: *se, Table: tab.Table(scale), Late: late}, nil
+	return AccuracyResult{Series: *se, Table: tab.Table(scale), Late: late, LateBy: lateBy}, nil
 }
 
 // seriesModel resolves a series and checks that the model has forecasts

@@ -1,0 +1,87 @@
+package server
+
+import (
+	"context"
+	"math"
+
+	"google.golang.org/protobuf/types/known/timestamppb"
+
+	aftercastv1 "github.com/aftercast/aftercast/api/aftercast/v1"
+	"github.com/aftercast/aftercast/scoring"
+	"github.com/aftercast/aftercast/server/store"
+)
+
+type accuracyService struct {
+	*api
+	aftercastv1.UnimplementedAccuracyServiceServer
+}
+
+func toSelection(p *aftercastv1.PairSelection) store.Selection {
+	var sel store.Selection
+	if r := p.GetOriginRange(); r != nil {
+		if r.GetStartTime() != nil {
+			sel.OriginFrom = r.GetStartTime().AsTime()
+		}
+		if r.GetEndTime() != nil {
+			sel.OriginTo = r.GetEndTime().AsTime()
+		}
+	}
+	if r := p.GetTargetRange(); r != nil {
+		if r.GetStartTime() != nil {
+			sel.TargetFrom = r.GetStartTime().AsTime()
+		}
+		if r.GetEndTime() != nil {
+			sel.TargetTo = r.GetEndTime().AsTime()
+		}
+	}
+	for _, h := range p.GetLeads() {
+		sel.Leads = append(sel.Leads, int(h))
+	}
+	sel.Window = int(p.GetWindowOrigins())
+	return sel
+}
+
+func optional(x float64) *float64 {
+	if math.IsNaN(x) {
+		return nil
+	}
+	return &x
+}
+
+func metricsToProto(m scoring.Metrics) *aftercastv1.AccuracyMetrics {
+	return &aftercastv1.AccuracyMetrics{N: m.N, Me: optional(m.ME), Mae: optional(m.MAE), Rmse: optional(m.RMSE),
+		Mape: optional(m.MAPE), MapeExcluded: m.MAPEExcluded, Smape: optional(m.SMAPE), SmapeExcluded: m.SMAPEExcluded,
+		Wape: optional(m.WAPE), Mase: optional(m.MASE)}
+}
+
+func (s *accuracyService) GetAccuracy(ctx context.Context, req *aftercastv1.GetAccuracyRequest) (*aftercastv1.GetAccuracyResponse, error) {
+	// The MASE scale comes from a baseline's training actuals; until one is
+	// imported MASE is null.
+	res, err := s.store.Accuracy(ctx, req.GetSeries(), req.GetModel(), toSelection(req.GetSelection()), math.NaN())
+	if err != nil {
+		return nil, s.status(ctx, err)
+	}
+	out := &aftercastv1.GetAccuracyResponse{Series: res.Series.Key, Model: req.GetModel(), Step: res.Series.Step,
+		Overall: metricsToProto(res.Table.Overall), OverallLateCount: res.Late}
+	for _, l := range res.Table.Leads {
+		out.Leads = append(out.Leads, &aftercastv1.LeadAccuracy{Lead: int32(l.Lead), Metrics: metricsToProto(l.Metrics), LateCount: res.LateBy[l.Lead]})
+	}
+	return out, nil
+}
+
+func (s *accuracyService) ListPairs(ctx context.Context, req *aftercastv1.ListPairsRequest) (*aftercastv1.ListPairsResponse, error) {
+	if req.GetPageSize() < 0 {
+		return nil, invalidArg("page_size", "must not be negative")
+	}
+	pairs, next, err := s.store.Pairs(ctx, req.GetSeries(), req.GetModel(), toSelection(req.GetSelection()), req.GetPageToken(), int(req.GetPageSize()))
+	if err != nil {
+		return nil, s.status(ctx, err)
+	}
+	out := &aftercastv1.ListPairsResponse{NextPageToken: next, Pairs: make([]*aftercastv1.Pair, len(pairs))}
+	for i, p := range pairs {
+		out.Pairs[i] = &aftercastv1.Pair{OriginTime: timestamppb.New(p.Origin), TargetTime: timestamppb.New(p.Target), Lead: int32(p.Lead),
+			Forecast: p.Forecast, Actual: p.Actual, Error: p.Actual - p.Forecast, Late: p.Late,
+			ForecastReceiveTime: timestamppb.New(p.ForecastReceivedAt), ActualFirstReceiveTime: timestamppb.New(p.ActualFirstReceived)}
+	}
+	return out, nil
+}

@@ -1,0 +1,73 @@
+package server
+
+import (
+	"context"
+	"net/http"
+	"os"
+	"path/filepath"
+	"sync"
+	"time"
+
+	"github.com/prometheus/client_golang/prometheus/promhttp"
+)
+
+// httpHandler serves /metrics, /healthz (the process is up) and /readyz
+// (the database answers).
+func (s *Server) httpHandler() http.Handler {
+	mux := http.NewServeMux()
+	mux.Handle("GET /metrics", promhttp.HandlerFor(s.cfg.Registry, promhttp.HandlerOpts{ErrorLog: slogPrinter{s}}))
+	mux.HandleFunc("GET /healthz", func(w http.ResponseWriter, _ *http.Request) {
+		w.Write([]byte("ok\n"))
+	})
+	ready := &readiness{srv: s}
+	mux.HandleFunc("GET /readyz", func(w http.ResponseWriter, r *http.Request) {
+		if err := ready.check(r.Context()); err != nil {
+			http.Error(w, "database unavailable", http.StatusServiceUnavailable)
+			return
+		}
+		w.Write([]byte("ok\n"))
+	})
+	return mux
+}
+
+type slogPrinter struct{ s *Server }
+
+func (p slogPrinter) Println(v ...any) { p.s.log.Error("metrics exposition", "err", v) }
+
+// readiness caches the database ping for a second, so that a probe storm
+// does not become a query storm.
+type readiness struct {
+	srv  *Server
+	mu   sync.Mutex
+	at   time.Time
+	last error
+}
+
+func (r *readiness) check(ctx context.Context) error {
+	r.mu.Lock()
+	defer r.mu.Unlock()
+	if time.Since(r.at) < time.Second {
+		return r.last
+	}
+	ctx, cancel := context.WithTimeout(ctx, 2*time.Second)
+	defer cancel()
+	r.last, r.at = r.srv.pool.Ping(ctx), time.Now()
+	return r.last
+}
+
+// stateDir is $XDG_STATE_HOME, else ~/.local/state; for root it is
+// /var/lib, because the private cluster runs as the postgres user, which
+// cannot reach into /root.
+func stateDir() (string, error) {
+	if os.Geteuid() == 0 {
+		return "/var/lib", nil
+	}
+	if d := os.Getenv("XDG_STATE_HOME"); d != "" {
+		return d, nil
+	}
+	home, err := os.UserHomeDir()
+	if err != nil {
+		return "", err
+	}
+	return filepath.Join(home, ".local", "state"), nil
+}

@@ -1,0 +1,186 @@
+package server
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"io"
+	"math"
+
+	aftercastv1 "github.com/aftercast/aftercast/api/aftercast/v1"
+	"github.com/aftercast/aftercast/server/store"
+)
+
+// maxRejectionsListed bounds the rejections returned in one
+// acknowledgement; the counts stay exact.
+const maxRejectionsListed = 1000
+
+type forecastService struct {
+	*api
+	aftercastv1.UnimplementedForecastServiceServer
+}
+
+// toVectors converts a batch. Values the store cannot represent (NaN in a
+// dense list, sparse leads out of range or repeated) are rejected here, with
+// the same index and lead conventions as the store's rejections.
+func (a *api) toVectors(fs []*aftercastv1.Forecast, first int) ([]store.ForecastVector, store.Ack) {
+	var ack store.Ack
+	maxH := a.store.Limits().MaxHorizon
+	out := make([]store.ForecastVector, len(fs))
+	reject := func(i, lead int, field, reason string) {
+		ack.Rejected++
+		ack.Rejections = append(ack.Rejections, store.Rejection{Index: first + i, Lead: lead, Field: field, Reason: reason})
+	}
+	for i, f := range fs {
+		v := store.ForecastVector{Series: f.GetSeries(), Model: f.GetModel()}
+		if f.GetOriginTime() != nil {
+			v.Origin = f.GetOriginTime().AsTime()
+		}
+		if f.GetIssueTime() != nil {
+			v.IssuedAt = f.GetIssueTime().AsTime()
+		}
+		switch {
+		case f.GetDense() != nil:
+			v.Values = append([]float64(nil), f.GetDense().GetValues()...)
+			for h, x := range v.Values {
+				if math.IsNaN(x) {
+					reject(i, h+1, "dense.values", "NaN is not a forecast: leave the lead out with sparse values instead")
+				}
+			}
+		case f.GetSparse() != nil:
+			for _, p := range f.GetSparse().GetPoints() {
+				h := int(p.GetLead())
+				switch {
+				case h < 1 || h > maxH:
+					reject(i, h, "sparse.points.lead", fmt.Sprintf("lead must be 1..%d", maxH))
+					continue
+				case math.IsNaN(p.GetValue()):
+					reject(i, h, "sparse.points.value", "NaN is not a forecast")
+					continue
+				}
+				for len(v.Values) < h {
+					v.Values = append(v.Values, math.NaN())
+				}
+				if !math.IsNaN(v.Values[h-1]) {
+					reject(i, h, "sparse.points.lead", "lead appears twice in one vector")
+					continue
+				}
+				v.Values[h-1] = p.GetValue()
+			}
+		}
+		for _, q := range f.GetQuantiles() {
+			v.Quantiles = append(v.Quantiles, store.Quantile{Level: q.GetLevel(), Values: q.GetValues()})
+		}
+		out[i] = v
+	}
+	return out, ack
+}
+
+func (a *api) writeForecasts(ctx context.Context, fs []*aftercastv1.Forecast, first int) (store.Ack, error) {
+	vs, ack := a.toVectors(fs, first)
+	stored, err := a.store.WriteForecasts(ctx, vs, first)
+	ack.Add(stored)
+	return ack, err
+}
+
+func forecastSummary(ack store.Ack) *aftercastv1.ForecastPushSummary {
+	s := &aftercastv1.ForecastPushSummary{Accepted: ack.Accepted, Duplicate: ack.Duplicate, Late: ack.Late, Rejected: ack.Rejected}
+	for i, r := range ack.Rejections {
+		if i == maxRejectionsListed {
+			s.RejectionsTruncated = true
+			break
+		}
+		s.Rejections = append(s.Rejections, &aftercastv1.ForecastRejection{Index: int64(r.Index), Lead: int32(r.Lead), Field: r.Field, Reason: r.Reason})
+	}
+	return s
+}
+
+func (s *forecastService) PushForecasts(ctx context.Context, req *aftercastv1.PushForecastsRequest) (*aftercastv1.PushForecastsResponse, error) {
+	ack, err := s.writeForecasts(ctx, req.GetForecasts(), 0)
+	if err != nil {
+		return nil, s.status(ctx, err)
+	}
+	return &aftercastv1.PushForecastsResponse{Summary: forecastSummary(ack)}, nil
+}
+
+// StreamForecasts commits each message's batch before reading the next,
+// and answers once at the end; a stream broken midway leaves the committed
+// batches, and a whole re-push counts them as duplicates.
+func (s *forecastService) StreamForecasts(stream aftercastv1.ForecastService_StreamForecastsServer) error {
+	ctx := stream.Context()
+	var total store.Ack
+	n := 0
+	for {
+		req, err := stream.Recv()
+		if errors.Is(err, io.EOF) {
+			return stream.SendAndClose(&aftercastv1.StreamForecastsResponse{Summary: forecastSummary(total)})
+		}
+		if err != nil {
+			return err
+		}
+		ack, err := s.writeForecasts(ctx, req.GetForecasts(), n)
+		if err != nil {
+			return s.status(ctx, err)
+		}
+		total.Add(ack)
+		n += len(req.GetForecasts())
+	}
+}
+
+type actualService struct {
+	*api
+	aftercastv1.UnimplementedActualServiceServer
+}
+
+func toActuals(as []*aftercastv1.Actual) []store.Actual {
+	out := make([]store.Actual, len(as))
+	for i, a := range as {
+		out[i] = store.Actual{Series: a.GetSeries(), Value: a.GetValue()}
+		if a.GetTime() != nil {
+			out[i].Time = a.GetTime().AsTime()
+		}
+	}
+	return out
+}
+
+func actualSummary(ack store.Ack) *aftercastv1.ActualPushSummary {
+	s := &aftercastv1.ActualPushSummary{Accepted: ack.Accepted, Duplicate: ack.Duplicate, Revised: ack.Revised, Rejected: ack.Rejected}
+	for i, r := range ack.Rejections {
+		if i == maxRejectionsListed {
+			s.RejectionsTruncated = true
+			break
+		}
+		s.Rejections = append(s.Rejections, &aftercastv1.ActualRejection{Index: int64(r.Index), Field: r.Field, Reason: r.Reason})
+	}
+	return s
+}
+
+func (s *actualService) PushActuals(ctx context.Context, req *aftercastv1.PushActualsRequest) (*aftercastv1.PushActualsResponse, error) {
+	ack, err := s.store.WriteActuals(ctx, toActuals(req.GetActuals()), 0)
+	if err != nil {
+		return nil, s.status(ctx, err)
+	}
+	return &aftercastv1.PushActualsResponse{Summary: actualSummary(ack)}, nil
+}
+
+// StreamActuals: same commit-per-message semantics as StreamForecasts.
+func (s *actualService) StreamActuals(stream aftercastv1.ActualService_StreamActualsServer) error {
+	ctx := stream.Context()
+	var total store.Ack
+	n := 0
+	for {
+		req, err := stream.Recv()
+		if errors.Is(err, io.EOF) {
+			return stream.SendAndClose(&aftercastv1.StreamActualsResponse{Summary: actualSummary(total)})
+		}
+		if err != nil {
+			return err
+		}
+		ack, err := s.store.WriteActuals(ctx, toActuals(req.GetActuals()), n)
+		if err != nil {
+			return s.status(ctx, err)
+		}
+		total.Add(ack)
+		n += len(req.GetActuals())
+	}
+}

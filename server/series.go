@@ -1,0 +1,113 @@
+package server
+
+import (
+	"context"
+	"log/slog"
+	"strings"
+
+	"google.golang.org/protobuf/types/known/timestamppb"
+
+	aftercastv1 "github.com/aftercast/aftercast/api/aftercast/v1"
+	"github.com/aftercast/aftercast/server/store"
+)
+
+// api holds what every service implementation shares.
+type api struct {
+	store *store.Store
+	log   *slog.Logger
+}
+
+func (a *api) status(ctx context.Context, err error) error { return toStatus(ctx, a.log, err) }
+
+type seriesService struct {
+	*api
+	aftercastv1.UnimplementedSeriesServiceServer
+}
+
+func seriesToProto(s store.Series) *aftercastv1.Series {
+	leads := make([]int32, len(s.DecisionLeads))
+	for i, h := range s.DecisionLeads {
+		leads[i] = int32(h)
+	}
+	return &aftercastv1.Series{Key: s.Key, Step: s.Step, Horizon: int32(s.Horizon), Season: int32(s.Season),
+		Unit: s.Unit, TimeZone: s.TimeZone, DecisionLeads: leads, CreateTime: timestamppb.New(s.CreatedAt)}
+}
+
+func (s *seriesService) CreateSeries(ctx context.Context, req *aftercastv1.CreateSeriesRequest) (*aftercastv1.CreateSeriesResponse, error) {
+	p := req.GetSeries()
+	if p == nil {
+		return nil, invalidArg("series", "missing")
+	}
+	leads := make([]int, len(p.GetDecisionLeads()))
+	for i, h := range p.GetDecisionLeads() {
+		leads[i] = int(h)
+	}
+	se, created, err := s.store.CreateSeries(ctx, store.Series{Key: p.GetKey(), Step: p.GetStep(), Horizon: int(p.GetHorizon()),
+		Season: int(p.GetSeason()), Unit: p.GetUnit(), TimeZone: p.GetTimeZone(), DecisionLeads: leads})
+	if err != nil {
+		return nil, s.status(ctx, err)
+	}
+	return &aftercastv1.CreateSeriesResponse{Series: seriesToProto(se), Created: created}, nil
+}
+
+func (s *seriesService) GetSeries(ctx context.Context, req *aftercastv1.GetSeriesRequest) (*aftercastv1.GetSeriesResponse, error) {
+	se, err := s.store.GetSeries(ctx, req.GetKey())
+	if err != nil {
+		return nil, s.status(ctx, err)
+	}
+	return &aftercastv1.GetSeriesResponse{Series: seriesToProto(se)}, nil
+}
+
+// ListSeries pages by key; the page token is the last key of the page.
+func (s *seriesService) ListSeries(ctx context.Context, req *aftercastv1.ListSeriesRequest) (*aftercastv1.ListSeriesResponse, error) {
+	size := int(req.GetPageSize())
+	switch {
+	case size < 0:
+		return nil, invalidArg("page_size", "must not be negative")
+	case size == 0:
+		size = 100
+	case size > 1000:
+		size = 1000
+	}
+	after := req.GetPageToken()
+	if after != "" && !store.ValidKey(after) {
+		return nil, invalidArg("page_token", "not a token this service issued")
+	}
+	prefix := req.GetKeyPrefix()
+	if after < prefix {
+		after = prefix
+	}
+	var out []*aftercastv1.Series
+	next := ""
+	for len(out) < size {
+		list, err := s.store.ListSeries(ctx, after, size+1-len(out))
+		if err != nil {
+			return nil, s.status(ctx, err)
+		}
+		for _, se := range list {
+			if !strings.HasPrefix(se.Key, prefix) {
+				return &aftercastv1.ListSeriesResponse{Series: out}, nil
+			}
+			if len(out) == size {
+				next = out[len(out)-1].GetKey()
+				break
+			}
+			out = append(out, seriesToProto(se))
+		}
+		if next != "" || len(list) == 0 {
+			break
+		}
+		after = list[len(list)-1].Key
+	}
+	// The prefix itself may be a key: ListSeries starts after its argument.
+	if req.GetPageToken() == "" && prefix != "" {
+		if se, err := s.store.GetSeries(ctx, prefix); err == nil && (len(out) == 0 || out[0].GetKey() != prefix) {
+			out = append([]*aftercastv1.Series{seriesToProto(se)}, out...)
+			if len(out) > size {
+				out = out[:size]
+				next = out[size-1].GetKey()
+			}
+		}
+	}
+	return &aftercastv1.ListSeriesResponse{Series: out, NextPageToken: next}, nil
+}
