@@ -138,8 +138,11 @@ func (s *Store) WriteForecasts(ctx context.Context, vs []ForecastVector, firstIn
 			reject(i, 0, "model", "want 1–200 characters of A-Z a-z 0-9 _ . : / -")
 		case v.Origin.IsZero():
 			reject(i, 0, "origin", "missing")
-		case n == 0:
+		case len(v.Values) == 0:
 			reject(i, 0, "values", "no forecast values")
+		case n == 0:
+			// Every lead was rejected already (by the caller's conversion).
+			continue
 		case !validQuantiles(v):
 			reject(i, 0, "quantiles", "each level must lie in (0, 1), once, with one value per lead of the vector")
 		default:
