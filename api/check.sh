@@ -40,6 +40,18 @@ if ! diff -r "$root/api" "$tmp/api"; then
 	status=1
 fi
 
+# Once a v1 exists, nothing may break it: compare with the previous commit
+# (skipped when history is too shallow or the previous commit had no API).
+prev="$(git -C "$root" rev-parse -q --verify 'HEAD~1^{commit}' 2>/dev/null || true)"
+if [[ -n "$prev" ]] && git -C "$root" cat-file -e "$prev:buf.yaml" 2>/dev/null; then
+	if ! buf breaking --against "$root/.git#ref=$prev"; then
+		echo "api/check.sh: the API breaks compatibility with $prev" >&2
+		status=1
+	fi
+else
+	echo "api/check.sh: no previous API commit to check breaking changes against"
+fi
+
 if [[ "$status" -eq 0 ]]; then
 	echo "api/check.sh: protos formatted, lint clean, generated code up to date"
 fi
