@@ -43,6 +43,10 @@ type Config struct {
 	DataDir     string // for the private cluster; default under the user's state directory
 	SkipMigrate bool   // do not apply migrations at start (run `aftercast migrate` instead)
 
+	// Retention deletes forecasts and actuals older than this, checked
+	// hourly. Zero keeps everything.
+	Retention time.Duration
+
 	Limits          store.Limits
 	MaxMessageBytes int           // largest gRPC message received; default 16 MiB
 	ShutdownTimeout time.Duration // bound on draining RPCs at stop; default 10s
@@ -87,6 +91,8 @@ type Server struct {
 	httpLis  net.Listener
 	serveErr chan error
 	stopOnce sync.Once
+	bg       sync.WaitGroup
+	bgStop   context.CancelFunc
 }
 
 // New validates cfg and returns a Server that Start will bring up.
@@ -170,8 +176,38 @@ func (s *Server) Start(ctx context.Context) (err error) {
 			}
 		}()
 	}
+	bgCtx, cancel := context.WithCancel(context.WithoutCancel(ctx))
+	s.bgStop = cancel
+	if s.cfg.Retention > 0 {
+		s.bg.Go(func() { s.retain(bgCtx) })
+	}
 	s.log.Info("aftercast serving", "grpc", s.GRPCAddr(), "metrics", s.MetricsAddr())
 	return nil
+}
+
+// retain applies the retention setting now and then every hour.
+func (s *Server) retain(ctx context.Context) {
+	tick := time.NewTicker(time.Hour)
+	defer tick.Stop()
+	for {
+		cutoff := time.Now().Add(-s.cfg.Retention)
+		runCtx, cancel := context.WithTimeout(ctx, 30*time.Minute)
+		f, a, err := s.store.DeleteBefore(runCtx, cutoff)
+		cancel()
+		switch {
+		case ctx.Err() != nil:
+			return
+		case err != nil:
+			s.log.Error("retention", "err", err)
+		case f+a > 0:
+			s.log.Info("retention removed old inputs", "before", cutoff, "forecasts", f, "actuals", a)
+		}
+		select {
+		case <-ctx.Done():
+			return
+		case <-tick.C:
+		}
+	}
 }
 
 func (s *Server) newGRPC() *grpc.Server {
@@ -258,6 +294,10 @@ func (s *Server) Stop(ctx context.Context) error {
 	s.stopOnce.Do(func() {
 		if s.health != nil {
 			s.health.Shutdown()
+		}
+		if s.bgStop != nil {
+			s.bgStop()
+			s.bg.Wait()
 		}
 		if s.grpc != nil {
 			t := time.AfterFunc(s.cfg.ShutdownTimeout, s.grpc.Stop)

@@ -13,6 +13,7 @@ import (
 	"fmt"
 	"strings"
 	"sync"
+	"time"
 
 	"github.com/jackc/pgx/v5"
 	"github.com/jackc/pgx/v5/pgxpool"
@@ -113,4 +114,29 @@ func (s *Store) inTx(ctx context.Context, f func(pgx.Tx) error) error {
 		return fmt.Errorf("committing: %w", err)
 	}
 	return nil
+}
+
+// DeleteBefore removes forecasts whose origin and actuals whose time are
+// before cutoff (the retention setting), in slices so that no single
+// statement holds locks for long. It returns how many rows went.
+func (s *Store) DeleteBefore(ctx context.Context, cutoff time.Time) (forecasts, actuals int64, err error) {
+	for _, q := range []struct {
+		n   *int64
+		sql string
+	}{
+		{&forecasts, `DELETE FROM forecasts WHERE ctid = ANY(ARRAY(SELECT ctid FROM forecasts WHERE origin < $1 LIMIT 10000))`},
+		{&actuals, `DELETE FROM actuals WHERE ctid = ANY(ARRAY(SELECT ctid FROM actuals WHERE time < $1 LIMIT 10000))`},
+	} {
+		for {
+			tag, err := s.pool.Exec(ctx, q.sql, cutoff)
+			if err != nil {
+				return forecasts, actuals, fmt.Errorf("applying retention: %w", err)
+			}
+			*q.n += tag.RowsAffected()
+			if tag.RowsAffected() < 10000 {
+				break
+			}
+		}
+	}
+	return forecasts, actuals, nil
 }

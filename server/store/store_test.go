@@ -258,3 +258,32 @@ func sameTable(a, b scoring.Table) bool {
 	}
 	return true
 }
+
+func TestDeleteBefore(t *testing.T) {
+	t.Parallel()
+	s := storetest.Store(t)
+	ctx := ctxT(t)
+	mustSeries(t, s, "p", "1h", 2)
+	for k := range 5 {
+		o := t0.Add(time.Duration(k) * time.Hour)
+		if _, err := s.WriteForecasts(ctx, []store.ForecastVector{{Series: "p", Model: "m", Origin: o, Values: []float64{1, 2}}}, 0); err != nil {
+			t.Fatal(err)
+		}
+		if _, err := s.WriteActuals(ctx, []store.Actual{{Series: "p", Time: o, Value: 1}}, 0); err != nil {
+			t.Fatal(err)
+		}
+	}
+	f, a, err := s.DeleteBefore(ctx, t0.Add(2*time.Hour))
+	if err != nil || f != 2 || a != 2 {
+		t.Fatalf("deleted %d forecasts %d actuals (%v), want 2 and 2", f, a, err)
+	}
+	pairs, _, err := s.Pairs(ctx, "p", "m", store.Selection{}, "", 100)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, p := range pairs {
+		if p.Origin.Before(t0.Add(2 * time.Hour)) {
+			t.Errorf("pair from a deleted origin: %+v", p)
+		}
+	}
+}
