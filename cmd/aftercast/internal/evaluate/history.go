@@ -4,7 +4,6 @@ import (
 	"errors"
 	"fmt"
 	"io"
-	"math"
 	"strings"
 	"time"
 
@@ -78,33 +77,18 @@ func readHistory(path string) (map[string]history, error) {
 }
 
 // scale is the MASE scale from the training actuals up to and including
-// the first origin (method.md §2), on the series' grid ending there. Later
-// points are not training data and are ignored.
+// the first origin (method.md §2). Later points are not training data and
+// are ignored.
 func (h history) scale(step scoring.Step, firstOrigin time.Time, season int) (float64, error) {
-	back := make(map[int]float64) // steps before firstOrigin → value
-	maxBack := 0
-	for _, p := range h.points {
-		if p.t.After(firstOrigin) {
-			continue
-		}
-		k := 0
-		if p.t.Before(firstOrigin) {
-			var err error
-			if k, err = step.Lead(p.t, firstOrigin); err != nil {
-				return 0, &records.LineError{File: h.file, Line: p.line,
-					Err: fmt.Errorf("training actual at %s is not on the %s grid that ends at the first origin %s", p.t.Format(time.RFC3339), step, firstOrigin.Format(time.RFC3339))}
-			}
-		}
-		back[k] = p.v
-		maxBack = max(maxBack, k)
+	ts, ys := make([]time.Time, len(h.points)), make([]float64, len(h.points))
+	for i, p := range h.points {
+		ts[i], ys[i] = p.t, p.v
 	}
-	y := make([]float64, maxBack+1)
-	for i := range y {
-		v, ok := back[maxBack-i]
-		if !ok {
-			v = math.NaN()
-		}
-		y[i] = v
+	scale, _, _, err := scoring.TrainingScale(step, firstOrigin, ts, ys, season)
+	var off *scoring.OffGridError
+	if errors.As(err, &off) {
+		return 0, &records.LineError{File: h.file, Line: h.points[off.Index].line,
+			Err: fmt.Errorf("training actual at %s is not on the %s grid that ends at the first origin %s", off.Time.Format(time.RFC3339), step, firstOrigin.Format(time.RFC3339))}
 	}
-	return scoring.MASEScale(y, season), nil
+	return scale, err
 }
