@@ -1,0 +1,519 @@
+package store
+
+import (
+	"context"
+	"crypto/sha256"
+	"encoding/binary"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"math"
+	"slices"
+	"time"
+
+	"github.com/jackc/pgx/v5"
+
+	"github.com/aftercast/aftercast/scoring"
+)
+
+// BacktestRow is one pair of an uploaded backtest.
+type BacktestRow struct {
+	Series           string
+	Origin, Target   time.Time
+	Forecast, Actual float64
+}
+
+// TrainingActual is one training observation, for the MASE scale.
+type TrainingActual struct {
+	Series string
+	Time   time.Time
+	Value  float64
+}
+
+// Warning kinds, as in the API.
+const (
+	WarnCadence         = "origin_cadence_differs"
+	WarnHorizon         = "horizon_differs"
+	WarnLeadNotUsable   = "lead_not_usable"
+	WarnNoTraining      = "no_training_actuals"
+	WarnTrainingIgnored = "training_actuals_ignored"
+)
+
+// BaselineWarning flags a way a baseline may not represent production.
+type BaselineWarning struct {
+	Kind    string `json:"kind"`
+	Lead    int    `json:"lead,omitempty"`
+	Message string `json:"message"`
+}
+
+// BaselineVersion summarises one stored baseline version.
+type BaselineVersion struct {
+	Series        string
+	Model         string
+	Version       int
+	Active        bool
+	CreatedAt     time.Time
+	FirstOrigin   time.Time
+	LastOrigin    time.Time
+	CadenceSteps  int
+	MaxLead       int
+	Rows          int64
+	TrainingCount int64
+	MASEScale     float64 // NaN when unknown
+	Warnings      []BaselineWarning
+	Created       bool // set by import: false when the upload equalled the active version
+}
+
+// BaselineLead is the backtest pairs of one lead, in origin order.
+type BaselineLead struct {
+	Lead      int
+	Origins   []time.Time
+	Forecasts []float64
+	Actuals   []float64
+}
+
+// Baseline is a stored version with its rows.
+type Baseline struct {
+	BaselineVersion
+	Leads []BaselineLead // ascending by lead
+}
+
+// maxViolations bounds the field violations reported for one import.
+const maxViolations = 100
+
+// ImportBaseline stores a backtest of model for every series it names, as
+// one new version each, in one transaction. Any invalid row fails the whole
+// import with an *InvalidError whose fields name the rows ("rows[12].target_time").
+// A series whose upload equals its active version gets no new version.
+// leadWarn, when not nil, judges each lead's usability and returns a
+// reason when it is not usable.
+func (s *Store) ImportBaseline(ctx context.Context, model string, rows []BacktestRow, training []TrainingActual,
+	leadWarn func(se *Series, l BaselineLead) string) ([]BaselineVersion, error) {
+	if !modelPattern.MatchString(model) {
+		return nil, invalid("model", "want 1–200 characters of A-Z a-z 0-9 _ . : / -")
+	}
+	if len(rows) == 0 {
+		return nil, invalid("rows", "no backtest rows")
+	}
+	keys := make([]string, 0, 8)
+	for _, r := range rows {
+		keys = append(keys, r.Series)
+	}
+	for _, t := range training {
+		keys = append(keys, t.Series)
+	}
+	series, err := s.seriesByKeys(ctx, keys)
+	if err != nil {
+		return nil, err
+	}
+	var vs []FieldViolation
+	bad := func(field, format string, args ...any) {
+		if len(vs) < maxViolations {
+			vs = append(vs, FieldViolation{field, fmt.Sprintf(format, args...)})
+		}
+	}
+	type pairKey struct {
+		origin int64
+		lead   int
+	}
+	type upload struct {
+		se       *Series
+		leads    map[int]*BaselineLead
+		seen     map[pairKey]bool
+		training []TrainingActual
+	}
+	ups := map[string]*upload{}
+	for i, r := range rows {
+		se := series[r.Series]
+		switch {
+		case se == nil:
+			bad(fmt.Sprintf("rows[%d].series", i), "unknown series %q: create it first", r.Series)
+			continue
+		case math.IsNaN(r.Forecast) || math.IsInf(r.Forecast, 0):
+			bad(fmt.Sprintf("rows[%d].forecast", i), "not a finite number")
+			continue
+		case math.IsNaN(r.Actual) || math.IsInf(r.Actual, 0):
+			bad(fmt.Sprintf("rows[%d].actual", i), "not a finite number")
+			continue
+		}
+		h, err := se.step.Lead(r.Origin, r.Target)
+		if err == nil {
+			err = scoring.CheckLead(h, se.Horizon)
+		}
+		if err != nil {
+			bad(fmt.Sprintf("rows[%d].target_time", i), "%v", err)
+			continue
+		}
+		u := ups[r.Series]
+		if u == nil {
+			u = &upload{se: se, leads: map[int]*BaselineLead{}, seen: map[pairKey]bool{}}
+			ups[r.Series] = u
+		}
+		k := pairKey{r.Origin.UnixNano(), h}
+		if u.seen[k] {
+			bad(fmt.Sprintf("rows[%d]", i), "a second row for series %s origin %s lead %d", r.Series, r.Origin.Format(time.RFC3339), h)
+			continue
+		}
+		u.seen[k] = true
+		l := u.leads[h]
+		if l == nil {
+			l = &BaselineLead{Lead: h}
+			u.leads[h] = l
+		}
+		l.Origins = append(l.Origins, r.Origin)
+		l.Forecasts = append(l.Forecasts, r.Forecast)
+		l.Actuals = append(l.Actuals, r.Actual)
+	}
+	for i, t := range training {
+		u := ups[t.Series]
+		switch {
+		case u == nil:
+			bad(fmt.Sprintf("training_actuals[%d].series", i), "series %q has no backtest rows in this import", t.Series)
+		case math.IsNaN(t.Value) || math.IsInf(t.Value, 0):
+			bad(fmt.Sprintf("training_actuals[%d].value", i), "not a finite number")
+		default:
+			u.training = append(u.training, t)
+		}
+	}
+	if len(vs) > 0 {
+		return nil, &InvalidError{vs}
+	}
+	var out []BaselineVersion
+	err = s.inTx(ctx, func(tx pgx.Tx) error {
+		out = out[:0]
+		ids := make([]int64, 0, len(ups))
+		for _, u := range ups {
+			ids = append(ids, u.se.ID)
+		}
+		if err := lockSeries(ctx, tx, ids); err != nil {
+			return err
+		}
+		for _, key := range sortedKeys(ups) {
+			u := ups[key]
+			leads := make([]BaselineLead, 0, len(u.leads))
+			for _, l := range u.leads {
+				sortLead(l)
+				leads = append(leads, *l)
+			}
+			slices.SortFunc(leads, func(a, b BaselineLead) int { return a.Lead - b.Lead })
+			v, err := s.storeBaseline(ctx, tx, u.se, model, leads, u.training, leadWarn)
+			if err != nil {
+				return err
+			}
+			out = append(out, v)
+		}
+		return nil
+	})
+	return out, err
+}
+
+func sortedKeys[V any](m map[string]V) []string {
+	ks := make([]string, 0, len(m))
+	for k := range m {
+		ks = append(ks, k)
+	}
+	slices.Sort(ks)
+	return ks
+}
+
+// sortLead puts a lead's pairs in origin order.
+func sortLead(l *BaselineLead) {
+	idx := make([]int, len(l.Origins))
+	for i := range idx {
+		idx[i] = i
+	}
+	slices.SortFunc(idx, func(a, b int) int { return l.Origins[a].Compare(l.Origins[b]) })
+	o, f, a := make([]time.Time, len(idx)), make([]float64, len(idx)), make([]float64, len(idx))
+	for i, j := range idx {
+		o[i], f[i], a[i] = l.Origins[j], l.Forecasts[j], l.Actuals[j]
+	}
+	l.Origins, l.Forecasts, l.Actuals = o, f, a
+}
+
+func contentHash(leads []BaselineLead, training []TrainingActual) []byte {
+	h := sha256.New()
+	var b []byte
+	for _, l := range leads {
+		b = binary.AppendVarint(b[:0], int64(l.Lead))
+		for i := range l.Origins {
+			b = binary.AppendVarint(b, l.Origins[i].UnixNano())
+			b = binary.LittleEndian.AppendUint64(b, math.Float64bits(l.Forecasts[i]))
+			b = binary.LittleEndian.AppendUint64(b, math.Float64bits(l.Actuals[i]))
+		}
+		h.Write(b)
+	}
+	tr := slices.Clone(training)
+	slices.SortFunc(tr, func(a, b TrainingActual) int { return a.Time.Compare(b.Time) })
+	for _, t := range tr {
+		b = binary.AppendVarint(b[:0], t.Time.UnixNano())
+		b = binary.LittleEndian.AppendUint64(b, math.Float64bits(t.Value))
+		h.Write(b)
+	}
+	return h.Sum(nil)
+}
+
+func (s *Store) storeBaseline(ctx context.Context, tx pgx.Tx, se *Series, model string, leads []BaselineLead,
+	training []TrainingActual, leadWarn func(*Series, BaselineLead) string) (BaselineVersion, error) {
+	hash := contentHash(leads, training)
+	var active int
+	var activeHash []byte
+	err := tx.QueryRow(ctx, `SELECT version, content_hash FROM baselines WHERE series_id = $1 AND model = $2 ORDER BY version DESC LIMIT 1`,
+		se.ID, model).Scan(&active, &activeHash)
+	if err != nil && !errors.Is(err, pgx.ErrNoRows) {
+		return BaselineVersion{}, fmt.Errorf("reading baselines: %w", err)
+	}
+	if active > 0 && string(activeHash) == string(hash) {
+		v, err := s.baselineVersion(ctx, tx, se, model, active)
+		return v, err
+	}
+	v := BaselineVersion{Series: se.Key, Model: model, Version: active + 1, Active: true, Created: true}
+	var origins []time.Time
+	for _, l := range leads {
+		v.Rows += int64(len(l.Origins))
+		v.MaxLead = max(v.MaxLead, l.Lead)
+		origins = append(origins, l.Origins...)
+	}
+	slices.SortFunc(origins, time.Time.Compare)
+	origins = slices.CompactFunc(origins, time.Time.Equal)
+	v.FirstOrigin, v.LastOrigin = origins[0], origins[len(origins)-1]
+	v.CadenceSteps = cadence(se.step, origins)
+
+	ts, ys := make([]time.Time, len(training)), make([]float64, len(training))
+	for i, t := range training {
+		ts[i], ys[i] = t.Time, t.Value
+	}
+	scale, used, ignored, err := scoring.TrainingScale(se.step, v.FirstOrigin, ts, ys, max(se.Season, 1))
+	var off *scoring.OffGridError
+	if errors.As(err, &off) {
+		return v, invalid("training_actuals", "series %s: %v", se.Key, err)
+	}
+	v.MASEScale, v.TrainingCount = scale, int64(used)
+	if ignored > 0 {
+		v.Warnings = append(v.Warnings, BaselineWarning{Kind: WarnTrainingIgnored,
+			Message: fmt.Sprintf("%d training actuals after the first backtest origin %s were ignored", ignored, v.FirstOrigin.Format(time.RFC3339))})
+	}
+	if !scoring.Defined(scale) || scale == 0 {
+		v.Warnings = append(v.Warnings, BaselineWarning{Kind: WarnNoTraining, Message: "no usable training actuals: MASE is unknown"})
+	}
+	prodCadence, prodMaxLead, err := productionShape(ctx, tx, se, model)
+	if err != nil {
+		return v, err
+	}
+	if prodCadence > 0 && prodCadence != v.CadenceSteps {
+		v.Warnings = append(v.Warnings, BaselineWarning{Kind: WarnCadence,
+			Message: fmt.Sprintf("backtest origins every %d steps, production origins every %d steps", v.CadenceSteps, prodCadence)})
+	}
+	wantLead, what := se.Horizon, "the series horizon"
+	if prodMaxLead > 0 {
+		wantLead, what = prodMaxLead, "the largest production lead"
+	}
+	if v.MaxLead != wantLead {
+		v.Warnings = append(v.Warnings, BaselineWarning{Kind: WarnHorizon,
+			Message: fmt.Sprintf("backtest reaches lead %d, %s is %d", v.MaxLead, what, wantLead)})
+	}
+	if leadWarn != nil {
+		for _, l := range leads {
+			if reason := leadWarn(se, l); reason != "" {
+				v.Warnings = append(v.Warnings, BaselineWarning{Kind: WarnLeadNotUsable, Lead: l.Lead, Message: reason})
+			}
+		}
+	}
+	warnings, err := json.Marshal(v.Warnings)
+	if err != nil {
+		return v, err
+	}
+	var scaleArg any
+	if scoring.Defined(scale) {
+		scaleArg = scale
+	}
+	err = tx.QueryRow(ctx, `INSERT INTO baselines (series_id, model, version, first_origin, last_origin, origin_cadence_steps,
+			max_lead, row_count, training_count, mase_scale, warnings, content_hash)
+		VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9, $10, $11, $12) RETURNING created_at`,
+		se.ID, model, v.Version, v.FirstOrigin, v.LastOrigin, v.CadenceSteps, v.MaxLead, v.Rows, v.TrainingCount, scaleArg, warnings, hash).Scan(&v.CreatedAt)
+	if err != nil {
+		return v, fmt.Errorf("storing baseline: %w", err)
+	}
+	src := make([][]any, len(leads))
+	for i, l := range leads {
+		src[i] = []any{se.ID, model, v.Version, l.Lead, l.Origins, l.Forecasts, l.Actuals}
+	}
+	if _, err := tx.CopyFrom(ctx, pgx.Identifier{"baseline_leads"}, []string{"series_id", "model", "version", "lead", "origins", "forecasts", "actuals"},
+		pgx.CopyFromRows(src)); err != nil {
+		return v, fmt.Errorf("storing baseline rows: %w", err)
+	}
+	return v, nil
+}
+
+// cadence is the most common gap, in steps, between consecutive origins
+// (ties: the smaller gap); 0 when there is no gap on the grid.
+func cadence(step scoring.Step, origins []time.Time) int {
+	counts := map[int]int{}
+	for i := 1; i < len(origins); i++ {
+		if k, err := step.Lead(origins[i-1], origins[i]); err == nil {
+			counts[k]++
+		}
+	}
+	best, bestN := 0, 0
+	for k, n := range counts {
+		if n > bestN || n == bestN && k < best {
+			best, bestN = k, n
+		}
+	}
+	return best
+}
+
+// productionShape reads the cadence and largest lead of the model's recent
+// production forecasts for the series (0, 0 when there are none).
+func productionShape(ctx context.Context, q pgx.Tx, se *Series, model string) (cad, maxLead int, err error) {
+	rows, err := q.Query(ctx, `SELECT origin, cardinality(vals) FROM forecasts WHERE series_id = $1 AND model = $2
+		ORDER BY origin DESC LIMIT 200`, se.ID, model)
+	if err != nil {
+		return 0, 0, fmt.Errorf("reading production forecasts: %w", err)
+	}
+	defer rows.Close()
+	var origins []time.Time
+	for rows.Next() {
+		var o time.Time
+		var n int
+		if err := rows.Scan(&o, &n); err != nil {
+			return 0, 0, err
+		}
+		origins = append(origins, o)
+		maxLead = max(maxLead, n)
+	}
+	if err := rows.Err(); err != nil {
+		return 0, 0, err
+	}
+	slices.SortFunc(origins, time.Time.Compare)
+	return cadence(se.step, origins), maxLead, nil
+}
+
+const baselineColumns = `version, created_at, first_origin, last_origin, origin_cadence_steps, max_lead, row_count, training_count, mase_scale, warnings`
+
+func scanBaseline(row pgx.Row, se *Series, model string) (BaselineVersion, error) {
+	v := BaselineVersion{Series: se.Key, Model: model}
+	var scale *float64
+	var warnings []byte
+	if err := row.Scan(&v.Version, &v.CreatedAt, &v.FirstOrigin, &v.LastOrigin, &v.CadenceSteps, &v.MaxLead, &v.Rows, &v.TrainingCount, &scale, &warnings); err != nil {
+		return v, err
+	}
+	v.MASEScale = math.NaN()
+	if scale != nil {
+		v.MASEScale = *scale
+	}
+	if err := json.Unmarshal(warnings, &v.Warnings); err != nil {
+		return v, fmt.Errorf("baseline warnings: %w", err)
+	}
+	return v, nil
+}
+
+type querier interface {
+	QueryRow(ctx context.Context, sql string, args ...any) pgx.Row
+	Query(ctx context.Context, sql string, args ...any) (pgx.Rows, error)
+}
+
+func (s *Store) baselineVersion(ctx context.Context, q querier, se *Series, model string, version int) (BaselineVersion, error) {
+	var active int
+	if err := q.QueryRow(ctx, `SELECT coalesce(max(version), 0) FROM baselines WHERE series_id = $1 AND model = $2`, se.ID, model).Scan(&active); err != nil {
+		return BaselineVersion{}, fmt.Errorf("reading baselines: %w", err)
+	}
+	if version == 0 {
+		version = active
+	}
+	v, err := scanBaseline(q.QueryRow(ctx, `SELECT `+baselineColumns+` FROM baselines WHERE series_id = $1 AND model = $2 AND version = $3`,
+		se.ID, model, version), se, model)
+	if errors.Is(err, pgx.ErrNoRows) {
+		return v, fmt.Errorf("baseline of model %q for series %q (version %d): %w", model, se.Key, version, ErrNotFound)
+	}
+	if err != nil {
+		return v, fmt.Errorf("reading baseline: %w", err)
+	}
+	v.Active = v.Version == active
+	return v, nil
+}
+
+// GetBaseline returns a baseline version with its rows; version 0 is the
+// active one.
+func (s *Store) GetBaseline(ctx context.Context, key, model string, version int) (Baseline, error) {
+	se, err := s.seriesByKey(ctx, key)
+	if err != nil {
+		return Baseline{}, err
+	}
+	return s.baseline(ctx, s.pool, se, model, version)
+}
+
+func (s *Store) baseline(ctx context.Context, q querier, se *Series, model string, version int) (Baseline, error) {
+	v, err := s.baselineVersion(ctx, q, se, model, version)
+	if err != nil {
+		return Baseline{}, err
+	}
+	b := Baseline{BaselineVersion: v}
+	rows, err := q.Query(ctx, `SELECT lead, origins, forecasts, actuals FROM baseline_leads
+		WHERE series_id = $1 AND model = $2 AND version = $3 ORDER BY lead`, se.ID, model, v.Version)
+	if err != nil {
+		return b, fmt.Errorf("reading baseline rows: %w", err)
+	}
+	defer rows.Close()
+	for rows.Next() {
+		var l BaselineLead
+		if err := rows.Scan(&l.Lead, &l.Origins, &l.Forecasts, &l.Actuals); err != nil {
+			return b, fmt.Errorf("reading baseline rows: %w", err)
+		}
+		b.Leads = append(b.Leads, l)
+	}
+	return b, rows.Err()
+}
+
+// ListBaselineVersions lists the versions of a series' baselines, by model
+// then newest first; model "" means every model.
+func (s *Store) ListBaselineVersions(ctx context.Context, key, model string) ([]BaselineVersion, error) {
+	se, err := s.seriesByKey(ctx, key)
+	if err != nil {
+		return nil, err
+	}
+	rows, err := s.pool.Query(ctx, `SELECT model, `+baselineColumns+`, version = max(version) OVER (PARTITION BY model)
+		FROM baselines WHERE series_id = $1 AND ($2 = '' OR model = $2) ORDER BY model, version DESC`, se.ID, model)
+	if err != nil {
+		return nil, fmt.Errorf("listing baselines: %w", err)
+	}
+	defer rows.Close()
+	var out []BaselineVersion
+	for rows.Next() {
+		v := BaselineVersion{Series: se.Key}
+		var scale *float64
+		var warnings []byte
+		if err := rows.Scan(&v.Model, &v.Version, &v.CreatedAt, &v.FirstOrigin, &v.LastOrigin, &v.CadenceSteps, &v.MaxLead, &v.Rows,
+			&v.TrainingCount, &scale, &warnings, &v.Active); err != nil {
+			return nil, fmt.Errorf("listing baselines: %w", err)
+		}
+		v.MASEScale = math.NaN()
+		if scale != nil {
+			v.MASEScale = *scale
+		}
+		if err := json.Unmarshal(warnings, &v.Warnings); err != nil {
+			return nil, err
+		}
+		out = append(out, v)
+	}
+	return out, rows.Err()
+}
+
+// ActiveScale is the MASE scale of the active baseline of (series, model),
+// NaN when there is none.
+func (s *Store) ActiveScale(ctx context.Context, key, model string) (float64, error) {
+	se, err := s.seriesByKey(ctx, key)
+	if err != nil {
+		return math.NaN(), err
+	}
+	var scale *float64
+	err = s.pool.QueryRow(ctx, `SELECT mase_scale FROM baselines WHERE series_id = $1 AND model = $2 ORDER BY version DESC LIMIT 1`,
+		se.ID, model).Scan(&scale)
+	if errors.Is(err, pgx.ErrNoRows) || scale == nil {
+		return math.NaN(), nil
+	}
+	if err != nil {
+		return math.NaN(), fmt.Errorf("reading baseline scale: %w", err)
+	}
+	return *scale, nil
+}
+
