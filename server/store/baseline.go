@@ -516,4 +516,3 @@ func (s *Store) ActiveScale(ctx context.Context, key, model string) (float64, er
 	}
 	return *scale, nil
 }
-
