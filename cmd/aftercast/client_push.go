@@ -1,0 +1,361 @@
+package main
+
+import (
+	"context"
+	"errors"
+	"flag"
+	"fmt"
+	"io"
+	"os"
+	"time"
+
+	aftercastv1 "github.com/aftercast/aftercast/api/aftercast/v1"
+	"github.com/aftercast/aftercast/cmd/aftercast/internal/push"
+	"github.com/aftercast/aftercast/scoring"
+	"google.golang.org/grpc"
+	"google.golang.org/grpc/codes"
+	"google.golang.org/grpc/status"
+	"google.golang.org/protobuf/proto"
+)
+
+func runPush(args []string, stdout, stderr io.Writer) error {
+	return subcommand("push", args, stderr,
+		sub{"forecasts", func(args []string) error { return pushForecasts(args, stdout, stderr) }},
+		sub{"actuals", func(args []string) error { return pushActuals(args, stdout, stderr) }},
+	)
+}
+
+func pushForecasts(args []string, stdout, stderr io.Writer) error {
+	fs := newFlags("push forecasts", "FILE.csv (columns series,origin_time,target_time,forecast[,issued_at]; - for stdin)", stderr)
+	cf := addClientFlags(fs)
+	model := fs.String("model", "", "model or job that issued the forecasts (required)")
+	batch := fs.Int("batch", 500, "forecast vectors per stream message")
+	file, err := pushArgs(fs, args, batch)
+	if err != nil {
+		return err
+	}
+	if *model == "" {
+		fmt.Fprintln(stderr, "aftercast push forecasts: --model is required")
+		fs.Usage()
+		return errUsage
+	}
+	conn, err := cf.dial()
+	if err != nil {
+		return err
+	}
+	defer conn.Close()
+	series := aftercastv1.NewSeriesServiceClient(conn)
+	forecasts := aftercastv1.NewForecastServiceClient(conn)
+	cache := push.NewSeriesCache(func(key string) (push.SeriesInfo, bool, error) {
+		ctx, cancel := cf.call()
+		defer cancel()
+		resp, err := series.GetSeries(ctx, &aftercastv1.GetSeriesRequest{Key: key})
+		switch status.Code(err) {
+		case codes.OK:
+			info, err := seriesInfo(resp.GetSeries())
+			return info, err == nil, err
+		case codes.NotFound, codes.InvalidArgument: // a malformed key names no series either
+			return push.SeriesInfo{}, false, nil
+		}
+		return push.SeriesInfo{}, false, err
+	})
+
+	var src *push.Forecasts
+	sum, err := retryPush(stderr, file, func(in io.Reader, name string) (*aftercastv1.ForecastPushSummary, error) {
+		var err error
+		if src, err = push.NewForecasts(in, name, *model, cache, push.DefaultMaxOpen); err != nil {
+			return nil, err
+		}
+		prog := newProgress(stderr, "vectors")
+		defer prog.done()
+		resp, err := streamBatches(forecasts.StreamForecasts, cf.timeout, *batch, src.Next,
+			func(fs []*aftercastv1.Forecast) *aftercastv1.StreamForecastsRequest {
+				return &aftercastv1.StreamForecastsRequest{Forecasts: fs}
+			},
+			func() { prog.update(src.Rows, src.Vectors) })
+		return resp.GetSummary(), err
+	})
+	if err != nil {
+		return cf.rpcError(err, "")
+	}
+
+	rejected := src.Rejected.List
+	for _, r := range sum.GetRejections() {
+		rejected = append(rejected, src.Lines.Forecast(r))
+	}
+	fmt.Fprintf(stdout, "read %d rows of %s: sent %d points in %d vectors for model %s\n",
+		src.Rows, inputName(file), src.Points, src.Vectors, *model)
+	fmt.Fprintf(stdout, "accepted %d, duplicate %d, late %d, rejected %d\n", sum.GetAccepted(),
+		sum.GetDuplicate()+src.Duplicates, sum.GetLate(), sum.GetRejected()+src.Rejected.N)
+	return reportRejected(stdout, rejected, src.Rejected.Truncated, sum.GetRejectionsTruncated(),
+		sum.GetRejected()+src.Rejected.N, src.Rows)
+}
+
+func pushActuals(args []string, stdout, stderr io.Writer) error {
+	fs := newFlags("push actuals", "FILE.csv (columns series,time,value; - for stdin)", stderr)
+	cf := addClientFlags(fs)
+	batch := fs.Int("batch", 5000, "actuals per stream message")
+	file, err := pushArgs(fs, args, batch)
+	if err != nil {
+		return err
+	}
+	conn, err := cf.dial()
+	if err != nil {
+		return err
+	}
+	defer conn.Close()
+	actuals := aftercastv1.NewActualServiceClient(conn)
+
+	var src *push.Actuals
+	sum, err := retryPush(stderr, file, func(in io.Reader, name string) (*aftercastv1.ActualPushSummary, error) {
+		var err error
+		if src, err = push.NewActuals(in, name); err != nil {
+			return nil, err
+		}
+		prog := newProgress(stderr, "actuals")
+		defer prog.done()
+		resp, err := streamBatches(actuals.StreamActuals, cf.timeout, *batch, src.Next,
+			func(as []*aftercastv1.Actual) *aftercastv1.StreamActualsRequest {
+				return &aftercastv1.StreamActualsRequest{Actuals: as}
+			},
+			func() { prog.update(src.Rows, src.Sent) })
+		return resp.GetSummary(), err
+	})
+	if err != nil {
+		return cf.rpcError(err, "")
+	}
+
+	rejected := src.Rejected.List
+	for _, r := range sum.GetRejections() {
+		rejected = append(rejected, src.Lines.Actual(r))
+	}
+	fmt.Fprintf(stdout, "read %d rows of %s: sent %d actuals\n", src.Rows, inputName(file), src.Sent)
+	fmt.Fprintf(stdout, "accepted %d, duplicate %d, revised %d, rejected %d\n", sum.GetAccepted(),
+		sum.GetDuplicate(), sum.GetRevised(), sum.GetRejected()+src.Rejected.N)
+	return reportRejected(stdout, rejected, src.Rejected.Truncated, sum.GetRejectionsTruncated(),
+		sum.GetRejected()+src.Rejected.N, src.Rows)
+}
+
+// pushArgs parses the flags of a push command and returns its file.
+func pushArgs(fs *flag.FlagSet, args []string, batch *int) (string, error) {
+	pos, err := parseArgs(fs, args)
+	if err != nil {
+		return "", err
+	}
+	if len(pos) != 1 {
+		fs.Usage()
+		return "", errUsage
+	}
+	if *batch < 1 {
+		return "", fmt.Errorf("--batch %d: want at least 1", *batch)
+	}
+	return pos[0], nil
+}
+
+// reportRejected lists rejected rows by line and fails when there are any.
+func reportRejected(w io.Writer, rs []push.Rejection, localTruncated, serverTruncated bool, n, rows int64) error {
+	if n == 0 {
+		return nil
+	}
+	push.SortByLine(rs)
+	for _, r := range rs {
+		fmt.Fprintln(w, r)
+	}
+	if localTruncated {
+		fmt.Fprintf(w, "(only the first %d rows rejected before sending are listed)\n", push.MaxListed)
+	}
+	if serverTruncated {
+		fmt.Fprintln(w, "(only the first rejections of the server are listed)")
+	}
+	return fmt.Errorf("%d of %d rows rejected", n, rows)
+}
+
+// seriesInfo is what reading forecast rows needs of a series.
+func seriesInfo(s *aftercastv1.Series) (push.SeriesInfo, error) {
+	loc, err := time.LoadLocation(s.GetTimeZone())
+	if err != nil {
+		return push.SeriesInfo{}, fmt.Errorf("series %s: time zone %q: %w", s.GetKey(), s.GetTimeZone(), err)
+	}
+	step, err := scoring.ParseStep(s.GetStep(), loc)
+	if err != nil {
+		return push.SeriesInfo{}, fmt.Errorf("series %s: %w", s.GetKey(), err)
+	}
+	return push.SeriesInfo{Step: step, Horizon: int(s.GetHorizon())}, nil
+}
+
+// Retrying: the server's ingestion is idempotent — a point or actual that
+// is already stored changes nothing and is counted as a duplicate — and it
+// acknowledges only what it has committed. So a stream that failed before
+// its acknowledgement arrived is retried whole: the file is read again
+// from its start and sent on a new stream, and what the failed attempt had
+// stored comes back as duplicates. Standard input cannot be read again and
+// is not retried.
+const pushAttempts = 5
+
+// retryPush runs attempt on the opened file, again after 0.5s, 1s, 2s and
+// 4s while it fails with UNAVAILABLE (which is also how gRPC reports a
+// connection that could not be made or broke).
+func retryPush[S any](stderr io.Writer, file string, attempt func(in io.Reader, name string) (S, error)) (S, error) {
+	wait := 500 * time.Millisecond
+	for try := 1; ; try++ {
+		sum, err := attemptFile(file, attempt)
+		if err == nil || status.Code(err) != codes.Unavailable || try == pushAttempts {
+			return sum, err
+		}
+		if file == "-" {
+			fmt.Fprintln(stderr, "aftercast push: not retried: standard input cannot be read again")
+			return sum, err
+		}
+		fmt.Fprintf(stderr, "aftercast push: attempt %d of %d failed (%s); retrying the whole file in %v (rows already stored will count as duplicates)\n",
+			try, pushAttempts, status.Convert(err).Message(), wait)
+		time.Sleep(wait)
+		wait *= 2
+	}
+}
+
+func attemptFile[S any](file string, attempt func(in io.Reader, name string) (S, error)) (S, error) {
+	if file == "-" {
+		return attempt(os.Stdin, inputName(file))
+	}
+	f, err := os.Open(file)
+	if err != nil {
+		var zero S
+		return zero, err
+	}
+	defer f.Close()
+	return attempt(f, file)
+}
+
+// inputName names a file argument in messages.
+func inputName(file string) string {
+	if file == "-" {
+		return "stdin"
+	}
+	return file
+}
+
+// maxMessage bounds the encoded size of one stream message, well under the
+// server's 4 MiB limit, whatever --batch says.
+const maxMessage = 2 << 20
+
+// errStalled cancels a stream that waited on the server for --timeout.
+var errStalled = errors.New("stalled")
+
+// streamBatches sends what next returns on one client stream, in messages
+// of up to batch items, and returns the server's single response. A
+// stream as a whole has no deadline, since a large file (or a slow
+// producer piping into stdin) takes as long as it takes; instead it is
+// abandoned when opening it, sending one message or waiting for the final
+// acknowledgement takes longer than timeout.
+func streamBatches[Item proto.Message, Req, Resp any](
+	open func(context.Context, ...grpc.CallOption) (grpc.ClientStreamingClient[Req, Resp], error),
+	timeout time.Duration, batch int, next func() (Item, error), wrap func([]Item) *Req, sent func(),
+) (*Resp, error) {
+	ctx, cancel := context.WithCancelCause(context.Background())
+	defer cancel(nil)
+	watchdog := time.AfterFunc(timeout, func() { cancel(errStalled) })
+	defer watchdog.Stop()
+	// waited ends a wait on the server, and says why it failed.
+	waited := func(err error) error {
+		watchdog.Stop()
+		if err != nil && errors.Is(context.Cause(ctx), errStalled) {
+			return status.Errorf(codes.DeadlineExceeded, "no progress for %v", timeout)
+		}
+		return err
+	}
+
+	stream, err := open(ctx)
+	if err = waited(err); err != nil {
+		return nil, err
+	}
+	items, size := make([]Item, 0, batch), 0
+	flush := func() error {
+		if len(items) == 0 {
+			return nil
+		}
+		watchdog.Reset(timeout)
+		// A message must not change after Send, so every batch gets a
+		// new slice.
+		err := stream.Send(wrap(items))
+		if err == io.EOF { // the stream ended; its status says why
+			if _, err = stream.CloseAndRecv(); err == nil {
+				err = errors.New("the server ended the stream before all was sent")
+			}
+		}
+		if err = waited(err); err != nil {
+			return err
+		}
+		sent()
+		items, size = make([]Item, 0, batch), 0
+		return nil
+	}
+	for {
+		it, err := next()
+		if err == io.EOF {
+			break
+		}
+		if err != nil {
+			return nil, err
+		}
+		n := proto.Size(it)
+		if len(items) > 0 && size+n > maxMessage {
+			if err := flush(); err != nil {
+				return nil, err
+			}
+		}
+		items, size = append(items, it), size+n
+		if len(items) >= batch {
+			if err := flush(); err != nil {
+				return nil, err
+			}
+		}
+	}
+	if err := flush(); err != nil {
+		return nil, err
+	}
+	watchdog.Reset(timeout)
+	resp, err := stream.CloseAndRecv()
+	if err = waited(err); err != nil {
+		return nil, err
+	}
+	return resp, nil
+}
+
+// progress prints rows read, items sent and the rate on one line of
+// stderr, only when stderr is a terminal.
+type progress struct {
+	w           io.Writer
+	unit        string
+	start, last time.Time
+	shown       bool
+}
+
+func newProgress(stderr io.Writer, unit string) *progress {
+	f, ok := stderr.(*os.File)
+	if !ok {
+		return &progress{}
+	}
+	if fi, err := f.Stat(); err != nil || fi.Mode()&os.ModeCharDevice == 0 {
+		return &progress{}
+	}
+	return &progress{w: f, unit: unit, start: time.Now()}
+}
+
+func (p *progress) update(rows, sent int64) {
+	if p.w == nil {
+		return
+	}
+	now := time.Now()
+	if now.Sub(p.last) < 200*time.Millisecond {
+		return
+	}
+	p.last, p.shown = now, true
+	rate := float64(rows) / now.Sub(p.start).Seconds()
+	fmt.Fprintf(p.w, "\r%d rows read, %d %s sent, %.0f rows/s\033[K", rows, sent, p.unit, rate)
+}
+
+func (p *progress) done() {
+	if p.shown {
+		fmt.Fprint(p.w, "\r\033[K")
+	}
+}

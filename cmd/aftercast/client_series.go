@@ -1,0 +1,231 @@
+package main
+
+import (
+	"encoding/json"
+	"errors"
+	"fmt"
+	"io"
+	"text/tabwriter"
+	"time"
+
+	aftercastv1 "github.com/aftercast/aftercast/api/aftercast/v1"
+	"github.com/aftercast/aftercast/scoring"
+	"google.golang.org/grpc/codes"
+	"google.golang.org/grpc/status"
+)
+
+func runSeries(args []string, stdout, stderr io.Writer) error {
+	return subcommand("series", args, stderr,
+		sub{"create", func(args []string) error { return seriesCreate(args, stdout, stderr) }},
+		sub{"get", func(args []string) error { return seriesGet(args, stdout, stderr) }},
+		sub{"list", func(args []string) error { return seriesList(args, stdout, stderr) }},
+	)
+}
+
+func seriesCreate(args []string, stdout, stderr io.Writer) error {
+	fs := newFlags("series create", "KEY", stderr)
+	cf := addClientFlags(fs)
+	var (
+		s         aftercastv1.Series
+		horizon   int
+		season    int
+		decisions string
+	)
+	fs.StringVar(&s.Step, "step", "", "sampling interval (required): 15m, 30m, 1h, 24h, or calendar 1d, 1w, 1mo, 1y")
+	fs.IntVar(&horizon, "horizon", 0, "largest lead accepted, in steps (required)")
+	fs.IntVar(&season, "season", 0, "season m in steps, for the MASE scale (0: none)")
+	fs.StringVar(&s.Unit, "unit", "", "unit of the values, such as MW (informational)")
+	fs.StringVar(&s.TimeZone, "tz", "UTC", "IANA time zone whose calendar the calendar steps follow")
+	fs.StringVar(&decisions, "decision-leads", "", "leads the business acts on, e.g. 25-48 (default all)")
+	pos, err := parseArgs(fs, args)
+	if err != nil {
+		return err
+	}
+	if len(pos) != 1 || s.Step == "" || horizon == 0 {
+		if len(pos) == 1 {
+			fmt.Fprintln(stderr, "aftercast series create: --step and --horizon are required")
+		}
+		fs.Usage()
+		return errUsage
+	}
+	s.Key = pos[0]
+	s.Horizon, s.Season = int32(horizon), int32(season)
+	leads, err := scoring.ParseLeads(decisions)
+	if err != nil {
+		return fmt.Errorf("--decision-leads: %w", err)
+	}
+	for _, h := range leads {
+		s.DecisionLeads = append(s.DecisionLeads, int32(h))
+	}
+
+	conn, err := cf.dial()
+	if err != nil {
+		return err
+	}
+	defer conn.Close()
+	ctx, cancel := cf.call()
+	defer cancel()
+	resp, err := aftercastv1.NewSeriesServiceClient(conn).CreateSeries(ctx, &aftercastv1.CreateSeriesRequest{Series: &s})
+	if status.Code(err) == codes.AlreadyExists {
+		return fmt.Errorf("series %s already exists with different settings, which never change in place: use another key", s.Key)
+	}
+	if err != nil {
+		return cf.rpcError(err, "")
+	}
+	if resp.GetCreated() {
+		fmt.Fprintf(stdout, "created series %s\n", s.Key)
+	} else {
+		fmt.Fprintf(stdout, "series %s already exists with the same settings\n", s.Key)
+	}
+	return nil
+}
+
+func seriesGet(args []string, stdout, stderr io.Writer) error {
+	fs := newFlags("series get", "KEY", stderr)
+	cf := addClientFlags(fs)
+	format := fs.String("format", "table", "output: table or json")
+	pos, err := parseArgs(fs, args)
+	if err != nil {
+		return err
+	}
+	if len(pos) != 1 {
+		fs.Usage()
+		return errUsage
+	}
+	if err := seriesFormat(*format); err != nil {
+		return err
+	}
+	conn, err := cf.dial()
+	if err != nil {
+		return err
+	}
+	defer conn.Close()
+	ctx, cancel := cf.call()
+	defer cancel()
+	resp, err := aftercastv1.NewSeriesServiceClient(conn).GetSeries(ctx, &aftercastv1.GetSeriesRequest{Key: pos[0]})
+	if err != nil {
+		return cf.rpcError(err, fmt.Sprintf("series %s", pos[0]))
+	}
+	s := resp.GetSeries()
+	if *format == "json" {
+		return writeJSON(stdout, seriesOut(s))
+	}
+	tw := tabwriter.NewWriter(stdout, 0, 0, 2, ' ', 0)
+	o := seriesOut(s)
+	fmt.Fprintf(tw, "key\t%s\nstep\t%s\nhorizon\t%d\nseason\t%d\nunit\t%s\ntime zone\t%s\ndecision leads\t%s\ncreated\t%s\n",
+		o.Key, o.Step, o.Horizon, o.Season, orDash(o.Unit), o.TimeZone, decisionLeads(s), orDash(o.CreateTime))
+	return tw.Flush()
+}
+
+func seriesList(args []string, stdout, stderr io.Writer) error {
+	fs := newFlags("series list", "", stderr)
+	cf := addClientFlags(fs)
+	format := fs.String("format", "table", "output: table or json")
+	prefix := fs.String("prefix", "", "only series whose key starts with this")
+	pos, err := parseArgs(fs, args)
+	if err != nil {
+		return err
+	}
+	if len(pos) != 0 {
+		fs.Usage()
+		return errUsage
+	}
+	if err := seriesFormat(*format); err != nil {
+		return err
+	}
+	conn, err := cf.dial()
+	if err != nil {
+		return err
+	}
+	defer conn.Close()
+	client := aftercastv1.NewSeriesServiceClient(conn)
+	var all []*aftercastv1.Series
+	for token := ""; ; {
+		ctx, cancel := cf.call()
+		resp, err := client.ListSeries(ctx, &aftercastv1.ListSeriesRequest{PageSize: 1000, PageToken: token, KeyPrefix: *prefix})
+		cancel()
+		if err != nil {
+			return cf.rpcError(err, "")
+		}
+		all = append(all, resp.GetSeries()...)
+		if token = resp.GetNextPageToken(); token == "" {
+			break
+		}
+	}
+	if *format == "json" {
+		out := struct {
+			Series []seriesJSON `json:"series"`
+		}{Series: make([]seriesJSON, 0, len(all))}
+		for _, s := range all {
+			out.Series = append(out.Series, seriesOut(s))
+		}
+		return writeJSON(stdout, out)
+	}
+	if len(all) == 0 {
+		fmt.Fprintln(stdout, "no series")
+		return nil
+	}
+	tw := tabwriter.NewWriter(stdout, 0, 0, 2, ' ', 0)
+	fmt.Fprintln(tw, "KEY\tSTEP\tHORIZON\tSEASON\tUNIT\tTIME ZONE\tDECISION LEADS\tCREATED")
+	for _, s := range all {
+		o := seriesOut(s)
+		fmt.Fprintf(tw, "%s\t%s\t%d\t%d\t%s\t%s\t%s\t%s\n", o.Key, o.Step, o.Horizon, o.Season, orDash(o.Unit),
+			o.TimeZone, decisionLeads(s), orDash(o.CreateTime))
+	}
+	return tw.Flush()
+}
+
+// seriesJSON is the JSON shape of a series in `series get` and `series
+// list`.
+type seriesJSON struct {
+	Key           string  `json:"key"`
+	Step          string  `json:"step"`
+	Horizon       int32   `json:"horizon"`
+	Season        int32   `json:"season"`
+	Unit          string  `json:"unit"`
+	TimeZone      string  `json:"time_zone"`
+	DecisionLeads []int32 `json:"decision_leads"` // empty: all leads
+	CreateTime    string  `json:"create_time"`
+}
+
+func seriesOut(s *aftercastv1.Series) seriesJSON {
+	o := seriesJSON{Key: s.GetKey(), Step: s.GetStep(), Horizon: s.GetHorizon(), Season: s.GetSeason(), Unit: s.GetUnit(),
+		TimeZone: s.GetTimeZone(), DecisionLeads: append([]int32{}, s.GetDecisionLeads()...)}
+	if s.GetCreateTime() != nil {
+		o.CreateTime = s.GetCreateTime().AsTime().Format(time.RFC3339Nano)
+	}
+	return o
+}
+
+// decisionLeads is the decision leads of a series as a lead list, "all"
+// when empty.
+func decisionLeads(s *aftercastv1.Series) string {
+	if len(s.GetDecisionLeads()) == 0 {
+		return "all"
+	}
+	leads := make([]int, len(s.GetDecisionLeads()))
+	for i, h := range s.GetDecisionLeads() {
+		leads[i] = int(h)
+	}
+	return scoring.FormatLeads(leads)
+}
+
+func seriesFormat(f string) error {
+	if f != "table" && f != "json" {
+		return errors.New("--format: want table or json")
+	}
+	return nil
+}
+
+func orDash(s string) string {
+	if s == "" {
+		return "-"
+	}
+	return s
+}
+
+func writeJSON(w io.Writer, v any) error {
+	enc := json.NewEncoder(w)
+	enc.SetIndent("", "  ")
+	return enc.Encode(v)
+}
