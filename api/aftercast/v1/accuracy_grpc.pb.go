@@ -35,11 +35,11 @@ const (
 // the stored pairs would give. Late pairs (hindsight guard, method.md §3)
 // are never scored; they are only counted.
 //
-// Errors common to both RPCs: NOT_FOUND when the series does not exist;
-// INVALID_ARGUMENT (with a google.rpc.BadRequest) for an empty model, a
-// lead outside 1..horizon, a range whose start_time is not before its
-// end_time, or a negative window_origins. A model that has no forecasts for
-// the series is not an error: it has no pairs.
+// Errors common to both RPCs: NOT_FOUND when the series does not exist or
+// the model has no forecasts for it (so that a mistyped model is an error,
+// not an empty table); INVALID_ARGUMENT (with a google.rpc.BadRequest) for
+// a lead outside 1..horizon, a range whose start_time is not before its
+// end_time, or a window_origins out of range.
 type AccuracyServiceClient interface {
 	// GetAccuracy returns per-lead and overall accuracy metrics of one model
 	// on one series over a selection of pairs, with the baseline comparison
@@ -90,11 +90,11 @@ func (c *accuracyServiceClient) ListPairs(ctx context.Context, in *ListPairsRequ
 // the stored pairs would give. Late pairs (hindsight guard, method.md §3)
 // are never scored; they are only counted.
 //
-// Errors common to both RPCs: NOT_FOUND when the series does not exist;
-// INVALID_ARGUMENT (with a google.rpc.BadRequest) for an empty model, a
-// lead outside 1..horizon, a range whose start_time is not before its
-// end_time, or a negative window_origins. A model that has no forecasts for
-// the series is not an error: it has no pairs.
+// Errors common to both RPCs: NOT_FOUND when the series does not exist or
+// the model has no forecasts for it (so that a mistyped model is an error,
+// not an empty table); INVALID_ARGUMENT (with a google.rpc.BadRequest) for
+// a lead outside 1..horizon, a range whose start_time is not before its
+// end_time, or a window_origins out of range.
 type AccuracyServiceServer interface {
 	// GetAccuracy returns per-lead and overall accuracy metrics of one model
 	// on one series over a selection of pairs, with the baseline comparison
