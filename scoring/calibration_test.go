@@ -1,0 +1,719 @@
+package scoring
+
+// The calibration benchmark of method.md §6: it reproduces calibration
+// targets 1–6 with the package's own band construction (Summarize, Band)
+// and state machine (Detector) on simulated error processes. It is off by
+// default; run it with
+//
+//	go test ./scoring -run TestCalibration -calibration=full -v -timeout 30m
+//
+// (-calibration=ci for the shorter run with looser bounds). -v shows the
+// table; without it go test prints it only on failure.
+//
+// Simulation design:
+//   - Every process has unit variance, so "+1 sd" is +1. Processes and the
+//     lead h each is judged at: iid N(0,1) (h = 1); equal-weight MA(5), six
+//     innovations/√6, like the overlapping errors of lead 6 (h = 6); MA(23),
+//     24 innovations/√24 (h = 24); AR(1) φ = 0.5, 0.8, 0.9 started in its
+//     stationary law (h = 1); Student-t(3), unscaled (h = 1); the mix
+//     √0.7·MA(5) + √0.3·AR(1) φ = 0.9, i.e. 0.7 of the variance from MA(5)
+//     (h = 6); seasonal scale, N(0,1)·(1 + ½ sin(2πt/7)) on a time axis that
+//     runs on from the backtest into the live series (h = 1).
+//   - A backtest is K errors; the live series is an independent path of the
+//     same process. Exceedance cells judge 5000 live windows of n = 30 per
+//     backtest and average the per-backtest exceedance over backtests.
+//     The windows slide by one origin (a path of 5029 errors), as the live
+//     window does in production where it is re-judged at every new origin.
+//     By stationarity every window has the same law as a disjoint one, so
+//     the expected exceedance is the same; sliding costs 30 times fewer
+//     draws, and the Monte Carlo error of the average is dominated by the
+//     spread of bands between backtests, not by the 5000 windows.
+//   - Target 3 needs no live series: for iid N(0,1) the window ME is
+//     N(0, 1/30), so each backtest's exceedance is exact (closed form).
+//   - Target 6 feeds a Detector at defaults from the first live origin (a
+//     filling window judged against the band for its own n; the baseline
+//     verdict applied through SetBaseline). The run length is the origin
+//     (1-based) at which the state first becomes degraded. For detection
+//     delays the process changes from origin τ = 61 on (window full since
+//     origin 30); the delay is the number of post-change origins up to and
+//     including the one whose evaluation enters degraded (so ≥ 1).
+//     Replications that were degraded before τ are left out (conditional
+//     delay) and counted.
+//   - Negative controls of target 5: "empirical" takes the 2.5%, 97.5% and
+//     99% quantiles (R type 7) of the MAE of every sliding window of n in
+//     the backtest; "bootstrap" is the moving-block bootstrap (Künsch 1989)
+//     of the window MAE with block length max(h, round(n^⅓)) = 3 and 1000
+//     resamples, with the same quantiles.
+//   - Random numbers: math/rand/v2 PCG, seeded by (hash of the cell's name,
+//     replication index), so results do not depend on scheduling; the
+//     replications of a cell run on all cores.
+
+import (
+	"flag"
+	"fmt"
+	"hash/fnv"
+	"math"
+	"math/rand/v2"
+	"runtime"
+	"slices"
+	"strings"
+	"sync"
+	"sync/atomic"
+	"testing"
+	"time"
+)
+
+var calibrationMode = flag.String("calibration", "",
+	`run the calibration benchmark of method.md §6: "ci" (short, looser bounds) or "full"; empty skips it`)
+
+// calProcess is a simulated error process of unit variance.
+type calProcess struct {
+	name string
+	lead int
+	// gen starts a sample path, independent of earlier ones, whose first
+	// value has time index t0 (which matters only to the seasonal process);
+	// each call of the returned function gives the next value.
+	gen func(r *rand.Rand, t0 int) func() float64
+}
+
+// path draws n values of a new sample path.
+func (p calProcess) path(r *rand.Rand, n, t0 int) []float64 {
+	next := p.gen(r, t0)
+	e := make([]float64, n)
+	for i := range e {
+		e[i] = next()
+	}
+	return e
+}
+
+func genIID(r *rand.Rand, _ int) func() float64 { return r.NormFloat64 }
+
+// genMA is the equal-weight moving average of q+1 innovations, scaled to
+// unit variance.
+func genMA(q int) func(*rand.Rand, int) func() float64 {
+	return func(r *rand.Rand, _ int) func() float64 {
+		w := 1 / math.Sqrt(float64(q+1))
+		ring := make([]float64, q+1)
+		var s float64
+		for i := range ring {
+			ring[i] = r.NormFloat64()
+			s += ring[i]
+		}
+		j := 0
+		return func() float64 {
+			e := s * w
+			z := r.NormFloat64()
+			s += z - ring[j]
+			ring[j] = z
+			if j++; j == q+1 { // recompute once a cycle: no drift in the running sum
+				j, s = 0, 0
+				for _, x := range ring {
+					s += x
+				}
+			}
+			return e
+		}
+	}
+}
+
+// genAR is AR(1) with coefficient phi, started in its stationary law and
+// scaled to unit variance.
+func genAR(phi float64) func(*rand.Rand, int) func() float64 {
+	return func(r *rand.Rand, _ int) func() float64 {
+		sd := math.Sqrt(1 - phi*phi)
+		x, started := r.NormFloat64(), false
+		return func() float64 {
+			if started {
+				x = phi*x + sd*r.NormFloat64()
+			}
+			started = true
+			return x
+		}
+	}
+}
+
+func genT3(r *rand.Rand, _ int) func() float64 {
+	return func() float64 {
+		a, b, c := r.NormFloat64(), r.NormFloat64(), r.NormFloat64()
+		return r.NormFloat64() / math.Sqrt((a*a+b*b+c*c)/3)
+	}
+}
+
+func genMix(r *rand.Rand, t0 int) func() float64 {
+	ma, ar := genMA(5)(r, t0), genAR(0.9)(r, t0)
+	a, b := math.Sqrt(0.7), math.Sqrt(0.3)
+	return func() float64 { return a*ma() + b*ar() }
+}
+
+func genSeasonal(r *rand.Rand, t0 int) func() float64 {
+	t := t0
+	return func() float64 {
+		e := r.NormFloat64() * (1 + 0.5*math.Sin(2*math.Pi*float64(t)/7))
+		t++
+		return e
+	}
+}
+
+var (
+	procIID      = calProcess{"iid N(0,1)", 1, genIID}
+	procMA5      = calProcess{"MA(5)", 6, genMA(5)}
+	procMA23     = calProcess{"MA(23)", 24, genMA(23)}
+	procAR5      = calProcess{"AR(1) φ=0.5", 1, genAR(0.5)}
+	procAR8      = calProcess{"AR(1) φ=0.8", 1, genAR(0.8)}
+	procAR9      = calProcess{"AR(1) φ=0.9", 1, genAR(0.9)}
+	procT3       = calProcess{"Student-t(3)", 1, genT3}
+	procMix      = calProcess{"mix 0.7 MA(5) + 0.3 AR(1) φ=0.9", 6, genMix}
+	procSeasonal = calProcess{"seasonal scale (period 7)", 1, genSeasonal}
+)
+
+// calSize is how many replications a mode runs.
+type calSize struct {
+	backtests   int // per exceedance cell (method.md: ≥ 200)
+	meBacktests int // target 3 (method.md: ≥ 2000)
+	runs        int // per run-length or delay cell
+	boot        int // bootstrap resamples per backtest
+}
+
+var calSizes = map[string]calSize{
+	"ci":   {backtests: 500, meBacktests: 5000, runs: 600, boot: 500},
+	"full": {backtests: 2000, meBacktests: 20000, runs: 2000, boot: 1000},
+}
+
+const (
+	calWindow   = 30   // live window n
+	calWindows  = 5000 // live windows per backtest
+	calTau      = 61   // first post-change origin in delay cells
+	calRLCap    = 20000
+	calDelayCap = 3000
+)
+
+// parallelFor runs f(0..n-1) on all cores.
+func parallelFor(n int, f func(i int)) {
+	var next atomic.Int64
+	var wg sync.WaitGroup
+	for range runtime.GOMAXPROCS(0) {
+		wg.Go(func() {
+			for {
+				i := int(next.Add(1)) - 1
+				if i >= n {
+					return
+				}
+				f(i)
+			}
+		})
+	}
+	wg.Wait()
+}
+
+func cellRand(cell string, i int) *rand.Rand {
+	h := fnv.New64a()
+	h.Write([]byte(cell))
+	return rand.New(rand.NewPCG(h.Sum64(), uint64(i)))
+}
+
+// quantile7 is R's type-7 quantile of sorted x.
+func quantile7(sorted []float64, p float64) float64 {
+	h := float64(len(sorted)-1) * p
+	lo := int(math.Floor(h))
+	if lo+1 >= len(sorted) {
+		return sorted[len(sorted)-1]
+	}
+	return sorted[lo] + (h-float64(lo))*(sorted[lo+1]-sorted[lo])
+}
+
+// bandMethod makes a band (lower 95%, upper 95%, upper 99%) for the window
+// MAE from the backtest |e|.
+type bandMethod int
+
+const (
+	methodAftercast bandMethod = iota // method.md §4
+	methodEmpirical                   // empirical quantiles of the backtest's windows
+	methodBootstrap                   // moving-block bootstrap
+)
+
+type exceedResult struct {
+	out95, up99   float64 // mean exceedance over backtests
+	se95, se99    float64 // their Monte Carlo standard errors
+	keff, usable  float64 // mean K_eff(|e|) and share of usable verdicts
+	unusableBands int
+}
+
+func exceedance(cell string, p calProcess, K int, m bandMethod, size calSize) exceedResult {
+	nb := size.backtests
+	out95, up99, keff := make([]float64, nb), make([]float64, nb), make([]float64, nb)
+	usable := make([]bool, nb)
+	var unusable atomic.Int64
+	n := calWindow
+	parallelFor(nb, func(b int) {
+		r := cellRand(cell, b)
+		q := Quantities(BandMAE, p.path(r, K, 0))
+		s := Summarize(q, p.lead)
+		keff[b], usable[b] = s.KEff, Usability(s).Usable
+		var lo, hi, hi99 float64
+		switch m {
+		case methodAftercast:
+			band := s.Band(BandMAE, n)
+			if !band.Usable() {
+				unusable.Add(1)
+				out95[b], up99[b] = math.NaN(), math.NaN()
+				return
+			}
+			lo, hi, hi99 = band.Lower, band.Upper, band.AlarmUpper
+		case methodEmpirical:
+			w := windowMeans(q, n)
+			slices.Sort(w)
+			lo, hi, hi99 = quantile7(w, 0.025), quantile7(w, 0.975), quantile7(w, 0.99)
+		case methodBootstrap:
+			blk := max(p.lead, int(math.Round(math.Cbrt(float64(n)))))
+			w := make([]float64, size.boot)
+			for i := range w {
+				var sum float64
+				for got := 0; got < n; {
+					start := r.IntN(K - blk + 1)
+					for j := 0; j < blk && got < n; j++ {
+						sum += q[start+j]
+						got++
+					}
+				}
+				w[i] = sum / float64(n)
+			}
+			slices.Sort(w)
+			lo, hi, hi99 = quantile7(w, 0.025), quantile7(w, 0.975), quantile7(w, 0.99)
+		}
+		live := p.path(r, calWindows+n-1, K)
+		var o, u int
+		for _, mae := range windowMeans(Quantities(BandMAE, live), n) {
+			if mae < lo || mae > hi {
+				o++
+			}
+			if mae > hi99 {
+				u++
+			}
+		}
+		out95[b], up99[b] = float64(o)/calWindows, float64(u)/calWindows
+	})
+	res := exceedResult{unusableBands: int(unusable.Load())}
+	res.out95, res.se95 = meanSE(out95)
+	res.up99, res.se99 = meanSE(up99)
+	res.keff, _ = meanSE(keff)
+	for _, ok := range usable {
+		if ok {
+			res.usable++
+		}
+	}
+	res.usable /= float64(nb)
+	return res
+}
+
+// windowMeans is the mean of every window of n consecutive values.
+func windowMeans(q []float64, n int) []float64 {
+	out := make([]float64, 0, len(q)-n+1)
+	var s float64
+	for i, x := range q {
+		s += x
+		if i >= n {
+			s -= q[i-n]
+		}
+		if i%1024 == 1023 && i >= n { // cancel accumulated rounding now and then
+			s = 0
+			for _, y := range q[i-n+1 : i+1] {
+				s += y
+			}
+		}
+		if i >= n-1 {
+			out = append(out, s/float64(n))
+		}
+	}
+	return out
+}
+
+// meanSE is the mean of the non-NaN values and its standard error.
+func meanSE(x []float64) (mean, se float64) {
+	var s, ss float64
+	k := 0
+	for _, v := range x {
+		if !math.IsNaN(v) {
+			s += v
+			ss += v * v
+			k++
+		}
+	}
+	if k == 0 {
+		return math.NaN(), math.NaN()
+	}
+	mean = s / float64(k)
+	if k > 1 {
+		se = math.Sqrt(math.Max(ss/float64(k)-mean*mean, 0) / float64(k-1))
+	}
+	return mean, se
+}
+
+func normalCDF(x float64) float64 { return 0.5 * math.Erfc(-x/math.Sqrt2) }
+
+// meExact is target 3: iid N(0,1), ME, K = 180, n = 30, each backtest's
+// exceedance in closed form (window ME ~ N(0, 1/30)).
+type meExactResult struct {
+	upper99  float64 // 1−Φ(hi99·√n), hi99 the upper end of the 99% alarm band (p = 0.995)
+	two99    float64 // both sides of the 99% alarm band
+	upperP99 float64 // 1−Φ(u·√n), u the one-sided p = 0.99 upper bound
+	two95    float64 // Φ(lo95·√n) + 1−Φ(hi95·√n)
+}
+
+func meExact(cell string, size calSize) meExactResult {
+	const K, n = 180, calWindow
+	nb := size.meBacktests
+	up, two, p99, b95 := make([]float64, nb), make([]float64, nb), make([]float64, nb), make([]float64, nb)
+	rn := math.Sqrt(n)
+	parallelFor(nb, func(b int) {
+		r := cellRand(cell, b)
+		s := Summarize(procIID.path(r, K, 0), 1)
+		band := s.Band(BandME, n)
+		u99, _ := s.Bound(BandME, n, 0.99)
+		up[b] = 1 - normalCDF(band.AlarmUpper*rn)
+		two[b] = normalCDF(band.AlarmLower*rn) + up[b]
+		p99[b] = 1 - normalCDF(u99*rn)
+		b95[b] = normalCDF(band.Lower*rn) + 1 - normalCDF(band.Upper*rn)
+	})
+	var res meExactResult
+	res.upper99, _ = meanSE(up)
+	res.two99, _ = meanSE(two)
+	res.upperP99, _ = meanSE(p99)
+	res.two95, _ = meanSE(b95)
+	return res
+}
+
+// runSpec is a run-length (change == nil) or detection-delay cell.
+type runSpec struct {
+	proc   calProcess
+	K      int
+	change func(e float64) float64 // applied from origin calTau on
+	// alarm restricts the alarm metrics for diagnostic rows: "" is the
+	// default rule (MAE and ME); "mae" or "me" disables the other metric's
+	// limits by setting them to ±Inf in the bands fed to the detector.
+	alarm string
+}
+
+type runResult struct {
+	median    float64
+	censored  int // no alarm within the cap
+	discarded int // degraded before the change (delay cells)
+	unusable  int // baseline verdict insufficient
+	count     int
+}
+
+func runLengths(cell string, spec runSpec, size calSize) runResult {
+	const n = calWindow
+	reps := size.runs
+	length := make([]float64, reps)
+	discarded, unusable := make([]bool, reps), make([]bool, reps)
+	limit := calRLCap
+	if spec.change != nil {
+		limit = calTau - 1 + calDelayCap
+	}
+	parallelFor(reps, func(i int) {
+		r := cellRand(cell, i)
+		back := spec.proc.path(r, spec.K, 0)
+		abs := Summarize(Quantities(BandMAE, back), spec.proc.lead)
+		bias := Summarize(back, spec.proc.lead)
+		// Windows with n < 7 are judged insufficient_data before any band
+		// is looked at, so they get zero-value bands.
+		var maeBands, meBands [n + 1]Band
+		sizes := make([]int, 0, n)
+		for k := DriftMinPairs; k <= n; k++ {
+			sizes = append(sizes, k)
+		}
+		copy(maeBands[DriftMinPairs:], abs.Bands(BandMAE, sizes...))
+		copy(meBands[DriftMinPairs:], bias.Bands(BandME, sizes...))
+		for k := DriftMinPairs; k <= n; k++ {
+			switch spec.alarm {
+			case "mae":
+				meBands[k].AlarmLower, meBands[k].AlarmUpper = math.Inf(-1), math.Inf(1)
+			case "me":
+				maeBands[k].AlarmUpper = math.Inf(1)
+			}
+		}
+		var d Detector
+		v := Usability(abs)
+		d.SetBaseline(v)
+		unusable[i] = !v.Usable
+		next := spec.proc.gen(r, spec.K)
+		var win [n]float64 // the last n errors, a ring
+		length[i] = math.Inf(1)
+		for t := 1; t <= limit; t++ {
+			e := next()
+			if spec.change != nil && t >= calTau {
+				e = spec.change(e)
+			}
+			win[(t-1)%n] = e
+			k := min(t, n)
+			var sa, se float64
+			for _, x := range win[:k] {
+				sa += math.Abs(x)
+				se += x
+			}
+			tr := d.Observe(Evaluation{N: k, MAE: sa / float64(k), ME: se / float64(k), MAEBand: maeBands[k], MEBand: meBands[k]})
+			if spec.change != nil && t < calTau && d.State == StateDegraded {
+				discarded[i] = true
+				return
+			}
+			if tr.Changed && tr.To == StateDegraded {
+				length[i] = float64(t)
+				if spec.change != nil {
+					length[i] = float64(t - calTau + 1)
+				}
+				return
+			}
+		}
+	})
+	var res runResult
+	var kept []float64
+	for i := range reps {
+		if unusable[i] {
+			res.unusable++
+		}
+		if discarded[i] {
+			res.discarded++
+			continue
+		}
+		if math.IsInf(length[i], 1) {
+			res.censored++
+		}
+		kept = append(kept, length[i])
+	}
+	res.count = len(kept)
+	slices.Sort(kept)
+	if len(kept) > 0 {
+		res.median = quantile7(kept, 0.5) // +Inf when more than half are censored
+	}
+	return res
+}
+
+// calRow is one line of the table.
+type calRow struct {
+	target   string
+	observed string
+	bound    string
+	ok       string // "yes", "NO" or "info"
+}
+
+type calTable struct {
+	rows   []calRow
+	failed []string
+}
+
+// check records a row whose observed value x must lie in [lo, hi].
+func (c *calTable) check(target string, x, lo, hi float64, pct bool) {
+	f := func(v float64) string {
+		if pct {
+			return fmt.Sprintf("%.2f%%", 100*v)
+		}
+		return fmt.Sprintf("%.1f", v)
+	}
+	var bound string
+	switch {
+	case math.IsInf(lo, -1):
+		bound = "≤ " + f(hi)
+	case math.IsInf(hi, 1):
+		if pct {
+			bound = "> " + f(lo)
+		} else {
+			bound = "≥ " + f(lo)
+		}
+	default:
+		bound = "[" + f(lo) + ", " + f(hi) + "]"
+	}
+	ok := "yes"
+	if !(x >= lo && x <= hi) {
+		ok = "NO"
+		c.failed = append(c.failed, target)
+	}
+	c.rows = append(c.rows, calRow{target, f(x), bound, ok})
+}
+
+func (c *calTable) info(target, observed, note string) {
+	c.rows = append(c.rows, calRow{target, observed, note, "info"})
+}
+
+func (c *calTable) String() string {
+	w := [3]int{len("target"), len("observed"), len("bound")}
+	for _, r := range c.rows {
+		w[0] = max(w[0], len([]rune(r.target)))
+		w[1] = max(w[1], len([]rune(r.observed)))
+		w[2] = max(w[2], len([]rune(r.bound)))
+	}
+	pad := func(s string, n int) string { return s + strings.Repeat(" ", max(0, n-len([]rune(s)))) }
+	var b strings.Builder
+	fmt.Fprintf(&b, "| %s | %s | %s | ok |\n", pad("target", w[0]), pad("observed", w[1]), pad("bound", w[2]))
+	fmt.Fprintf(&b, "|%s|%s|%s|----|\n", strings.Repeat("-", w[0]+2), strings.Repeat("-", w[1]+2), strings.Repeat("-", w[2]+2))
+	for _, r := range c.rows {
+		fmt.Fprintf(&b, "| %s | %s | %s | %s |\n", pad(r.target, w[0]), pad(r.observed, w[1]), pad(r.bound, w[2]), r.ok)
+	}
+	return b.String()
+}
+
+// bounds picks the full-mode bound (method.md §6) or the looser ci one.
+func bounds(ci bool, full, loose [2]float64) (float64, float64) {
+	if ci {
+		return loose[0], loose[1]
+	}
+	return full[0], full[1]
+}
+
+var inf = math.Inf(1)
+
+func TestCalibration(t *testing.T) {
+	t.Parallel()
+	mode := *calibrationMode
+	size, ok := calSizes[mode]
+	switch {
+	case mode == "":
+		t.Skip("calibration benchmark of method.md §6 is off by default; run it with " +
+			"go test ./scoring -run TestCalibration -calibration=full -v -timeout 30m (or -calibration=ci for the short run)")
+	case !ok:
+		t.Fatalf(`-calibration=%q: want "ci" or "full"`, mode)
+	}
+	ci := mode == "ci"
+	start := time.Now()
+	var tab calTable
+	pct := func(x float64) string { return fmt.Sprintf("%.2f%%", 100*x) }
+	highestDefault := 0.0 // of the 95% exceedances of targets 1, 2 and 4
+
+	// Targets 1 and 2: iid N(0,1), MAE, n = 30.
+	for _, c := range []struct {
+		K          int
+		in95, in99 [2]float64
+		ci95, ci99 [2]float64
+		tgt        string
+	}{
+		{180, [2]float64{0.045, 0.065}, [2]float64{0.006, 0.018}, [2]float64{0.040, 0.070}, [2]float64{0.004, 0.022}, "1"},
+		{365, [2]float64{0.043, 0.063}, [2]float64{0.005, 0.015}, [2]float64{0.038, 0.068}, [2]float64{0.003, 0.019}, "2"},
+	} {
+		r := exceedance(fmt.Sprintf("t%s iid K=%d", c.tgt, c.K), procIID, c.K, methodAftercast, size)
+		highestDefault = max(highestDefault, r.out95)
+		lo, hi := bounds(ci, c.in95, c.ci95)
+		tab.check(fmt.Sprintf("%s. iid, MAE, K=%d: 95%% band exceeded", c.tgt, c.K), r.out95, lo, hi, true)
+		lo, hi = bounds(ci, c.in99, c.ci99)
+		tab.check(fmt.Sprintf("%s. iid, MAE, K=%d: 99%% upper exceeded", c.tgt, c.K), r.up99, lo, hi, true)
+		tab.info(fmt.Sprintf("%s. (Monte Carlo s.e.; mean K_eff)", c.tgt), fmt.Sprintf("±%.2f%%, ±%.2f%%", 100*r.se95, 100*r.se99),
+			fmt.Sprintf("K_eff %.0f, %d backtests", r.keff, size.backtests))
+	}
+
+	// Target 3: iid N(0,1), ME, K = 180, exact. method.md writes hi99; the
+	// ME alarm band of §4 is two-sided, p = 0.005 and 0.995, so hi99 is read
+	// as its upper end (nominal 0.5% above it). The 3' rows give the two
+	// readings under which the target's figures are about a 1% exceedance.
+	me := meExact("t3 iid ME", size)
+	// method.md §6 asks [0.9%, 1.5%] here, which contradicts §4's two-sided
+	// 99% ME band (nominal 0.5% per side): full mode asserts §6 as written
+	// and fails; ci mode guards the method as implemented around its
+	// nominal 0.5%, so that a regression still shows.
+	lo, hi := bounds(ci, [2]float64{0.009, 0.015}, [2]float64{0.003, 0.009})
+	tab.check("3. iid, ME, K=180: 1−Φ(hi99·√30), hi99 = upper end of the 99% alarm band (p=0.995)", me.upper99, lo, hi, true)
+	lo, hi = bounds(ci, [2]float64{0.049, 0.062}, [2]float64{0.045, 0.066})
+	tab.check("3. iid, ME, K=180: Φ(lo95·√30)+1−Φ(hi95·√30)", me.two95, lo, hi, true)
+	tab.info("3'. same, both sides of the 99% alarm band (p=0.005, 0.995)", pct(me.two99), "nominal 1%")
+	tab.info("3'. same, 1−Φ(u·√30), u the one-sided p=0.99 bound", pct(me.upperP99), "nominal 1%")
+
+	// Target 4: autocorrelated and heavy-tailed errors, MAE, K = 365.
+	for _, c := range []struct {
+		p     calProcess
+		max99 float64
+		ci99  float64
+	}{
+		{procMA5, 0.025, 0.030}, {procMix, 0.025, 0.030},
+		{procAR8, 0.030, 0.036}, {procMA23, 0.030, 0.036}, {procT3, 0.030, 0.036},
+	} {
+		r := exceedance("t4 "+c.p.name, c.p, 365, methodAftercast, size)
+		highestDefault = max(highestDefault, r.out95)
+		if r.unusableBands > 0 {
+			tab.info(fmt.Sprintf("4. %s: backtests without a band", c.p.name), fmt.Sprint(r.unusableBands), "left out")
+		}
+		_, hi := bounds(ci, [2]float64{0, c.max99}, [2]float64{0, c.ci99})
+		tab.check(fmt.Sprintf("4. %s (h=%d), MAE, K=365: 99%% upper exceeded", c.p.name, c.p.lead), r.up99, -inf, hi, true)
+		_, hi = bounds(ci, [2]float64{0, 0.070}, [2]float64{0, 0.080})
+		tab.check(fmt.Sprintf("4. %s (h=%d), MAE, K=365: 95%% band exceeded", c.p.name, c.p.lead), r.out95, -inf, hi, true)
+		tab.info(fmt.Sprintf("4. %s: mean K_eff(|e|); share usable", c.p.name), fmt.Sprintf("%.0f; %.0f%%", r.keff, 100*r.usable),
+			"usable: K ≥ 180 and K_eff ≥ 30")
+	}
+	// The other processes of method.md §4's study, reported only.
+	for _, p := range []calProcess{procAR5, procAR9, procSeasonal} {
+		r := exceedance("info "+p.name, p, 365, methodAftercast, size)
+		tab.info(fmt.Sprintf("%s (h=%d), MAE, K=365: 95%%; 99%% upper", p.name, p.lead), pct(r.out95)+"; "+pct(r.up99),
+			fmt.Sprintf("§4 quotes 5.3–6.2%%; 1.0–2.4%% (K_eff %.0f, usable %.0f%%)", r.keff, 100*r.usable))
+	}
+
+	// Target 5: negative controls.
+	r := exceedance("t5 empirical iid K=180", procIID, 180, methodEmpirical, size)
+	lo, _ = bounds(ci, [2]float64{0.12, 0}, [2]float64{0.10, 0})
+	tab.check("5. empirical window quantiles, iid, K=180: 95% band exceeded", r.out95, lo, inf, true)
+	lowestControl := r.out95
+	for _, K := range []int{180, 365} {
+		r = exceedance(fmt.Sprintf("t5 bootstrap AR8 K=%d", K), procAR8, K, methodBootstrap, size)
+		lo, _ = bounds(ci, [2]float64{0.14, 0}, [2]float64{0.11, 0})
+		tab.check(fmt.Sprintf("5. block bootstrap (block 3), AR(1) φ=0.8, K=%d: 95%% band exceeded", K), r.out95, lo, inf, true)
+		lowestControl = min(lowestControl, r.out95)
+	}
+	gap := lowestControl - highestDefault
+	if ci {
+		// The short run must still tell the method from the controls.
+		tab.check("5. ci: lowest control − highest default 95% exceedance (targets 1, 2, 4)", gap, 0.03, inf, true)
+	} else {
+		tab.info("5. lowest control − highest default 95% exceedance (targets 1, 2, 4)", pct(gap), "")
+	}
+
+	// Target 6: the alarm rule at defaults, K = 365.
+	rl := func(name string, spec runSpec, target string, full, loose [2]float64) {
+		res := runLengths(name, spec, size)
+		lo, hi := bounds(ci, full, loose)
+		tab.check(target, res.median, lo, hi, false)
+		if res.censored+res.discarded+res.unusable > 0 {
+			tab.info("   runs kept", fmt.Sprintf("%d", res.count),
+				fmt.Sprintf("%d censored, %d degraded before the change, %d unusable baselines", res.censored, res.discarded, res.unusable))
+		}
+	}
+	scale := func(f float64) func(float64) float64 { return func(e float64) float64 { return f * e } }
+	// The in-control run lengths of §6 (iid 550–850, mix ≥ 500) are not
+	// reachable by §5's rule "MAE above its 99% limit or ME outside its 99%
+	// band": the two alarms together fire about twice as often as either
+	// (see the 6' rows). Full mode asserts §6 and fails; ci mode guards the
+	// rule as implemented (full-mode medians 247 and 380) against regressions.
+	rl("t6 rl iid", runSpec{procIID, 365, nil, ""}, "6. iid: median in-control run length (origins)",
+		[2]float64{550, 850}, [2]float64{180, 400})
+	rl("t6 rl mix", runSpec{procMix, 365, nil, ""}, "6. mix: median in-control run length (origins)",
+		[2]float64{500, inf}, [2]float64{250, inf})
+	// Diagnostics: the in-control run length with one alarm metric only.
+	for _, c := range []struct {
+		p     calProcess
+		alarm string
+	}{{procIID, "mae"}, {procIID, "me"}, {procMix, "mae"}, {procMix, "me"}} {
+		res := runLengths("diag rl "+c.p.name+" "+c.alarm, runSpec{c.p, 365, nil, c.alarm}, size)
+		tab.info(fmt.Sprintf("6'. %s: median in-control run length, %s alarm only", c.p.name, strings.ToUpper(c.alarm)),
+			fmt.Sprintf("%.1f", res.median), fmt.Sprintf("diagnostic (%d censored of %d)", res.censored, res.count))
+	}
+	for _, c := range []struct {
+		p          calProcess
+		name       string
+		change     func(float64) float64
+		max, loose float64
+	}{
+		{procIID, "iid, scale ×1.5", scale(1.5), 25, 30},
+		{procIID, "iid, scale ×2", scale(2), 14, 17},
+		{procIID, "iid, scale ×1.25", scale(1.25), 50, 60},
+		{procIID, "iid, ME bias +1 sd", func(e float64) float64 { return e + 1 }, 16, 19},
+		{procMix, "mix, scale ×2", scale(2), 32, 38},
+		{procMix, "mix, scale ×1.5", scale(1.5), 65, 78},
+	} {
+		rl("t6 delay "+c.name, runSpec{c.p, 365, c.change, ""}, "6. "+c.name+": median detection delay (origins)",
+			[2]float64{-inf, c.max}, [2]float64{-inf, c.loose})
+	}
+	res := runLengths("diag delay bias mae", runSpec{procIID, 365, func(e float64) float64 { return e + 1 }, "mae"}, size)
+	tab.info("6'. iid, ME bias +1 sd: median delay, MAE alarm only", fmt.Sprintf("%.1f", res.median), "diagnostic")
+
+	wall := time.Since(start)
+	table := tab.String()
+	t.Logf("calibration (%s: %d backtests per exceedance cell, %d for target 3, %d runs per run-length cell; %d CPUs) in %v\n%s",
+		mode, size.backtests, size.meBacktests, size.runs, runtime.GOMAXPROCS(0), wall.Round(time.Second), table)
+	if len(tab.failed) > 0 {
+		t.Errorf("calibration targets missed: %s", strings.Join(tab.failed, "; "))
+	}
+}
