@@ -55,16 +55,45 @@ func metricsToProto(m scoring.Metrics) *aftercastv1.AccuracyMetrics {
 }
 
 func (s *accuracyService) GetAccuracy(ctx context.Context, req *aftercastv1.GetAccuracyRequest) (*aftercastv1.GetAccuracyResponse, error) {
-	// The MASE scale comes from a baseline's training actuals; until one is
-	// imported MASE is null.
-	res, err := s.store.Accuracy(ctx, req.GetSeries(), req.GetModel(), toSelection(req.GetSelection()), math.NaN())
+	// The MASE scale comes from the active baseline's training actuals;
+	// without one MASE is null.
+	scale, err := s.store.ActiveScale(ctx, req.GetSeries(), req.GetModel())
+	if err != nil {
+		return nil, s.status(ctx, err)
+	}
+	res, err := s.store.Accuracy(ctx, req.GetSeries(), req.GetModel(), toSelection(req.GetSelection()), scale)
 	if err != nil {
 		return nil, s.status(ctx, err)
 	}
 	out := &aftercastv1.GetAccuracyResponse{Series: res.Series.Key, Model: req.GetModel(), Step: res.Series.Step,
 		Overall: metricsToProto(res.Table.Overall), OverallLateCount: res.Late}
+	// Beside each lead: the baseline band for that lead's own number of
+	// pairs, and the lead's current drift state.
+	ns := map[int]int{}
 	for _, l := range res.Table.Leads {
-		out.Leads = append(out.Leads, &aftercastv1.LeadAccuracy{Lead: int32(l.Lead), Metrics: metricsToProto(l.Metrics), LateCount: res.LateBy[l.Lead]})
+		ns[l.Lead] = int(l.N)
+	}
+	version, views, err := s.store.ActiveLeadViews(ctx, req.GetSeries(), req.GetModel(), ns)
+	if err != nil {
+		return nil, s.status(ctx, err)
+	}
+	states := map[int]store.DriftStatus{}
+	if version > 0 {
+		sts, err := s.store.DriftStates(ctx, req.GetSeries(), req.GetModel())
+		if err != nil {
+			return nil, s.status(ctx, err)
+		}
+		for _, st := range sts {
+			states[st.Lead] = st
+		}
+	}
+	for _, l := range res.Table.Leads {
+		la := &aftercastv1.LeadAccuracy{Lead: int32(l.Lead), Metrics: metricsToProto(l.Metrics), LateCount: res.LateBy[l.Lead]}
+		if v, ok := views[l.Lead]; ok {
+			la.Baseline = &aftercastv1.LeadBaselineComparison{BaselineVersion: int32(version), K: int32(v.K), KEff: v.KEff,
+				WindowN: int32(l.N), State: stateToProto[states[l.Lead].State], Mae: bandToProto(v.MAE), Rmse: bandToProto(v.RMSE), Me: bandToProto(v.ME)}
+		}
+		out.Leads = append(out.Leads, la)
 	}
 	return out, nil
 }

@@ -6,6 +6,7 @@ import (
 	"fmt"
 	"io"
 	"math"
+	"time"
 
 	aftercastv1 "github.com/aftercast/aftercast/api/aftercast/v1"
 	"github.com/aftercast/aftercast/server/store"
@@ -156,31 +157,65 @@ func actualSummary(ack store.Ack) *aftercastv1.ActualPushSummary {
 }
 
 func (s *actualService) PushActuals(ctx context.Context, req *aftercastv1.PushActualsRequest) (*aftercastv1.PushActualsResponse, error) {
-	ack, err := s.store.WriteActuals(ctx, toActuals(req.GetActuals()), 0)
+	as := toActuals(req.GetActuals())
+	ack, err := s.store.WriteActuals(ctx, as, 0)
 	if err != nil {
 		return nil, s.status(ctx, err)
 	}
+	s.evaluateDrift(ctx, actualSeries(as, nil))
 	return &aftercastv1.PushActualsResponse{Summary: actualSummary(ack)}, nil
 }
 
+// actualSeries adds the series keys of as to seen and returns them all.
+func actualSeries(as []store.Actual, seen map[string]bool) []string {
+	if seen == nil {
+		seen = map[string]bool{}
+	}
+	for _, a := range as {
+		seen[a.Series] = true
+	}
+	keys := make([]string, 0, len(seen))
+	for k := range seen {
+		keys = append(keys, k)
+	}
+	return keys
+}
+
+// evaluateEvery bounds how long a long actuals stream goes without its
+// drift states being brought up to date.
+const evaluateEvery = 2 * time.Second
+
 // StreamActuals: same commit-per-message semantics as StreamForecasts.
+// Drift is re-evaluated every few seconds during the stream and at its end;
+// evaluation is idempotent, so how often does not change the states.
 func (s *actualService) StreamActuals(stream aftercastv1.ActualService_StreamActualsServer) error {
 	ctx := stream.Context()
 	var total store.Ack
 	n := 0
+	pending := map[string]bool{}
+	last := time.Now()
 	for {
 		req, err := stream.Recv()
 		if errors.Is(err, io.EOF) {
+			s.evaluateDrift(ctx, actualSeries(nil, pending))
 			return stream.SendAndClose(&aftercastv1.StreamActualsResponse{Summary: actualSummary(total)})
 		}
 		if err != nil {
+			s.evaluateDrift(context.WithoutCancel(ctx), actualSeries(nil, pending))
 			return err
 		}
-		ack, err := s.store.WriteActuals(ctx, toActuals(req.GetActuals()), n)
+		as := toActuals(req.GetActuals())
+		ack, err := s.store.WriteActuals(ctx, as, n)
 		if err != nil {
 			return s.status(ctx, err)
 		}
 		total.Add(ack)
-		n += len(req.GetActuals())
+		n += len(as)
+		actualSeries(as, pending)
+		if time.Since(last) > evaluateEvery {
+			s.evaluateDrift(ctx, actualSeries(nil, pending))
+			clear(pending)
+			last = time.Now()
+		}
 	}
 }

@@ -234,6 +234,8 @@ func (s *Server) newGRPC() *grpc.Server {
 	aftercastv1.RegisterForecastServiceServer(srv, &forecastService{api: api})
 	aftercastv1.RegisterActualServiceServer(srv, &actualService{api: api})
 	aftercastv1.RegisterAccuracyServiceServer(srv, &accuracyService{api: api})
+	aftercastv1.RegisterBaselineServiceServer(srv, &baselineService{api: api})
+	aftercastv1.RegisterDriftServiceServer(srv, &driftService{api: api})
 	s.health = health.NewServer()
 	healthpb.RegisterHealthServer(srv, s.health)
 	for name := range srv.GetServiceInfo() {

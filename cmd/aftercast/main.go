@@ -29,6 +29,9 @@ func commands() []command {
 		{"push", "push forecasts or actuals from a CSV file (client)", runPush},
 		{"accuracy", "per-lead accuracy of a series and model (client)", runAccuracy},
 		{"pairs", "export the scored pairs of a series and model (client)", runPairs},
+		{"baseline", "import a backtest as a baseline, or show one (client)", runBaseline},
+		{"drift", "current drift states, series-level first (client)", runDrift},
+		{"events", "drift events, or follow them as they happen (client)", runEvents},
 		{"evaluate", "score a CSV of forecasts and actuals offline, per lead", runEvaluate},
 	}
 }

@@ -180,11 +180,15 @@ func orMax(t time.Time) time.Time {
 }
 
 func (s *Store) readForecasts(ctx context.Context, seriesID int64, model string, lo, hi time.Time, desc bool) ([]storedForecast, error) {
+	return readForecastsQ(ctx, s.pool, seriesID, model, lo, hi, desc)
+}
+
+func readForecastsQ(ctx context.Context, q querier, seriesID int64, model string, lo, hi time.Time, desc bool) ([]storedForecast, error) {
 	order := "ASC"
 	if desc {
 		order = "DESC"
 	}
-	rows, err := s.pool.Query(ctx, `SELECT origin, vals, late, received_at FROM forecasts
+	rows, err := q.Query(ctx, `SELECT origin, vals, late, received_at FROM forecasts
 		WHERE series_id = $1 AND model = $2 AND origin >= $3 AND origin < $4
 		ORDER BY origin `+order+` LIMIT $5`, seriesID, model, orMin(lo), orMax(hi), chunkOrigins)
 	if err != nil {
@@ -205,7 +209,11 @@ func (s *Store) readForecasts(ctx context.Context, seriesID int64, model string,
 }
 
 func (s *Store) readActuals(ctx context.Context, seriesID int64, lo, hi time.Time) (map[int64]storedActual, error) {
-	rows, err := s.pool.Query(ctx, `SELECT time, value, first_received_at FROM actuals
+	return readActualsQ(ctx, s.pool, seriesID, lo, hi)
+}
+
+func readActualsQ(ctx context.Context, q querier, seriesID int64, lo, hi time.Time) (map[int64]storedActual, error) {
+	rows, err := q.Query(ctx, `SELECT time, value, first_received_at FROM actuals
 		WHERE series_id = $1 AND time > $2 AND time <= $3`, seriesID, lo, hi)
 	if err != nil {
 		return nil, fmt.Errorf("reading actuals: %w", err)

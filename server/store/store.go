@@ -87,11 +87,15 @@ type Store struct {
 	// refused), so caching them by key is safe across replicas.
 	mu     sync.RWMutex
 	series map[string]*Series
+
+	// Prepared baseline versions; a version never changes once stored.
+	bmu       sync.Mutex
+	baselines map[baselineKey]*baselineModel
 }
 
 // New returns a Store over pool; the schema must be migrated (see Migrate).
 func New(pool *pgxpool.Pool, limits Limits) *Store {
-	return &Store{pool: pool, limits: limits.withDefaults(), series: make(map[string]*Series)}
+	return &Store{pool: pool, limits: limits.withDefaults(), series: make(map[string]*Series), baselines: make(map[baselineKey]*baselineModel)}
 }
 
 // Limits returns the limits in force.

@@ -39,7 +39,9 @@ CREATE TABLE drift_states (
     lead             integer NOT NULL,
     baseline_version integer NOT NULL,
     state            text NOT NULL,
+    state_since      timestamptz NOT NULL,
     machine          jsonb NOT NULL,
+    snapshot         jsonb NOT NULL, -- the last evaluation's window values, bands and limits
     last_origin      timestamptz,
     updated_at       timestamptz NOT NULL,
     PRIMARY KEY (series_id, model, lead)

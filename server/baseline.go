@@ -1,0 +1,199 @@
+package server
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"io"
+	"math"
+	"strconv"
+
+	"google.golang.org/protobuf/types/known/timestamppb"
+
+	aftercastv1 "github.com/aftercast/aftercast/api/aftercast/v1"
+	"github.com/aftercast/aftercast/scoring"
+	"github.com/aftercast/aftercast/server/store"
+)
+
+// maxBaselineRows bounds one import held in memory before its commit
+// (about 100 MB at this size).
+const maxBaselineRows = 2_000_000
+
+type baselineService struct {
+	*api
+	aftercastv1.UnimplementedBaselineServiceServer
+}
+
+func (s *baselineService) ImportBaseline(stream aftercastv1.BaselineService_ImportBaselineServer) error {
+	ctx := stream.Context()
+	var (
+		model    string
+		rows     []store.BacktestRow
+		training []store.TrainingActual
+		first    = true
+	)
+	for {
+		req, err := stream.Recv()
+		if errors.Is(err, io.EOF) {
+			break
+		}
+		if err != nil {
+			return err
+		}
+		switch {
+		case first:
+			model, first = req.GetModel(), false
+			if model == "" {
+				return invalidArg("model", "required in the first message")
+			}
+		case req.GetModel() != "" && req.GetModel() != model:
+			return invalidArg("model", fmt.Sprintf("one import is of one model: %q, then %q", model, req.GetModel()))
+		}
+		if len(rows)+len(req.GetRows()) > maxBaselineRows || len(training)+len(req.GetTrainingActuals()) > maxBaselineRows {
+			return invalidArg("rows", fmt.Sprintf("an import holds at most %d backtest rows and %d training actuals", maxBaselineRows, maxBaselineRows))
+		}
+		for _, r := range req.GetRows() {
+			rows = append(rows, store.BacktestRow{Series: r.GetSeries(), Origin: r.GetOriginTime().AsTime(), Target: r.GetTargetTime().AsTime(),
+				Forecast: r.GetForecast(), Actual: r.GetActual()})
+		}
+		for _, t := range req.GetTrainingActuals() {
+			training = append(training, store.TrainingActual{Series: t.GetSeries(), Time: t.GetTime().AsTime(), Value: t.GetValue()})
+		}
+	}
+	vs, err := s.store.ImportBaseline(ctx, model, rows, training, s.leadUsability)
+	if err != nil {
+		return s.status(ctx, err)
+	}
+	// A new version restarts the detectors; judge what is stored already.
+	var keys []string
+	for _, v := range vs {
+		if v.Created {
+			keys = append(keys, v.Series)
+		}
+	}
+	s.evaluateDrift(ctx, keys)
+	resp := &aftercastv1.ImportBaselineResponse{Model: model}
+	for _, v := range vs {
+		resp.Baselines = append(resp.Baselines, &aftercastv1.ImportedBaseline{Version: versionToProto(v), Created: v.Created})
+	}
+	return stream.SendAndClose(resp)
+}
+
+var warningKinds = map[string]aftercastv1.BaselineWarningKind{
+	store.WarnCadence:         aftercastv1.BaselineWarningKind_BASELINE_WARNING_KIND_ORIGIN_CADENCE_DIFFERS,
+	store.WarnHorizon:         aftercastv1.BaselineWarningKind_BASELINE_WARNING_KIND_HORIZON_DIFFERS,
+	store.WarnLeadNotUsable:   aftercastv1.BaselineWarningKind_BASELINE_WARNING_KIND_LEAD_NOT_USABLE,
+	store.WarnNoTraining:      aftercastv1.BaselineWarningKind_BASELINE_WARNING_KIND_NO_TRAINING_ACTUALS,
+	store.WarnTrainingIgnored: aftercastv1.BaselineWarningKind_BASELINE_WARNING_KIND_TRAINING_ACTUALS_IGNORED,
+}
+
+func versionToProto(v store.BaselineVersion) *aftercastv1.BaselineVersion {
+	p := &aftercastv1.BaselineVersion{Series: v.Series, Model: v.Model, Version: int32(v.Version), Active: v.Active,
+		CreateTime: timestamppb.New(v.CreatedAt), FirstOriginTime: timestamppb.New(v.FirstOrigin), LastOriginTime: timestamppb.New(v.LastOrigin),
+		OriginCadenceSteps: int32(v.CadenceSteps), MaxLead: int32(v.MaxLead), RowCount: v.Rows, TrainingActualCount: v.TrainingCount}
+	if !math.IsNaN(v.MASEScale) {
+		p.MaseScale = &v.MASEScale
+	}
+	for _, w := range v.Warnings {
+		pw := &aftercastv1.BaselineWarning{Kind: warningKinds[w.Kind], Message: w.Message}
+		if w.Lead > 0 {
+			l := int32(w.Lead)
+			pw.Lead = &l
+		}
+		p.Warnings = append(p.Warnings, pw)
+	}
+	return p
+}
+
+// ListBaselineVersions pages with an offset token; versions are few.
+func (s *baselineService) ListBaselineVersions(ctx context.Context, req *aftercastv1.ListBaselineVersionsRequest) (*aftercastv1.ListBaselineVersionsResponse, error) {
+	size, err := pageSize(req.GetPageSize(), 100, 1000)
+	if err != nil {
+		return nil, err
+	}
+	off, err := offsetToken(req.GetPageToken())
+	if err != nil {
+		return nil, err
+	}
+	vs, err := s.store.ListBaselineVersions(ctx, req.GetSeries(), req.GetModel())
+	if err != nil {
+		return nil, s.status(ctx, err)
+	}
+	resp := &aftercastv1.ListBaselineVersionsResponse{}
+	for i := off; i < len(vs) && i < off+size; i++ {
+		resp.Versions = append(resp.Versions, versionToProto(vs[i]))
+	}
+	if off+size < len(vs) {
+		resp.NextPageToken = strconv.Itoa(off + size)
+	}
+	return resp, nil
+}
+
+func pageSize(req int32, def, limit int) (int, error) {
+	switch {
+	case req < 0:
+		return 0, invalidArg("page_size", "must not be negative")
+	case req == 0:
+		return def, nil
+	}
+	return min(int(req), limit), nil
+}
+
+func offsetToken(tok string) (int, error) {
+	if tok == "" {
+		return 0, nil
+	}
+	n, err := strconv.Atoi(tok)
+	if err != nil || n < 0 {
+		return 0, invalidArg("page_token", "not a token this service issued")
+	}
+	return n, nil
+}
+
+// leadUsability judges whether a lead's backtest can judge drift
+// (method.md §4); "" when usable.
+func (a *api) leadUsability(_ *store.Series, l store.BaselineLead) string {
+	return store.LeadUsability(l)
+}
+
+// GetBaseline returns a version with per-lead expectations, bands and
+// limits for the requested window size.
+func (s *baselineService) GetBaseline(ctx context.Context, req *aftercastv1.GetBaselineRequest) (*aftercastv1.GetBaselineResponse, error) {
+	n := store.WindowN
+	if req.WindowN != nil {
+		n = int(req.GetWindowN())
+	}
+	v, leads, pooled, err := s.store.BaselineView(ctx, req.GetSeries(), req.GetModel(), int(req.GetVersion()), n)
+	if err != nil {
+		return nil, s.status(ctx, err)
+	}
+	resp := &aftercastv1.GetBaselineResponse{Version: versionToProto(v), WindowN: int32(n)}
+	for _, l := range leads {
+		resp.Leads = append(resp.Leads, leadViewToProto(l))
+	}
+	if pooled != nil {
+		resp.Pooled = leadViewToProto(*pooled)
+	}
+	return resp, nil
+}
+
+func bandToProto(b scoring.Band) *aftercastv1.MetricBand {
+	if !b.Usable() || b.Metric == "" {
+		return nil
+	}
+	p := &aftercastv1.MetricBand{Expected: b.Expected, BandLower: b.Lower, BandUpper: b.Upper, AlarmUpper: b.AlarmUpper, KEff: b.KEff}
+	if !math.IsInf(b.AlarmLower, -1) && !math.IsNaN(b.AlarmLower) {
+		lo := b.AlarmLower
+		p.AlarmLower = &lo
+	}
+	return p
+}
+
+func leadViewToProto(l store.LeadView) *aftercastv1.BaselineLead {
+	p := &aftercastv1.BaselineLead{Lead: int32(l.Lead), K: int32(l.K), KEff: l.KEff, Mae: bandToProto(l.MAE), Rmse: bandToProto(l.RMSE),
+		Me: bandToProto(l.ME), Usable: l.Usable, UnusableReason: l.Reason}
+	if l.Lead > 0 {
+		p.Expected = metricsToProto(l.Expected)
+	}
+	return p
+}

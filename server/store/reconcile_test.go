@@ -1,0 +1,133 @@
+package store_test
+
+import (
+	"math"
+	"testing"
+	"time"
+
+	"github.com/aftercast/aftercast/server/store"
+	"github.com/aftercast/aftercast/server/store/storetest"
+)
+
+// A batch of actuals counts each item against the value it meets, exactly as
+// if the items had been pushed one by one (method.md §3): a repeat of the
+// stored value is a duplicate, a change is a revision, in batch order.
+func TestActualBatchCountsAreSequential(t *testing.T) {
+	t.Parallel()
+	s := storetest.Store(t)
+	ctx := ctxT(t)
+	mustSeries(t, s, "p", "1h", 3)
+	at := t0.Add(time.Hour)
+	if a, err := s.WriteActuals(ctx, []store.Actual{{Series: "p", Time: at, Value: 5}}, 0); err != nil || a.Accepted != 1 {
+		t.Fatalf("first actual: %+v %v", a, err)
+	}
+	for _, tc := range []struct {
+		name         string
+		values       []float64 // pushed in one batch onto the stored value
+		dup, revised int64
+	}{
+		// 5 meets 5: duplicate; 6 meets 5: revised.
+		{name: "repeat then change", values: []float64{5, 6}, dup: 1, revised: 1},
+		// 5 meets 6: revised; 5 meets 5: duplicate.
+		{name: "back and repeat", values: []float64{5, 5}, dup: 1, revised: 1},
+		// 7 meets 5: revised; 5 meets 7: revised (back to the stored value).
+		{name: "change and back", values: []float64{7, 5}, revised: 2},
+	} {
+		as := make([]store.Actual, len(tc.values))
+		for i, v := range tc.values {
+			as[i] = store.Actual{Series: "p", Time: at, Value: v}
+		}
+		a, err := s.WriteActuals(ctx, as, 0)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if a.Duplicate != tc.dup || a.Revised != tc.revised || a.Accepted != 0 {
+			t.Errorf("%s %v: ack %+v, want %d duplicate %d revised (as if pushed one by one)", tc.name, tc.values, a, tc.dup, tc.revised)
+		}
+	}
+}
+
+// Origins and actual times are stored to the microsecond. A forecast whose
+// origin carries nanoseconds must still meet the hindsight guard and merge
+// with its stored vector: either it is refused, or it is treated as the
+// stored (truncated) origin — never scored after its actual was known, and
+// never the cause of an acknowledged value being lost.
+func TestSubMicrosecondOrigin(t *testing.T) {
+	t.Parallel()
+	s := storetest.Store(t)
+	ctx := ctxT(t)
+	mustSeries(t, s, "p", "1h", 3)
+	h := time.Hour
+	origin := t0.Add(500 * time.Nanosecond)
+
+	// The actual of lead 1's target is known before the forecast arrives.
+	if _, err := s.WriteActuals(ctx, []store.Actual{{Series: "p", Time: t0.Add(h), Value: 5}}, 0); err != nil {
+		t.Fatal(err)
+	}
+	ack, err := s.WriteForecasts(ctx, []store.ForecastVector{{Series: "p", Model: "m", Origin: origin, Values: []float64{4, 2}}}, 0)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if ack.Rejected == 2 {
+		return // refusing off-grid origins is a correct answer too
+	}
+	if ack.Late != 1 || ack.Accepted != 1 {
+		t.Errorf("first push: ack %+v, want lead 1 late (its actual was known) and lead 2 accepted", ack)
+	}
+	// A sparse re-issue of lead 2 must not wipe lead 1.
+	ack, err = s.WriteForecasts(ctx, []store.ForecastVector{{Series: "p", Model: "m", Origin: origin, Values: []float64{math.NaN(), 3}}}, 0)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if ack.Accepted != 1 {
+		t.Errorf("sparse re-issue: ack %+v, want 1 accepted", ack)
+	}
+	// The same vector again is a duplicate.
+	ack, err = s.WriteForecasts(ctx, []store.ForecastVector{{Series: "p", Model: "m", Origin: origin, Values: []float64{math.NaN(), 3}}}, 0)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if ack.Duplicate != 1 {
+		t.Errorf("repeat: ack %+v, want 1 duplicate", ack)
+	}
+	if _, err := s.WriteActuals(ctx, []store.Actual{{Series: "p", Time: t0.Add(2 * h), Value: 1}}, 0); err != nil {
+		t.Fatal(err)
+	}
+	res, err := s.Accuracy(ctx, "p", "m", store.Selection{}, math.NaN())
+	if err != nil {
+		t.Fatal(err)
+	}
+	if res.Late != 1 || res.Table.Overall.N != 1 {
+		t.Errorf("accuracy: late %d scored %d, want lead 1 late and lead 2 scored (the hindsight guard)", res.Late, res.Table.Overall.N)
+	}
+	pairs, _, err := s.Pairs(ctx, "p", "m", store.Selection{}, "", 10)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(pairs) != 2 || pairs[0].Forecast != 4 || !pairs[0].Late || pairs[1].Forecast != 3 {
+		t.Errorf("pairs %+v, want lead 1 (4, late) and lead 2 (3)", pairs)
+	}
+}
+
+// Two items whose times differ below a microsecond are one stored row: a
+// batch holding both must not fail (PostgreSQL refuses an upsert that
+// touches a row twice) — they are either refused or merged like repeats.
+func TestSubMicrosecondTimesInOneBatch(t *testing.T) {
+	t.Parallel()
+	s := storetest.Store(t)
+	ctx := ctxT(t)
+	mustSeries(t, s, "p", "1h", 3)
+	at := t0.Add(time.Hour)
+	if _, err := s.WriteActuals(ctx, []store.Actual{
+		{Series: "p", Time: at.Add(100 * time.Nanosecond), Value: 1},
+		{Series: "p", Time: at.Add(200 * time.Nanosecond), Value: 2},
+	}, 0); err != nil {
+		t.Errorf("actuals 100 ns apart: %v", err)
+	}
+	if _, err := s.WriteForecasts(ctx, []store.ForecastVector{
+		{Series: "p", Model: "m", Origin: t0.Add(100 * time.Nanosecond), Values: []float64{1}},
+		{Series: "p", Model: "m", Origin: t0.Add(200 * time.Nanosecond), Values: []float64{2}},
+	}, 0); err != nil {
+		t.Errorf("forecast vectors 100 ns apart: %v", err)
+	}
+}
