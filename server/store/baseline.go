@@ -129,6 +129,9 @@ func (s *Store) ImportBaseline(ctx context.Context, model string, rows []Backtes
 		case se == nil:
 			bad(fmt.Sprintf("rows[%d].series", i), "unknown series %q: create it first", r.Series)
 			continue
+		case !wholeMicros(r.Origin) || !wholeMicros(r.Target):
+			bad(fmt.Sprintf("rows[%d].origin_time", i), subMicro)
+			continue
 		case math.IsNaN(r.Forecast) || math.IsInf(r.Forecast, 0):
 			bad(fmt.Sprintf("rows[%d].forecast", i), "not a finite number")
 			continue
@@ -171,6 +174,8 @@ func (s *Store) ImportBaseline(ctx context.Context, model string, rows []Backtes
 			bad(fmt.Sprintf("training_actuals[%d].series", i), "series %q has no backtest rows in this import", t.Series)
 		case math.IsNaN(t.Value) || math.IsInf(t.Value, 0):
 			bad(fmt.Sprintf("training_actuals[%d].value", i), "not a finite number")
+		case !wholeMicros(t.Time):
+			bad(fmt.Sprintf("training_actuals[%d].time", i), subMicro)
 		default:
 			u.training = append(u.training, t)
 		}

@@ -138,6 +138,8 @@ func (s *Store) WriteForecasts(ctx context.Context, vs []ForecastVector, firstIn
 			reject(i, 0, "model", "want 1–200 characters of A-Z a-z 0-9 _ . : / -")
 		case v.Origin.IsZero():
 			reject(i, 0, "origin", "missing")
+		case !wholeMicros(v.Origin):
+			reject(i, 0, "origin", subMicro)
 		case len(v.Values) == 0:
 			reject(i, 0, "values", "no forecast values")
 		case n == 0:
@@ -461,7 +463,8 @@ func storeForecasts(ctx context.Context, tx pgx.Tx, rows map[forecastKey]*foreca
 
 // WriteActuals stores a batch of actuals: a new time is accepted, a changed
 // value revises the stored one (first_received_at stays), an identical
-// value is a duplicate. Within a batch the last value for a time wins.
+// value is a duplicate. Items are counted as if pushed one by one in batch
+// order, so the last value for a time wins.
 func (s *Store) WriteActuals(ctx context.Context, as []Actual, firstIndex int) (Ack, error) {
 	var ack Ack
 	if len(as) > s.limits.MaxBatch {
@@ -479,12 +482,8 @@ func (s *Store) WriteActuals(ctx context.Context, as []Actual, firstIndex int) (
 		id int64
 		t  int64
 	}
-	latest := make(map[key]int, len(as)) // → index into ids/times/vals
-	var (
-		ids   []int64
-		times []time.Time
-		vals  []float64
-	)
+	chains := map[key][]float64{} // values pushed for a time, in batch order
+	var order []key
 	for i, a := range as {
 		se := series[a.Series]
 		var field, reason string
@@ -493,6 +492,8 @@ func (s *Store) WriteActuals(ctx context.Context, as []Actual, firstIndex int) (
 			field, reason = "series", fmt.Sprintf("unknown series %q: create it first", a.Series)
 		case a.Time.IsZero():
 			field, reason = "time", "missing"
+		case !wholeMicros(a.Time):
+			field, reason = "time", subMicro
 		case math.IsNaN(a.Value) || math.IsInf(a.Value, 0):
 			field, reason = "value", "not a finite number"
 		}
@@ -502,41 +503,74 @@ func (s *Store) WriteActuals(ctx context.Context, as []Actual, firstIndex int) (
 			continue
 		}
 		k := key{se.ID, a.Time.UnixNano()}
-		if j, ok := latest[k]; ok {
-			if vals[j] == a.Value {
-				ack.Duplicate++
-			} else {
-				ack.Revised++
-				vals[j] = a.Value
-			}
-			continue
+		if _, ok := chains[k]; !ok {
+			order = append(order, k)
 		}
-		latest[k] = len(ids)
-		ids, times, vals = append(ids, se.ID), append(times, a.Time), append(vals, a.Value)
+		chains[k] = append(chains[k], a.Value)
 	}
-	if len(ids) == 0 {
+	if len(order) == 0 {
 		return ack, nil
+	}
+	ids, times := make([]int64, len(order)), make([]time.Time, len(order))
+	for i, k := range order {
+		ids[i], times[i] = k.id, time.Unix(0, k.t)
 	}
 	err = s.inTx(ctx, func(tx pgx.Tx) error {
 		if err := lockSeries(ctx, tx, ids); err != nil {
 			return err
 		}
-		var inserted, revised int64
-		err := tx.QueryRow(ctx, `WITH up AS (
-				INSERT INTO actuals (series_id, time, value, first_received_at, received_at)
-				SELECT series_id, time, value, $4, $4 FROM unnest($1::bigint[], $2::timestamptz[], $3::float8[]) AS u(series_id, time, value)
-				ON CONFLICT (series_id, time) DO UPDATE
-					SET value = excluded.value, received_at = excluded.received_at, revisions = actuals.revisions + 1
-					WHERE actuals.value <> excluded.value
-				RETURNING xmax = 0 AS inserted)
-			SELECT count(*) FILTER (WHERE inserted), count(*) FILTER (WHERE NOT inserted) FROM up`,
-			ids, times, vals, time.Now().UTC()).Scan(&inserted, &revised)
+		rows, err := tx.Query(ctx, `SELECT a.series_id, a.time, a.value FROM actuals a
+			JOIN unnest($1::bigint[], $2::timestamptz[]) AS k(series_id, time) USING (series_id, time)`, ids, times)
+		if err != nil {
+			return fmt.Errorf("reading stored actuals: %w", err)
+		}
+		stored := map[key]float64{}
+		for rows.Next() {
+			var id int64
+			var t time.Time
+			var v float64
+			if err := rows.Scan(&id, &t, &v); err != nil {
+				return fmt.Errorf("reading stored actuals: %w", err)
+			}
+			stored[key{id, t.UnixNano()}] = v
+		}
+		if err := rows.Err(); err != nil {
+			return fmt.Errorf("reading stored actuals: %w", err)
+		}
+		var wIDs []int64
+		var wTimes []time.Time
+		var wVals []float64
+		var wRevs []int32
+		for i, k := range order {
+			prev, exists := stored[k]
+			var revs int32
+			for _, v := range chains[k] {
+				switch {
+				case !exists:
+					ack.Accepted++
+				case v == prev:
+					ack.Duplicate++
+				default:
+					ack.Revised++
+					revs++
+				}
+				prev, exists = v, true
+			}
+			if old, had := stored[k]; !had || old != prev {
+				wIDs, wTimes, wVals, wRevs = append(wIDs, ids[i]), append(wTimes, times[i]), append(wVals, prev), append(wRevs, revs)
+			}
+		}
+		if len(wIDs) == 0 {
+			return nil
+		}
+		_, err = tx.Exec(ctx, `INSERT INTO actuals (series_id, time, value, first_received_at, received_at, revisions)
+			SELECT series_id, time, value, $5, $5, revs FROM unnest($1::bigint[], $2::timestamptz[], $3::float8[], $4::int[]) AS u(series_id, time, value, revs)
+			ON CONFLICT (series_id, time) DO UPDATE
+				SET value = excluded.value, received_at = excluded.received_at, revisions = actuals.revisions + excluded.revisions`,
+			wIDs, wTimes, wVals, wRevs, time.Now().UTC())
 		if err != nil {
 			return fmt.Errorf("storing actuals: %w", err)
 		}
-		ack.Accepted += inserted
-		ack.Revised += revised
-		ack.Duplicate += int64(len(ids)) - inserted - revised
 		return nil
 	})
 	if err != nil {
@@ -544,3 +578,9 @@ func (s *Store) WriteActuals(ctx context.Context, as []Actual, firstIndex int) (
 	}
 	return ack, nil
 }
+
+// subMicro is the reason for refusing a time PostgreSQL cannot store
+// exactly: two such times would silently become one row.
+const subMicro = "times are stored to the microsecond: this one has a finer part"
+
+func wholeMicros(t time.Time) bool { return t.Nanosecond()%1000 == 0 }
