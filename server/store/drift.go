@@ -163,19 +163,26 @@ func (s *Store) activeBaseline(ctx context.Context, q querier, se *Series, model
 // Snapshot is the last evaluation of a drift state: the window's values
 // and the bands and limits they were judged against.
 type Snapshot struct {
-	WindowN       int      `json:"window_n"`
-	MAE           *float64 `json:"mae,omitempty"`
-	MAEExpected   *float64 `json:"mae_expected,omitempty"`
-	MAEBandLower  *float64 `json:"mae_band_lower,omitempty"`
-	MAEBandUpper  *float64 `json:"mae_band_upper,omitempty"`
-	MAEAlarmLimit *float64 `json:"mae_alarm_limit,omitempty"`
-	ME            *float64 `json:"me,omitempty"`
-	MEExpected    *float64 `json:"me_expected,omitempty"`
-	MEAlarmLower  *float64 `json:"me_alarm_lower,omitempty"`
-	MEAlarmUpper  *float64 `json:"me_alarm_upper,omitempty"`
-	KEff          *float64 `json:"k_eff,omitempty"`
-	Breached      []string `json:"breached,omitempty"` // metrics beyond their alarm limits at the last evaluation
-	Reason        string   `json:"reason,omitempty"`   // why the baseline is unusable
+	WindowN        int      `json:"window_n"`
+	MAE            *float64 `json:"mae,omitempty"`
+	MAEExpected    *float64 `json:"mae_expected,omitempty"`
+	MAEBandLower   *float64 `json:"mae_band_lower,omitempty"`
+	MAEBandUpper   *float64 `json:"mae_band_upper,omitempty"`
+	MAEAlarmLimit  *float64 `json:"mae_alarm_limit,omitempty"`
+	RMSE           *float64 `json:"rmse,omitempty"`
+	RMSEExpected   *float64 `json:"rmse_expected,omitempty"`
+	RMSEBandLower  *float64 `json:"rmse_band_lower,omitempty"`
+	RMSEBandUpper  *float64 `json:"rmse_band_upper,omitempty"`
+	RMSEAlarmLimit *float64 `json:"rmse_alarm_limit,omitempty"`
+	ME             *float64 `json:"me,omitempty"`
+	MEExpected     *float64 `json:"me_expected,omitempty"`
+	MEBandLower    *float64 `json:"me_band_lower,omitempty"`
+	MEBandUpper    *float64 `json:"me_band_upper,omitempty"`
+	MEAlarmLower   *float64 `json:"me_alarm_lower,omitempty"`
+	MEAlarmUpper   *float64 `json:"me_alarm_upper,omitempty"`
+	KEff           *float64 `json:"k_eff,omitempty"`
+	Breached       []string `json:"breached,omitempty"` // metrics beyond their alarm limits at the last evaluation
+	Reason         string   `json:"reason,omitempty"`   // why the baseline is unusable
 }
 
 func fin(x float64) *float64 {
@@ -325,7 +332,7 @@ func (s *Store) evaluate(ctx context.Context, tx pgx.Tx, se *Series, model strin
 		return nil, err
 	}
 
-	judge := func(r *driftRow, lb *leadBaseline, series []livePair, abs, bias []float64) {
+	judge := func(r *driftRow, lb *leadBaseline, series []livePair, abs, bias, sq []float64) {
 		if lb == nil {
 			r.det.SetBaseline(scoring.Verdict{Reason: "no backtest pairs for this lead"})
 			r.snap = Snapshot{Reason: "no backtest pairs for this lead"}
@@ -345,15 +352,21 @@ func (s *Store) evaluate(ctx context.Context, tx pgx.Tx, se *Series, model strin
 				continue
 			}
 			lo := max(0, i-WindowN+1)
-			var sa, sb float64
+			var sa, sb, ss float64
 			for j := lo; j <= i; j++ {
 				sa += abs[j]
 				sb += bias[j]
+				if sq != nil {
+					ss += sq[j]
+				}
 			}
 			n := i - lo + 1
-			mae, me := sa/float64(n), sb/float64(n)
-			bMAE, _, bME := lb.band(n)
-			r.snap = snapshotOf(n, mae, me, bMAE, bME)
+			mae, me, rmse := sa/float64(n), sb/float64(n), math.NaN()
+			if sq != nil {
+				rmse = math.Sqrt(ss / float64(n))
+			}
+			bMAE, bRMSE, bME := lb.band(n)
+			r.snap = snapshotOf(n, mae, me, rmse, bMAE, bRMSE, bME)
 			t := r.det.Observe(scoring.Evaluation{N: n, MAE: mae, ME: me, MAEBand: bMAE, MEBand: bME})
 			emit(r, p.origin, t, n)
 			r.lastOrigin, r.dirty = p.origin, true
@@ -361,18 +374,18 @@ func (s *Store) evaluate(ctx context.Context, tx pgx.Tx, se *Series, model strin
 	}
 	for _, h := range leads {
 		ps := byLead[h]
-		abs, bias := make([]float64, len(ps)), make([]float64, len(ps))
+		abs, bias, sq := make([]float64, len(ps)), make([]float64, len(ps)), make([]float64, len(ps))
 		for i, p := range ps {
-			abs[i], bias[i] = math.Abs(p.e), p.e
+			abs[i], bias[i], sq[i] = math.Abs(p.e), p.e, p.e*p.e
 		}
-		judge(get(h), bm.leads[h], ps, abs, bias)
+		judge(get(h), bm.leads[h], ps, abs, bias, sq)
 	}
 	abs, bias := make([]float64, len(pooled)), make([]float64, len(pooled))
 	ps := make([]livePair, len(pooled))
 	for i, p := range pooled {
 		ps[i], abs[i], bias[i] = livePair{origin: p.origin}, p.abs, p.bias
 	}
-	judge(get(0), bm.pooled, ps, abs, bias)
+	judge(get(0), bm.pooled, ps, abs, bias, nil)
 
 	if err := saveDriftRows(ctx, tx, se, model, states, now); err != nil {
 		return nil, err
@@ -385,10 +398,15 @@ func (s *Store) evaluate(ctx context.Context, tx pgx.Tx, se *Series, model strin
 	return events, nil
 }
 
-func snapshotOf(n int, mae, me float64, bMAE, bME scoring.Band) Snapshot {
+func snapshotOf(n int, mae, me, rmse float64, bMAE, bRMSE, bME scoring.Band) Snapshot {
 	snap := Snapshot{WindowN: n, MAE: fin(mae), ME: fin(me), MAEExpected: fin(bMAE.Expected), MAEBandLower: fin(bMAE.Lower),
 		MAEBandUpper: fin(bMAE.Upper), MAEAlarmLimit: fin(bMAE.AlarmUpper), MEExpected: fin(bME.Expected),
+		MEBandLower: fin(bME.Lower), MEBandUpper: fin(bME.Upper),
 		MEAlarmLower: fin(bME.AlarmLower), MEAlarmUpper: fin(bME.AlarmUpper), KEff: fin(bMAE.KEff)}
+	if bRMSE.Metric != "" {
+		snap.RMSE, snap.RMSEExpected, snap.RMSEBandLower = fin(rmse), fin(bRMSE.Expected), fin(bRMSE.Lower)
+		snap.RMSEBandUpper, snap.RMSEAlarmLimit = fin(bRMSE.Upper), fin(bRMSE.AlarmUpper)
+	}
 	if mae > bMAE.AlarmUpper {
 		snap.Breached = append(snap.Breached, "mae")
 	}
@@ -739,4 +757,65 @@ func (s *Store) ActiveLeadViews(ctx context.Context, key, model string, ns map[i
 		}
 	}
 	return m.version, out, nil
+}
+
+// ForecastFreshness is the newest production origin received for a
+// (series, model).
+type ForecastFreshness struct {
+	Series, Model string
+	LastOrigin    time.Time
+	ReceivedAt    time.Time
+	// OriginInterval is the usual gap between origins: the step times the
+	// active baseline's origin cadence, or the step when there is none.
+	OriginInterval time.Duration
+}
+
+// ActualFreshness is the newest actual received for a series.
+type ActualFreshness struct {
+	Series     string
+	LastTime   time.Time
+	ReceivedAt time.Time
+}
+
+// Freshness lists the newest origin per (series, model) and the newest
+// actual per series, ordered by series key (and model).
+func (s *Store) Freshness(ctx context.Context) ([]ForecastFreshness, []ActualFreshness, error) {
+	rows, err := s.pool.Query(ctx, `SELECT s.key, f.model, f.last_origin, f.last_received_at,
+			coalesce((SELECT b.origin_cadence_steps FROM baselines b WHERE b.series_id = f.series_id AND b.model = f.model
+				ORDER BY b.version DESC LIMIT 1), 1)
+		FROM forecast_freshness f JOIN series s ON s.id = f.series_id ORDER BY s.key, f.model`)
+	if err != nil {
+		return nil, nil, fmt.Errorf("reading freshness: %w", err)
+	}
+	var fs []ForecastFreshness
+	for rows.Next() {
+		var f ForecastFreshness
+		var cadence int
+		if err := rows.Scan(&f.Series, &f.Model, &f.LastOrigin, &f.ReceivedAt, &cadence); err != nil {
+			rows.Close()
+			return nil, nil, fmt.Errorf("reading freshness: %w", err)
+		}
+		if se, err := s.seriesByKey(ctx, f.Series); err == nil {
+			f.OriginInterval = se.step.Add(f.LastOrigin, max(cadence, 1)).Sub(f.LastOrigin)
+		}
+		fs = append(fs, f)
+	}
+	rows.Close()
+	if err := rows.Err(); err != nil {
+		return nil, nil, err
+	}
+	rows, err = s.pool.Query(ctx, `SELECT s.key, a.last_time, a.last_received_at FROM actual_freshness a JOIN series s ON s.id = a.series_id ORDER BY s.key`)
+	if err != nil {
+		return nil, nil, fmt.Errorf("reading freshness: %w", err)
+	}
+	defer rows.Close()
+	var as []ActualFreshness
+	for rows.Next() {
+		var a ActualFreshness
+		if err := rows.Scan(&a.Series, &a.LastTime, &a.ReceivedAt); err != nil {
+			return nil, nil, fmt.Errorf("reading freshness: %w", err)
+		}
+		as = append(as, a)
+	}
+	return fs, as, rows.Err()
 }

@@ -55,6 +55,10 @@ type Rejection struct {
 type Ack struct {
 	Accepted, Duplicate, Late, Revised, Rejected int64
 	Rejections                                   []Rejection
+	// Scored counts the pairs that accepted actuals completed: forecast
+	// values (not late) for their targets. Forecasts never complete a pair:
+	// one that arrives after its actual is late.
+	Scored int64
 }
 
 // Add folds another acknowledgement into a.
@@ -65,6 +69,7 @@ func (a *Ack) Add(b Ack) {
 	a.Revised += b.Revised
 	a.Rejected += b.Rejected
 	a.Rejections = append(a.Rejections, b.Rejections...)
+	a.Scored += b.Scored
 }
 
 var modelPattern = keyPattern
@@ -200,7 +205,10 @@ func (s *Store) WriteForecasts(ctx context.Context, vs []ForecastVector, firstIn
 			r.se = it.se
 			mergeForecast(r, it.v, known[it.se.ID], now, &ack)
 		}
-		return storeForecasts(ctx, tx, rows, now)
+		if err := storeForecasts(ctx, tx, rows, now); err != nil {
+			return err
+		}
+		return touchForecastFreshness(ctx, tx, rows, now)
 	})
 	if err != nil {
 		return Ack{Rejected: ack.Rejected, Rejections: ack.Rejections}, err
@@ -461,6 +469,35 @@ func storeForecasts(ctx context.Context, tx pgx.Tx, rows map[forecastKey]*foreca
 	return nil
 }
 
+// touchForecastFreshness records the newest origin received per (series,
+// model).
+func touchForecastFreshness(ctx context.Context, tx pgx.Tx, rows map[forecastKey]*forecastRow, now time.Time) error {
+	type sm struct {
+		id    int64
+		model string
+	}
+	newest := map[sm]time.Time{}
+	for k, r := range rows {
+		key := sm{k.series, k.model}
+		if r.origin.After(newest[key]) {
+			newest[key] = r.origin
+		}
+	}
+	ids, models, origins := make([]int64, 0, len(newest)), make([]string, 0, len(newest)), make([]time.Time, 0, len(newest))
+	for k, o := range newest {
+		ids, models, origins = append(ids, k.id), append(models, k.model), append(origins, o)
+	}
+	_, err := tx.Exec(ctx, `INSERT INTO forecast_freshness (series_id, model, last_origin, last_received_at)
+		SELECT series_id, model, origin, $4 FROM unnest($1::bigint[], $2::text[], $3::timestamptz[]) AS u(series_id, model, origin)
+		ON CONFLICT (series_id, model) DO UPDATE
+			SET last_origin = greatest(forecast_freshness.last_origin, excluded.last_origin), last_received_at = excluded.last_received_at`,
+		ids, models, origins, now)
+	if err != nil {
+		return fmt.Errorf("recording forecast freshness: %w", err)
+	}
+	return nil
+}
+
 // WriteActuals stores a batch of actuals: a new time is accepted, a changed
 // value revises the stored one (first_received_at stays), an identical
 // value is a duplicate. Items are counted as if pushed one by one in batch
@@ -541,7 +578,11 @@ func (s *Store) WriteActuals(ctx context.Context, as []Actual, firstIndex int) (
 		var wTimes []time.Time
 		var wVals []float64
 		var wRevs []int32
+		fresh := map[int64][]time.Time{} // series → times of actuals new in this batch
 		for i, k := range order {
+			if _, had := stored[k]; !had {
+				fresh[k.id] = append(fresh[k.id], times[i])
+			}
 			prev, exists := stored[k]
 			var revs int32
 			for _, v := range chains[k] {
@@ -560,6 +601,17 @@ func (s *Store) WriteActuals(ctx context.Context, as []Actual, firstIndex int) (
 				wIDs, wTimes, wVals, wRevs = append(wIDs, ids[i]), append(wTimes, times[i]), append(wVals, prev), append(wRevs, revs)
 			}
 		}
+		now := time.Now().UTC()
+		if err := touchActualFreshness(ctx, tx, ids, times, now); err != nil {
+			return err
+		}
+		for id, ts := range fresh {
+			n, err := countCompleted(ctx, tx, seriesByID(series, id), ts)
+			if err != nil {
+				return err
+			}
+			ack.Scored += n
+		}
 		if len(wIDs) == 0 {
 			return nil
 		}
@@ -567,7 +619,7 @@ func (s *Store) WriteActuals(ctx context.Context, as []Actual, firstIndex int) (
 			SELECT series_id, time, value, $5, $5, revs FROM unnest($1::bigint[], $2::timestamptz[], $3::float8[], $4::int[]) AS u(series_id, time, value, revs)
 			ON CONFLICT (series_id, time) DO UPDATE
 				SET value = excluded.value, received_at = excluded.received_at, revisions = actuals.revisions + excluded.revisions`,
-			wIDs, wTimes, wVals, wRevs, time.Now().UTC())
+			wIDs, wTimes, wVals, wRevs, now)
 		if err != nil {
 			return fmt.Errorf("storing actuals: %w", err)
 		}
@@ -577,6 +629,74 @@ func (s *Store) WriteActuals(ctx context.Context, as []Actual, firstIndex int) (
 		return Ack{Rejected: ack.Rejected, Rejections: ack.Rejections}, err
 	}
 	return ack, nil
+}
+
+func seriesByID(m map[string]*Series, id int64) *Series {
+	for _, se := range m {
+		if se.ID == id {
+			return se
+		}
+	}
+	return nil
+}
+
+func touchActualFreshness(ctx context.Context, tx pgx.Tx, ids []int64, times []time.Time, now time.Time) error {
+	newest := map[int64]time.Time{}
+	for i, id := range ids {
+		if times[i].After(newest[id]) {
+			newest[id] = times[i]
+		}
+	}
+	sids, ts := make([]int64, 0, len(newest)), make([]time.Time, 0, len(newest))
+	for id, t := range newest {
+		sids, ts = append(sids, id), append(ts, t)
+	}
+	_, err := tx.Exec(ctx, `INSERT INTO actual_freshness (series_id, last_time, last_received_at)
+		SELECT series_id, t, $3 FROM unnest($1::bigint[], $2::timestamptz[]) AS u(series_id, t)
+		ON CONFLICT (series_id) DO UPDATE
+			SET last_time = greatest(actual_freshness.last_time, excluded.last_time), last_received_at = excluded.last_received_at`,
+		sids, ts, now)
+	if err != nil {
+		return fmt.Errorf("recording actual freshness: %w", err)
+	}
+	return nil
+}
+
+// countCompleted counts the forecast values (not late) whose targets are
+// among ts, new actuals of series se: the pairs these actuals complete.
+func countCompleted(ctx context.Context, tx pgx.Tx, se *Series, ts []time.Time) (int64, error) {
+	set := make(map[int64]bool, len(ts))
+	lo, hi := ts[0], ts[0]
+	for _, t := range ts {
+		set[t.UnixNano()] = true
+		if t.Before(lo) {
+			lo = t
+		}
+		if t.After(hi) {
+			hi = t
+		}
+	}
+	rows, err := tx.Query(ctx, `SELECT origin, vals, late FROM forecasts WHERE series_id = $1 AND origin >= $2 AND origin < $3`,
+		se.ID, se.step.Add(lo, -se.Horizon), hi)
+	if err != nil {
+		return 0, fmt.Errorf("counting scored pairs: %w", err)
+	}
+	defer rows.Close()
+	var n int64
+	for rows.Next() {
+		var o time.Time
+		var vals []pgtype.Float8
+		var late []bool
+		if err := rows.Scan(&o, &vals, &late); err != nil {
+			return 0, fmt.Errorf("counting scored pairs: %w", err)
+		}
+		for i, v := range vals {
+			if v.Valid && !(i < len(late) && late[i]) && set[se.step.Add(o, i+1).UnixNano()] {
+				n++
+			}
+		}
+	}
+	return n, rows.Err()
 }
 
 // subMicro is the reason for refusing a time PostgreSQL cannot store

@@ -287,3 +287,32 @@ func TestDeleteBefore(t *testing.T) {
 		}
 	}
 }
+
+func TestFreshnessAndScoredCount(t *testing.T) {
+	t.Parallel()
+	s := storetest.Store(t)
+	ctx := ctxT(t)
+	mustSeries(t, s, "p", "1h", 3)
+	h := time.Hour
+	for k := range 3 {
+		if _, err := s.WriteForecasts(ctx, []store.ForecastVector{{Series: "p", Model: "m", Origin: t0.Add(time.Duration(k) * h), Values: []float64{1, 2, 3}}}, 0); err != nil {
+			t.Fatal(err)
+		}
+	}
+	// t0+3h is lead 3 of origin 0, lead 2 of origin 1, lead 1 of origin 2.
+	ack, err := s.WriteActuals(ctx, []store.Actual{{Series: "p", Time: t0.Add(3 * h), Value: 1}, {Series: "p", Time: t0.Add(h), Value: 1}}, 0)
+	if err != nil || ack.Scored != 4 {
+		t.Fatalf("ack %+v %v, want 4 pairs scored", ack, err)
+	}
+	// A revision scores nothing new.
+	if ack, _ := s.WriteActuals(ctx, []store.Actual{{Series: "p", Time: t0.Add(3 * h), Value: 2}}, 0); ack.Scored != 0 || ack.Revised != 1 {
+		t.Errorf("revision ack %+v", ack)
+	}
+	fs, as, err := s.Freshness(ctx)
+	if err != nil || len(fs) != 1 || len(as) != 1 {
+		t.Fatalf("freshness %v %v %v", fs, as, err)
+	}
+	if !fs[0].LastOrigin.Equal(t0.Add(2*h)) || fs[0].OriginInterval != h || !as[0].LastTime.Equal(t0.Add(3*h)) {
+		t.Errorf("freshness %+v %+v", fs[0], as[0])
+	}
+}

@@ -1,0 +1,2 @@
+DROP TABLE actual_freshness;
+DROP TABLE forecast_freshness;
