@@ -1,0 +1,371 @@
+package driftreport
+
+import (
+	"bytes"
+	"encoding/json"
+	"math"
+	"reflect"
+	"slices"
+	"strings"
+	"testing"
+	"time"
+
+	aftercastv1 "github.com/aftercast/aftercast/api/aftercast/v1"
+	"github.com/aftercast/aftercast/cmd/aftercast/internal/report"
+	"github.com/aftercast/aftercast/scoring"
+	"google.golang.org/protobuf/proto"
+	"google.golang.org/protobuf/types/known/timestamppb"
+)
+
+// The key sets below are the JSON contract of the commands: the keys the
+// contract check (../shared/checks/contract drift) requires, and the ones
+// this client adds. A change to them is a change of the interface.
+var (
+	statusKeys = []string{"lead", "state", "breached", "state_since", "last_origin_time", "window_n", "mae", "mae_expected",
+		"mae_band_lower", "mae_band_upper", "mae_alarm_limit", "me", "me_expected", "me_alarm_lower", "me_alarm_upper", "k_eff"}
+	seriesKeys = []string{"series", "model", "state", "state_since", "baseline_version", "decision_leads", "series_level", "leads"}
+	eventKeys  = []string{"token", "time", "series", "model", "lead", "origin_time", "metric", "previous", "state", "value", "limit",
+		"band_lower", "band_upper", "window_n", "k_eff"}
+	versionKeys = []string{"series", "model", "version", "active", "create_time", "first_origin_time", "last_origin_time",
+		"origin_cadence_steps", "max_lead", "rows", "training_actuals", "mase_scale", "warnings"}
+	baselineLeadKeys = []string{"lead", "k", "k_eff", "usable", "reason", "expected", "mae", "rmse", "me"}
+	upperBandKeys    = []string{"expected", "band_lower", "band_upper", "alarm_upper", "k_eff"}
+	twoSidedKeys     = []string{"expected", "band_lower", "band_upper", "alarm_lower", "alarm_upper", "k_eff"}
+
+	// Required by the contract check.
+	contractSeriesKeys = []string{"series", "model", "state", "leads"}
+	contractLeadKeys   = []string{"lead", "state", "window_n", "mae", "mae_expected", "mae_band_lower", "mae_band_upper",
+		"mae_alarm_limit", "me", "me_alarm_lower", "me_alarm_upper"}
+	contractEventKeys = []string{"time", "series", "model", "lead", "origin_time", "metric", "previous", "state", "value", "limit", "window_n"}
+)
+
+func f(x float64) *float64 { return &x }
+func i32(x int32) *int32   { return &x }
+
+var t0 = time.Date(2026, 3, 1, 12, 0, 0, 0, time.UTC)
+
+// decode round-trips v through JSON into generic maps, as a program
+// reading the output sees it.
+func decode(t *testing.T, v any) map[string]any {
+	t.Helper()
+	var b bytes.Buffer
+	if err := WriteJSON(&b, v); err != nil {
+		t.Fatal(err)
+	}
+	var m map[string]any
+	if err := json.Unmarshal(b.Bytes(), &m); err != nil {
+		t.Fatalf("%v in\n%s", err, b.String())
+	}
+	return m
+}
+
+func keys(t *testing.T, v any) []string {
+	t.Helper()
+	m, ok := v.(map[string]any)
+	if !ok {
+		t.Fatalf("%v is not an object", v)
+	}
+	var ks []string
+	for k := range m {
+		ks = append(ks, k)
+	}
+	slices.Sort(ks)
+	return ks
+}
+
+func checkKeys(t *testing.T, what string, v any, want, required []string) {
+	t.Helper()
+	got := keys(t, v)
+	w := slices.Sorted(slices.Values(want))
+	if !reflect.DeepEqual(got, w) {
+		t.Errorf("%s keys\n got %v\nwant %v", what, got, w)
+	}
+	for _, k := range required {
+		if !slices.Contains(got, k) {
+			t.Errorf("%s lacks %q, which the contract requires", what, k)
+		}
+	}
+}
+
+// testDrift is one (series, model): the series level degraded on MAE,
+// three leads sent out of order, one of them with nothing but a state.
+func testDrift() *aftercastv1.SeriesModelDrift {
+	full := func(lead int32, st aftercastv1.DriftState) *aftercastv1.DriftStatus {
+		return &aftercastv1.DriftStatus{Lead: i32(lead), State: st, StateSinceTime: timestamppb.New(t0), LastOriginTime: timestamppb.New(t0.Add(-time.Hour)),
+			WindowN: 30, Mae: f(2.5), MaeExpected: f(2), MaeBandLower: f(1.5), MaeBandUpper: f(2.4), MaeAlarmLimit: f(2.45),
+			Me: f(0.1), MeExpected: f(0), MeAlarmLower: f(-0.5), MeAlarmUpper: f(0.5), KEff: f(180)}
+	}
+	series := full(0, aftercastv1.DriftState_DRIFT_STATE_DEGRADED)
+	series.Lead = nil
+	series.BreachedMetrics = []aftercastv1.DriftMetric{aftercastv1.DriftMetric_DRIFT_METRIC_MAE}
+	return &aftercastv1.SeriesModelDrift{Series: "plant-7/heat", Model: "m1", BaselineVersion: 2, DecisionLeads: []int32{1, 2, 3},
+		SeriesStatus: series,
+		LeadStatuses: []*aftercastv1.DriftStatus{
+			full(3, aftercastv1.DriftState_DRIFT_STATE_WITHIN),
+			{Lead: i32(1), State: aftercastv1.DriftState_DRIFT_STATE_INSUFFICIENT_BASELINE, WindowN: 4, Mae: f(1), Me: f(math.NaN())},
+			full(2, aftercastv1.DriftState_DRIFT_STATE_IMPROVED),
+		}}
+}
+
+func TestStatesJSON(t *testing.T) {
+	t.Parallel()
+	d := testDrift()
+	// A series without a series-level status yet, and no baseline.
+	bare := &aftercastv1.SeriesModelDrift{Series: "b", Model: "m2",
+		LeadStatuses: []*aftercastv1.DriftStatus{{Lead: i32(1), State: aftercastv1.DriftState_DRIFT_STATE_INSUFFICIENT_DATA}}}
+	doc := decode(t, ToStates([]*aftercastv1.SeriesModelDrift{d, bare}))
+	checkKeys(t, "document", doc, []string{"series"}, nil)
+	list := doc["series"].([]any)
+	if len(list) != 2 {
+		t.Fatalf("%d series, want 2", len(list))
+	}
+	s := list[0].(map[string]any)
+	checkKeys(t, "series", s, seriesKeys, contractSeriesKeys)
+	checkKeys(t, "series_level", s["series_level"], statusKeys, nil)
+	if s["state"] != "degraded" || s["state_since"] != "2026-03-01T12:00:00Z" || s["baseline_version"] != 2.0 {
+		t.Errorf("series %v", s)
+	}
+	sl := s["series_level"].(map[string]any)
+	if sl["lead"] != nil || sl["mae_alarm_limit"] != 2.45 || !reflect.DeepEqual(sl["breached"], []any{"mae"}) {
+		t.Errorf("series_level %v", sl)
+	}
+	leads := s["leads"].([]any)
+	var order []float64
+	for _, l := range leads {
+		checkKeys(t, "lead", l, statusKeys, contractLeadKeys)
+		order = append(order, l.(map[string]any)["lead"].(float64))
+	}
+	if !reflect.DeepEqual(order, []float64{1, 2, 3}) {
+		t.Errorf("leads in order %v, want every lead ascending", order)
+	}
+	l1 := leads[0].(map[string]any)
+	if l1["state"] != "insufficient_baseline" || l1["mae"] != 1.0 || l1["mae_expected"] != nil || l1["me"] != nil ||
+		l1["state_since"] != nil || !reflect.DeepEqual(l1["breached"], []any{}) {
+		t.Errorf("lead 1: absent values must be null, NaN too: %v", l1)
+	}
+	if got := leads[1].(map[string]any)["state"]; got != "improved" {
+		t.Errorf("lead 2 state %v", got)
+	}
+
+	b := list[1].(map[string]any)
+	checkKeys(t, "series", b, seriesKeys, contractSeriesKeys)
+	if b["state"] != "insufficient_data" || b["series_level"] != nil || b["baseline_version"] != nil || b["state_since"] != nil ||
+		!reflect.DeepEqual(b["decision_leads"], []any{}) {
+		t.Errorf("series without a series-level status: %v", b)
+	}
+
+	if empty := decode(t, ToStates(nil)); !reflect.DeepEqual(empty["series"], []any{}) {
+		t.Errorf("no states: %v, want an empty list", empty)
+	}
+}
+
+func TestEventsJSON(t *testing.T) {
+	t.Parallel()
+	es := []*aftercastv1.DriftEvent{
+		{Token: "41", EventTime: timestamppb.New(t0), Series: "s", Model: "m", OriginTime: timestamppb.New(t0.Add(-time.Hour)),
+			Metric: aftercastv1.DriftMetric_DRIFT_METRIC_MAE, PreviousState: aftercastv1.DriftState_DRIFT_STATE_WITHIN,
+			NewState: aftercastv1.DriftState_DRIFT_STATE_DEGRADED, Value: f(2.5), Limit: f(2.45), BandLower: f(1.5), BandUpper: f(2.4), WindowN: 30, KEff: f(180)},
+		{Token: "42", EventTime: timestamppb.New(t0.Add(time.Nanosecond)), Series: "s", Model: "m", Lead: i32(7),
+			NewState: aftercastv1.DriftState_DRIFT_STATE_INSUFFICIENT_DATA, WindowN: 0},
+		{Token: "43", Series: "s", Model: "m", Lead: i32(7), Metric: aftercastv1.DriftMetric_DRIFT_METRIC_ME,
+			PreviousState: aftercastv1.DriftState_DRIFT_STATE_DEGRADED, NewState: aftercastv1.DriftState_DRIFT_STATE_WITHIN, Value: f(0.1)},
+	}
+	doc := decode(t, ToEvents(es))
+	checkKeys(t, "document", doc, []string{"events"}, nil)
+	list := doc["events"].([]any)
+	for _, e := range list {
+		checkKeys(t, "event", e, eventKeys, contractEventKeys)
+	}
+	want := []map[string]any{
+		{"token": "41", "time": "2026-03-01T12:00:00Z", "series": "s", "model": "m", "lead": nil, "origin_time": "2026-03-01T11:00:00Z",
+			"metric": "mae", "previous": "within", "state": "degraded", "value": 2.5, "limit": 2.45, "band_lower": 1.5, "band_upper": 2.4,
+			"window_n": 30.0, "k_eff": 180.0},
+		{"token": "42", "time": "2026-03-01T12:00:00.000000001Z", "series": "s", "model": "m", "lead": 7.0, "origin_time": nil,
+			"metric": nil, "previous": nil, "state": "insufficient_data", "value": nil, "limit": nil, "band_lower": nil, "band_upper": nil,
+			"window_n": 0.0, "k_eff": nil},
+	}
+	for i, w := range want {
+		if !reflect.DeepEqual(list[i], any(w)) {
+			t.Errorf("event %d\n got %v\nwant %v", i, list[i], w)
+		}
+	}
+	if e := list[2].(map[string]any); e["metric"] != "me" || e["previous"] != "degraded" || e["state"] != "within" || e["time"] != nil {
+		t.Errorf("event 2 %v", e)
+	}
+
+	// Followed events are the same objects, one per line.
+	var b bytes.Buffer
+	for _, e := range es {
+		if err := WriteJSONLine(&b, ToEvent(e)); err != nil {
+			t.Fatal(err)
+		}
+	}
+	lines := strings.Split(strings.TrimSuffix(b.String(), "\n"), "\n")
+	if len(lines) != 3 {
+		t.Fatalf("NDJSON has %d lines, want 3:\n%s", len(lines), b.String())
+	}
+	for i, l := range lines {
+		var m map[string]any
+		if err := json.Unmarshal([]byte(l), &m); err != nil || !reflect.DeepEqual(m, list[i]) {
+			t.Errorf("line %d %q (%v) differs from the listed event %v", i, l, err, list[i])
+		}
+	}
+}
+
+func TestBaselineJSON(t *testing.T) {
+	t.Parallel()
+	table := scoring.Tabulate([]scoring.Pair{{Lead: 1, Actual: 10, Forecast: 8}, {Lead: 1, Actual: 0, Forecast: 1}, {Lead: 1, Actual: 5, Forecast: 5}}, scoring.NoScale)
+	m := table.Leads[0].Metrics
+	opt := func(x float64) *float64 {
+		if !scoring.Defined(x) {
+			return nil
+		}
+		return &x
+	}
+	expected := &aftercastv1.AccuracyMetrics{N: m.N, Me: opt(m.ME), Mae: opt(m.MAE), Rmse: opt(m.RMSE), Mape: opt(m.MAPE),
+		MapeExcluded: m.MAPEExcluded, Smape: opt(m.SMAPE), SmapeExcluded: m.SMAPEExcluded, Wape: opt(m.WAPE), Mase: opt(m.MASE)}
+	resp := &aftercastv1.GetBaselineResponse{
+		Version: &aftercastv1.BaselineVersion{Series: "s", Model: "m", Version: 3, Active: true, CreateTime: timestamppb.New(t0),
+			FirstOriginTime: timestamppb.New(t0.AddDate(0, -6, 0)), LastOriginTime: timestamppb.New(t0.AddDate(0, -1, 0)),
+			OriginCadenceSteps: 24, MaxLead: 2, RowCount: 3, Warnings: []*aftercastv1.BaselineWarning{
+				{Kind: aftercastv1.BaselineWarningKind_BASELINE_WARNING_KIND_NO_TRAINING_ACTUALS, Message: "no training actuals"},
+				{Kind: aftercastv1.BaselineWarningKind_BASELINE_WARNING_KIND_LEAD_NOT_USABLE, Lead: i32(1), Message: "K = 3 < 180"},
+			}},
+		WindowN: 30,
+		Leads: []*aftercastv1.BaselineLead{
+			{Lead: 1, K: 3, KEff: 2.5, Expected: expected, UnusableReason: "K = 3 < 180",
+				Mae:  &aftercastv1.MetricBand{Expected: 1, BandLower: 0.5, BandUpper: 1.5, AlarmUpper: 1.7, KEff: 2.5},
+				Rmse: &aftercastv1.MetricBand{Expected: 1.3, BandLower: 0.6, BandUpper: 1.9, AlarmUpper: 2.1, KEff: 2.4},
+				Me:   &aftercastv1.MetricBand{Expected: 0.3, BandLower: -0.5, BandUpper: 1.1, AlarmLower: f(-0.8), AlarmUpper: 1.4, KEff: 2.6}},
+			{Lead: 2, K: 1, KEff: math.NaN(), Expected: &aftercastv1.AccuracyMetrics{N: 1, Me: f(1), Mae: f(1), Rmse: f(1)}},
+		},
+		Pooled: &aftercastv1.BaselineLead{Lead: 0, K: 1, KEff: 1, Usable: true},
+	}
+	doc := decode(t, ToBaseline(resp))
+	checkKeys(t, "baseline", doc, append([]string{"window_n", "leads", "pooled"}, versionKeys...), nil)
+	if doc["mase_scale"] != nil || doc["version"] != 3.0 || doc["window_n"] != 30.0 || doc["first_origin_time"] != "2025-09-01T12:00:00Z" {
+		t.Errorf("baseline %v", doc)
+	}
+	ws := doc["warnings"].([]any)
+	if !reflect.DeepEqual(ws, []any{
+		map[string]any{"kind": "no_training_actuals", "lead": nil, "message": "no training actuals"},
+		map[string]any{"kind": "lead_not_usable", "lead": 1.0, "message": "K = 3 < 180"},
+	}) {
+		t.Errorf("warnings %v", ws)
+	}
+	leads := doc["leads"].([]any)
+	l1, l2 := leads[0].(map[string]any), leads[1].(map[string]any)
+	checkKeys(t, "baseline lead", l1, baselineLeadKeys, nil)
+	checkKeys(t, "mae", l1["mae"], upperBandKeys, nil)
+	checkKeys(t, "rmse", l1["rmse"], upperBandKeys, nil)
+	checkKeys(t, "me", l1["me"], twoSidedKeys, nil)
+	if l1["usable"] != false || l1["reason"] != "K = 3 < 180" || l1["me"].(map[string]any)["alarm_lower"] != -0.8 {
+		t.Errorf("lead 1 %v", l1)
+	}
+
+	// The expected metrics have the keys and values of `evaluate` JSON.
+	var ev bytes.Buffer
+	if err := report.WriteJSON(&ev, []report.Result{{Series: "s", Model: "m", Step: "1h", Table: table}}); err != nil {
+		t.Fatal(err)
+	}
+	var evDoc struct {
+		Results []struct {
+			Overall map[string]any `json:"overall"`
+		} `json:"results"`
+	}
+	if err := json.Unmarshal(ev.Bytes(), &evDoc); err != nil {
+		t.Fatal(err)
+	}
+	if got, want := l1["expected"], any(evDoc.Results[0].Overall); !reflect.DeepEqual(got, want) {
+		t.Errorf("expected metrics\n got %v\nwant (evaluate's) %v", got, want)
+	}
+
+	if l2["k_eff"] != nil || l2["mae"] != nil || l2["rmse"] != nil || l2["me"] != nil || l2["usable"] != false || l2["reason"] != nil {
+		t.Errorf("lead 2: absent bands and a NaN K_eff must be null: %v", l2)
+	}
+	p := doc["pooled"].(map[string]any)
+	checkKeys(t, "pooled", p, baselineLeadKeys, nil)
+	if p["lead"] != 0.0 || p["expected"] != nil || p["usable"] != true {
+		t.Errorf("pooled %v", p)
+	}
+}
+
+func TestImportJSON(t *testing.T) {
+	t.Parallel()
+	doc := decode(t, ToImport(&aftercastv1.ImportBaselineResponse{Model: "m", Baselines: []*aftercastv1.ImportedBaseline{
+		{Version: &aftercastv1.BaselineVersion{Series: "a", Version: 2, MaseScale: f(1.5)}, Created: false},
+	}}))
+	b := doc["baselines"].([]any)[0]
+	checkKeys(t, "imported", b, append([]string{"created"}, versionKeys...), nil)
+	if m := b.(map[string]any); m["created"] != false || m["mase_scale"] != 1.5 || !reflect.DeepEqual(m["warnings"], []any{}) {
+		t.Errorf("imported %v", m)
+	}
+}
+
+func TestEnumNames(t *testing.T) {
+	t.Parallel()
+	for _, c := range []struct{ got, want string }{
+		{StateName(aftercastv1.DriftState_DRIFT_STATE_WITHIN), "within"},
+		{StateName(aftercastv1.DriftState_DRIFT_STATE_DEGRADED), "degraded"},
+		{StateName(aftercastv1.DriftState_DRIFT_STATE_IMPROVED), "improved"},
+		{StateName(aftercastv1.DriftState_DRIFT_STATE_INSUFFICIENT_DATA), "insufficient_data"},
+		{StateName(aftercastv1.DriftState_DRIFT_STATE_INSUFFICIENT_BASELINE), "insufficient_baseline"},
+		{StateName(aftercastv1.DriftState_DRIFT_STATE_UNSPECIFIED), "unspecified"},
+		{StateName(aftercastv1.DriftState(42)), "unknown_42"},
+		{MetricName(aftercastv1.DriftMetric_DRIFT_METRIC_MAE), "mae"},
+		{MetricName(aftercastv1.DriftMetric_DRIFT_METRIC_ME), "me"},
+		{MetricName(aftercastv1.DriftMetric_DRIFT_METRIC_UNSPECIFIED), ""},
+		{WarningKindName(aftercastv1.BaselineWarningKind_BASELINE_WARNING_KIND_ORIGIN_CADENCE_DIFFERS), "origin_cadence_differs"},
+		{WarningKindName(aftercastv1.BaselineWarningKind_BASELINE_WARNING_KIND_TRAINING_ACTUALS_IGNORED), "training_actuals_ignored"},
+	} {
+		if c.got != c.want {
+			t.Errorf("got %q, want %q", c.got, c.want)
+		}
+	}
+}
+
+func TestStatesTableShowsOnlyLeadsNotWithin(t *testing.T) {
+	t.Parallel()
+	allWithin := proto.CloneOf(testDrift())
+	allWithin.Series = "quiet"
+	for _, l := range allWithin.LeadStatuses {
+		l.State = aftercastv1.DriftState_DRIFT_STATE_WITHIN
+	}
+	var b bytes.Buffer
+	if err := WriteStates(&b, []*aftercastv1.SeriesModelDrift{testDrift(), allWithin}); err != nil {
+		t.Fatal(err)
+	}
+	out := b.String()
+	lines := strings.Split(out, "\n")
+	if !strings.HasPrefix(lines[0], "SERIES") || !strings.Contains(lines[1], "degraded (mae)") || !strings.HasPrefix(lines[2], "quiet") {
+		t.Errorf("series-level states do not come first, one line each:\n%s", out)
+	}
+	for _, want := range []string{"plant-7/heat / m1: 1 of 3 leads within; the others:", "  1     insufficient_baseline", "  2     improved",
+		"quiet / m1: all 3 leads within", "[1.500, 2.400]", "2.450"} {
+		if !strings.Contains(out, want) {
+			t.Errorf("table lacks %q:\n%s", want, out)
+		}
+	}
+	if strings.Contains(out, "\n  3 ") {
+		t.Errorf("lead 3, within, is listed:\n%s", out)
+	}
+}
+
+func TestEventLinesAreTableRows(t *testing.T) {
+	t.Parallel()
+	e := &aftercastv1.DriftEvent{Token: "1", EventTime: timestamppb.New(t0), Series: "s", Model: "m", OriginTime: timestamppb.New(t0),
+		Metric: aftercastv1.DriftMetric_DRIFT_METRIC_MAE, PreviousState: aftercastv1.DriftState_DRIFT_STATE_WITHIN,
+		NewState: aftercastv1.DriftState_DRIFT_STATE_DEGRADED, Value: f(2.5), Limit: f(2.45), WindowN: 30}
+	var b bytes.Buffer
+	if err := WriteEventHeader(&b); err != nil {
+		t.Fatal(err)
+	}
+	if err := WriteEventLine(&b, e); err != nil {
+		t.Fatal(err)
+	}
+	lines := strings.Split(strings.TrimSuffix(b.String(), "\n"), "\n")
+	if len(lines) != 2 || strings.Index(lines[0], "CHANGE") != strings.Index(lines[1], "within -> degraded") ||
+		!strings.Contains(lines[1], "series") || !strings.HasSuffix(lines[1], "30") {
+		t.Errorf("event lines:\n%s", b.String())
+	}
+}

@@ -1,0 +1,395 @@
+package driftreport
+
+import (
+	"cmp"
+	"encoding/json"
+	"fmt"
+	"io"
+	"math"
+	"slices"
+	"strings"
+	"time"
+
+	aftercastv1 "github.com/aftercast/aftercast/api/aftercast/v1"
+	"google.golang.org/protobuf/reflect/protoreflect"
+	"google.golang.org/protobuf/types/known/timestamppb"
+)
+
+// enumName is the lower-case name of e without prefix, such as "within"
+// for DRIFT_STATE_WITHIN; "unknown_7" for a number the client does not
+// know.
+func enumName(e protoreflect.Enum, prefix string) string {
+	v := e.Descriptor().Values().ByNumber(e.Number())
+	if v == nil {
+		return fmt.Sprintf("unknown_%d", e.Number())
+	}
+	return strings.ToLower(strings.TrimPrefix(string(v.Name()), prefix))
+}
+
+// StateName is the name of a drift state: "within", "degraded",
+// "improved", "insufficient_data", "insufficient_baseline"
+// ("unspecified" for the zero value).
+func StateName(s aftercastv1.DriftState) string { return enumName(s, "DRIFT_STATE_") }
+
+// MetricName is the name of a drift metric, "mae" or "me"; "" for
+// DRIFT_METRIC_UNSPECIFIED.
+func MetricName(m aftercastv1.DriftMetric) string {
+	if m == aftercastv1.DriftMetric_DRIFT_METRIC_UNSPECIFIED {
+		return ""
+	}
+	return enumName(m, "DRIFT_METRIC_")
+}
+
+// WarningKindName is the name of a baseline warning kind, such as
+// "origin_cadence_differs".
+func WarningKindName(k aftercastv1.BaselineWarningKind) string {
+	return enumName(k, "BASELINE_WARNING_KIND_")
+}
+
+// num is x as a JSON number, nil (null) when x is not finite, which JSON
+// cannot carry.
+func num(x float64) *float64 {
+	if math.IsNaN(x) || math.IsInf(x, 0) {
+		return nil
+	}
+	return &x
+}
+
+// opt is an optional proto field as a JSON number or null.
+func opt(p *float64) *float64 {
+	if p == nil {
+		return nil
+	}
+	return num(*p)
+}
+
+// ts is a time as RFC 3339 in UTC, nil (null) when unset.
+func ts(t *timestamppb.Timestamp) *string {
+	if t == nil {
+		return nil
+	}
+	s := t.AsTime().UTC().Format(time.RFC3339Nano)
+	return &s
+}
+
+func str(s string) *string {
+	if s == "" {
+		return nil
+	}
+	return &s
+}
+
+// WriteJSON writes v indented, as every client command's JSON.
+func WriteJSON(w io.Writer, v any) error {
+	enc := json.NewEncoder(w)
+	enc.SetIndent("", "  ")
+	return enc.Encode(v)
+}
+
+// WriteJSONLine writes v on one line (NDJSON), for output that streams.
+func WriteJSONLine(w io.Writer, v any) error {
+	return json.NewEncoder(w).Encode(v)
+}
+
+// Status is the JSON shape of a drift status: of one lead, or (lead null)
+// of the series level, the pooled decision leads.
+type Status struct {
+	Lead           *int32   `json:"lead"`
+	State          string   `json:"state"`
+	Breached       []string `json:"breached"` // metrics outside their alarm limit: the cause of "degraded"
+	StateSince     *string  `json:"state_since"`
+	LastOriginTime *string  `json:"last_origin_time"`
+	WindowN        int32    `json:"window_n"`
+	MAE            *float64 `json:"mae"`
+	MAEExpected    *float64 `json:"mae_expected"`
+	MAEBandLower   *float64 `json:"mae_band_lower"`
+	MAEBandUpper   *float64 `json:"mae_band_upper"`
+	MAEAlarmLimit  *float64 `json:"mae_alarm_limit"`
+	ME             *float64 `json:"me"`
+	MEExpected     *float64 `json:"me_expected"`
+	MEAlarmLower   *float64 `json:"me_alarm_lower"`
+	MEAlarmUpper   *float64 `json:"me_alarm_upper"`
+	KEff           *float64 `json:"k_eff"`
+}
+
+// SeriesDrift is the JSON shape of the drift picture of one (series,
+// model). State is the series-level state, the one meant for paging;
+// "insufficient_data" when the server has not judged the series level.
+type SeriesDrift struct {
+	Series          string   `json:"series"`
+	Model           string   `json:"model"`
+	State           string   `json:"state"`
+	StateSince      *string  `json:"state_since"`
+	BaselineVersion *int32   `json:"baseline_version"` // null without a baseline
+	DecisionLeads   []int32  `json:"decision_leads"`
+	SeriesLevel     *Status  `json:"series_level"`
+	Leads           []Status `json:"leads"` // every lead status, ascending by lead
+}
+
+// States is the JSON document of `aftercast drift`.
+type States struct {
+	Series []SeriesDrift `json:"series"`
+}
+
+// ToStatus converts one drift status.
+func ToStatus(s *aftercastv1.DriftStatus) Status {
+	o := Status{Lead: s.Lead, State: StateName(s.GetState()), Breached: make([]string, 0, len(s.GetBreachedMetrics())),
+		StateSince: ts(s.GetStateSinceTime()), LastOriginTime: ts(s.GetLastOriginTime()), WindowN: s.GetWindowN(),
+		MAE: opt(s.Mae), MAEExpected: opt(s.MaeExpected), MAEBandLower: opt(s.MaeBandLower), MAEBandUpper: opt(s.MaeBandUpper),
+		MAEAlarmLimit: opt(s.MaeAlarmLimit), ME: opt(s.Me), MEExpected: opt(s.MeExpected), MEAlarmLower: opt(s.MeAlarmLower),
+		MEAlarmUpper: opt(s.MeAlarmUpper), KEff: opt(s.KEff)}
+	for _, m := range s.GetBreachedMetrics() {
+		o.Breached = append(o.Breached, cmp.Or(MetricName(m), "unspecified"))
+	}
+	return o
+}
+
+// seriesState is the series-level state of d.
+func seriesState(d *aftercastv1.SeriesModelDrift) aftercastv1.DriftState {
+	if st := d.GetSeriesStatus().GetState(); st != aftercastv1.DriftState_DRIFT_STATE_UNSPECIFIED {
+		return st
+	}
+	return aftercastv1.DriftState_DRIFT_STATE_INSUFFICIENT_DATA
+}
+
+// leadStatuses are d's lead statuses ascending by lead.
+func leadStatuses(d *aftercastv1.SeriesModelDrift) []*aftercastv1.DriftStatus {
+	ls := slices.Clone(d.GetLeadStatuses())
+	slices.SortStableFunc(ls, func(a, b *aftercastv1.DriftStatus) int { return cmp.Compare(a.GetLead(), b.GetLead()) })
+	return ls
+}
+
+// ToSeriesDrift converts the drift picture of one (series, model).
+func ToSeriesDrift(d *aftercastv1.SeriesModelDrift) SeriesDrift {
+	o := SeriesDrift{Series: d.GetSeries(), Model: d.GetModel(), State: StateName(seriesState(d)),
+		DecisionLeads: append([]int32{}, d.GetDecisionLeads()...), Leads: make([]Status, 0, len(d.GetLeadStatuses()))}
+	if v := d.GetBaselineVersion(); v > 0 {
+		o.BaselineVersion = &v
+	}
+	if s := d.GetSeriesStatus(); s != nil {
+		st := ToStatus(s)
+		o.SeriesLevel, o.StateSince = &st, st.StateSince
+	}
+	for _, l := range leadStatuses(d) {
+		o.Leads = append(o.Leads, ToStatus(l))
+	}
+	return o
+}
+
+// ToStates converts every (series, model) listed.
+func ToStates(ds []*aftercastv1.SeriesModelDrift) States {
+	o := States{Series: make([]SeriesDrift, 0, len(ds))}
+	for _, d := range ds {
+		o.Series = append(o.Series, ToSeriesDrift(d))
+	}
+	return o
+}
+
+// Event is the JSON shape of a drift event. Lead is null for a change of
+// the series-level state; Metric is null when no metric value caused the
+// change, and Previous is null for the first evaluation.
+type Event struct {
+	Token      string   `json:"token"` // resume token: continue after this event
+	Time       *string  `json:"time"`
+	Series     string   `json:"series"`
+	Model      string   `json:"model"`
+	Lead       *int32   `json:"lead"`
+	OriginTime *string  `json:"origin_time"`
+	Metric     *string  `json:"metric"`
+	Previous   *string  `json:"previous"`
+	State      string   `json:"state"`
+	Value      *float64 `json:"value"`
+	Limit      *float64 `json:"limit"`
+	BandLower  *float64 `json:"band_lower"`
+	BandUpper  *float64 `json:"band_upper"`
+	WindowN    int32    `json:"window_n"`
+	KEff       *float64 `json:"k_eff"`
+}
+
+// Events is the JSON document of `aftercast events`.
+type Events struct {
+	Events []Event `json:"events"`
+}
+
+// ToEvent converts one drift event.
+func ToEvent(e *aftercastv1.DriftEvent) Event {
+	o := Event{Token: e.GetToken(), Time: ts(e.GetEventTime()), Series: e.GetSeries(), Model: e.GetModel(), Lead: e.Lead,
+		OriginTime: ts(e.GetOriginTime()), Metric: str(MetricName(e.GetMetric())), State: StateName(e.GetNewState()),
+		Value: opt(e.Value), Limit: opt(e.Limit), BandLower: opt(e.BandLower), BandUpper: opt(e.BandUpper),
+		WindowN: e.GetWindowN(), KEff: opt(e.KEff)}
+	if p := e.GetPreviousState(); p != aftercastv1.DriftState_DRIFT_STATE_UNSPECIFIED {
+		o.Previous = str(StateName(p))
+	}
+	return o
+}
+
+// ToEvents converts events, keeping their order.
+func ToEvents(es []*aftercastv1.DriftEvent) Events {
+	o := Events{Events: make([]Event, 0, len(es))}
+	for _, e := range es {
+		o.Events = append(o.Events, ToEvent(e))
+	}
+	return o
+}
+
+// Warning is the JSON shape of a baseline warning; lead is null for one
+// about the whole baseline.
+type Warning struct {
+	Kind    string `json:"kind"`
+	Lead    *int32 `json:"lead"`
+	Message string `json:"message"`
+}
+
+// Version is the JSON shape of a baseline version's summary.
+type Version struct {
+	Series             string    `json:"series"`
+	Model              string    `json:"model"`
+	Version            int32     `json:"version"`
+	Active             bool      `json:"active"`
+	CreateTime         *string   `json:"create_time"`
+	FirstOriginTime    *string   `json:"first_origin_time"`
+	LastOriginTime     *string   `json:"last_origin_time"`
+	OriginCadenceSteps int32     `json:"origin_cadence_steps"`
+	MaxLead            int32     `json:"max_lead"`
+	Rows               int64     `json:"rows"`
+	TrainingActuals    int64     `json:"training_actuals"` // used for the MASE scale
+	MASEScale          *float64  `json:"mase_scale"`
+	Warnings           []Warning `json:"warnings"`
+}
+
+// ToVersion converts a baseline version's summary.
+func ToVersion(v *aftercastv1.BaselineVersion) Version {
+	o := Version{Series: v.GetSeries(), Model: v.GetModel(), Version: v.GetVersion(), Active: v.GetActive(),
+		CreateTime: ts(v.GetCreateTime()), FirstOriginTime: ts(v.GetFirstOriginTime()), LastOriginTime: ts(v.GetLastOriginTime()),
+		OriginCadenceSteps: v.GetOriginCadenceSteps(), MaxLead: v.GetMaxLead(), Rows: v.GetRowCount(),
+		TrainingActuals: v.GetTrainingActualCount(), MASEScale: opt(v.MaseScale), Warnings: make([]Warning, 0, len(v.GetWarnings()))}
+	for _, w := range v.GetWarnings() {
+		o.Warnings = append(o.Warnings, Warning{Kind: WarningKindName(w.GetKind()), Lead: w.Lead, Message: w.GetMessage()})
+	}
+	return o
+}
+
+// Imported is the JSON shape of one series' outcome of an import.
+type Imported struct {
+	Created bool `json:"created"` // false: the upload equalled the active version
+	Version
+}
+
+// Import is the JSON document of `aftercast baseline import`.
+type Import struct {
+	Model     string     `json:"model"`
+	Baselines []Imported `json:"baselines"`
+}
+
+// ToImport converts an import's response.
+func ToImport(r *aftercastv1.ImportBaselineResponse) Import {
+	o := Import{Model: r.GetModel(), Baselines: make([]Imported, 0, len(r.GetBaselines()))}
+	for _, b := range r.GetBaselines() {
+		o.Baselines = append(o.Baselines, Imported{Created: b.GetCreated(), Version: ToVersion(b.GetVersion())})
+	}
+	return o
+}
+
+// Metrics is the JSON shape of accuracy metrics, the keys of `aftercast
+// evaluate` JSON.
+type Metrics struct {
+	N             int64    `json:"n"`
+	ME            *float64 `json:"me"`
+	MAE           *float64 `json:"mae"`
+	RMSE          *float64 `json:"rmse"`
+	MAPE          *float64 `json:"mape"`
+	MAPEExcluded  int64    `json:"mape_excluded"`
+	SMAPE         *float64 `json:"smape"`
+	SMAPEExcluded int64    `json:"smape_excluded"`
+	WAPE          *float64 `json:"wape"`
+	MASE          *float64 `json:"mase"`
+}
+
+func toMetrics(m *aftercastv1.AccuracyMetrics) *Metrics {
+	if m == nil {
+		return nil
+	}
+	return &Metrics{N: m.GetN(), ME: opt(m.Me), MAE: opt(m.Mae), RMSE: opt(m.Rmse), MAPE: opt(m.Mape),
+		MAPEExcluded: m.GetMapeExcluded(), SMAPE: opt(m.Smape), SMAPEExcluded: m.GetSmapeExcluded(), WAPE: opt(m.Wape), MASE: opt(m.Mase)}
+}
+
+// UpperBand is the JSON shape of the band of MAE or RMSE: expectation,
+// 95% band and the one-sided 99% upper alarm limit for a window of
+// window_n origins.
+type UpperBand struct {
+	Expected   *float64 `json:"expected"`
+	BandLower  *float64 `json:"band_lower"`
+	BandUpper  *float64 `json:"band_upper"`
+	AlarmUpper *float64 `json:"alarm_upper"`
+	KEff       *float64 `json:"k_eff"`
+}
+
+// TwoSidedBand is the JSON shape of the band of ME: expectation, 95% band
+// and the two-sided 99% alarm band.
+type TwoSidedBand struct {
+	Expected   *float64 `json:"expected"`
+	BandLower  *float64 `json:"band_lower"`
+	BandUpper  *float64 `json:"band_upper"`
+	AlarmLower *float64 `json:"alarm_lower"`
+	AlarmUpper *float64 `json:"alarm_upper"`
+	KEff       *float64 `json:"k_eff"`
+}
+
+func toUpper(b *aftercastv1.MetricBand) *UpperBand {
+	if b == nil {
+		return nil
+	}
+	return &UpperBand{Expected: num(b.GetExpected()), BandLower: num(b.GetBandLower()), BandUpper: num(b.GetBandUpper()),
+		AlarmUpper: num(b.GetAlarmUpper()), KEff: num(b.GetKEff())}
+}
+
+func toTwoSided(b *aftercastv1.MetricBand) *TwoSidedBand {
+	if b == nil {
+		return nil
+	}
+	return &TwoSidedBand{Expected: num(b.GetExpected()), BandLower: num(b.GetBandLower()), BandUpper: num(b.GetBandUpper()),
+		AlarmLower: opt(b.AlarmLower), AlarmUpper: num(b.GetAlarmUpper()), KEff: num(b.GetKEff())}
+}
+
+// BaselineLead is the JSON shape of what a baseline expects of one lead,
+// or (lead 0) of the pooled decision leads. Reason is null when usable;
+// expected and the bands are null when the server gives none.
+type BaselineLead struct {
+	Lead     int32         `json:"lead"`
+	K        int32         `json:"k"`
+	KEff     *float64      `json:"k_eff"`
+	Usable   bool          `json:"usable"`
+	Reason   *string       `json:"reason"`
+	Expected *Metrics      `json:"expected"`
+	MAE      *UpperBand    `json:"mae"`
+	RMSE     *UpperBand    `json:"rmse"`
+	ME       *TwoSidedBand `json:"me"`
+}
+
+func toBaselineLead(l *aftercastv1.BaselineLead) BaselineLead {
+	return BaselineLead{Lead: l.GetLead(), K: l.GetK(), KEff: num(l.GetKEff()), Usable: l.GetUsable(), Reason: str(l.GetUnusableReason()),
+		Expected: toMetrics(l.GetExpected()), MAE: toUpper(l.GetMae()), RMSE: toUpper(l.GetRmse()), ME: toTwoSided(l.GetMe())}
+}
+
+// Baseline is the JSON document of `aftercast baseline show`: the
+// version's summary, then per lead and pooled what it expects for a
+// window of window_n origins.
+type Baseline struct {
+	Version
+	WindowN int32          `json:"window_n"`
+	Leads   []BaselineLead `json:"leads"`
+	Pooled  *BaselineLead  `json:"pooled"`
+}
+
+// ToBaseline converts a GetBaseline response.
+func ToBaseline(r *aftercastv1.GetBaselineResponse) Baseline {
+	o := Baseline{Version: ToVersion(r.GetVersion()), WindowN: r.GetWindowN(), Leads: make([]BaselineLead, 0, len(r.GetLeads()))}
+	for _, l := range r.GetLeads() {
+		o.Leads = append(o.Leads, toBaselineLead(l))
+	}
+	if p := r.GetPooled(); p != nil {
+		pl := toBaselineLead(p)
+		o.Pooled = &pl
+	}
+	return o
+}
