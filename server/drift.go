@@ -204,6 +204,7 @@ func (a *api) evaluateDrift(ctx context.Context, series []string) {
 	if err != nil {
 		a.log.ErrorContext(ctx, "evaluating drift", "err", err)
 	}
+	a.metrics().countStateChanges(evs)
 	for _, ev := range evs {
 		a.log.InfoContext(ctx, "drift state changed", "series", ev.Series, "model", ev.Model, "lead", ev.Lead,
 			"from", ev.Previous, "to", ev.State, "metric", ev.Metric, "origin", ev.Origin)

@@ -15,7 +15,11 @@ import (
 // (the database answers).
 func (s *Server) httpHandler() http.Handler {
 	mux := http.NewServeMux()
-	mux.Handle("GET /metrics", promhttp.HandlerFor(s.cfg.Registry, promhttp.HandlerOpts{ErrorLog: slogPrinter{s}}))
+	// A scrape reads every drift state from PostgreSQL: a few at a time. A
+	// failed read fails the scrape (HTTP 500, up = 0) and is counted in
+	// promhttp_metric_handler_errors_total{cause="gathering"}.
+	mux.Handle("GET /metrics", promhttp.HandlerFor(s.cfg.Registry, promhttp.HandlerOpts{
+		ErrorLog: slogPrinter{s}, Registry: s.cfg.Registry, MaxRequestsInFlight: 4}))
 	mux.HandleFunc("GET /healthz", func(w http.ResponseWriter, _ *http.Request) {
 		w.Write([]byte("ok\n"))
 	})

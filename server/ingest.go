@@ -81,6 +81,18 @@ func (a *api) writeForecasts(ctx context.Context, fs []*aftercastv1.Forecast, fi
 	vs, ack := a.toVectors(fs, first)
 	stored, err := a.store.WriteForecasts(ctx, vs, first)
 	ack.Add(stored)
+	if err == nil {
+		a.metrics().countForecasts(ack)
+	}
+	return ack, err
+}
+
+// writeActuals stores a batch of actuals and counts what became of them.
+func (a *api) writeActuals(ctx context.Context, as []store.Actual, first int) (store.Ack, error) {
+	ack, err := a.store.WriteActuals(ctx, as, first)
+	if err == nil {
+		a.metrics().countActuals(ack)
+	}
 	return ack, err
 }
 
@@ -158,7 +170,7 @@ func actualSummary(ack store.Ack) *aftercastv1.ActualPushSummary {
 
 func (s *actualService) PushActuals(ctx context.Context, req *aftercastv1.PushActualsRequest) (*aftercastv1.PushActualsResponse, error) {
 	as := toActuals(req.GetActuals())
-	ack, err := s.store.WriteActuals(ctx, as, 0)
+	ack, err := s.writeActuals(ctx, as, 0)
 	if err != nil {
 		return nil, s.status(ctx, err)
 	}
@@ -205,7 +217,7 @@ func (s *actualService) StreamActuals(stream aftercastv1.ActualService_StreamAct
 			return err
 		}
 		as := toActuals(req.GetActuals())
-		ack, err := s.store.WriteActuals(ctx, as, n)
+		ack, err := s.writeActuals(ctx, as, n)
 		if err != nil {
 			return s.status(ctx, err)
 		}

@@ -15,7 +15,10 @@ import (
 type api struct {
 	store *store.Store
 	log   *slog.Logger
+	m     *metrics
 }
+
+func (a *api) metrics() *metrics { return a.m }
 
 func (a *api) status(ctx context.Context, err error) error { return toStatus(ctx, a.log, err) }
 

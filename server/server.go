@@ -51,8 +51,20 @@ type Config struct {
 	MaxMessageBytes int           // largest gRPC message received; default 16 MiB
 	ShutdownTimeout time.Duration // bound on draining RPCs at stop; default 10s
 
-	Logger   *slog.Logger         // default: discard
-	Registry *prometheus.Registry // default: a new registry
+	// MetricsLeads selects the leads that get per-lead metric families:
+	// "decision" (each series' decision leads; the default when empty),
+	// "all", or a lead list such as "1-24,48".
+	MetricsLeads string
+	// MetricsMaxSeries caps the (series, model) pairs that get per-lead
+	// metric families, in key order; the rest are counted in
+	// aftercast_metrics_series_dropped_total. Zero means 2000, a negative
+	// value no cap.
+	MetricsMaxSeries int
+
+	Logger *slog.Logger // default: discard
+	// Registry receives the service's metrics; default: a new registry.
+	// It must not be shared with another Server.
+	Registry *prometheus.Registry
 }
 
 func (c *Config) defaults() {
@@ -81,9 +93,11 @@ type Server struct {
 	cfg Config
 	log *slog.Logger
 
+	metrics  *metrics
 	cluster  *pglocal.Cluster
 	pool     *pgxpool.Pool
 	store    *store.Store
+	api      *api
 	grpc     *grpc.Server
 	health   *health.Server
 	http     *http.Server
@@ -98,7 +112,12 @@ type Server struct {
 // New validates cfg and returns a Server that Start will bring up.
 func New(cfg Config) (*Server, error) {
 	cfg.defaults()
-	return &Server{cfg: cfg, log: cfg.Logger, serveErr: make(chan error, 2)}, nil
+	leads, err := parseLeadSelection(cfg.MetricsLeads)
+	if err != nil {
+		return nil, err
+	}
+	return &Server{cfg: cfg, log: cfg.Logger, serveErr: make(chan error, 2),
+		metrics: newMetrics(cfg.Registry, cfg.Logger, leads, cfg.MetricsMaxSeries)}, nil
 }
 
 // DefaultDataDir is where `aftercast serve` keeps its private cluster when
@@ -158,6 +177,7 @@ func (s *Server) Start(ctx context.Context) (err error) {
 		}
 	}
 	s.store = store.New(s.pool, s.cfg.Limits)
+	s.metrics.store.Store(s.store)
 
 	if s.grpcLis, err = net.Listen("tcp", s.cfg.Listen); err != nil {
 		return fmt.Errorf("gRPC listener: %w", err)
@@ -221,15 +241,18 @@ func (s *Server) newGRPC() *grpc.Server {
 		grpc.MaxConcurrentStreams(256),
 		grpc.KeepaliveParams(keepalive.ServerParameters{MaxConnectionAge: 30 * time.Minute, MaxConnectionAgeGrace: time.Minute}),
 		grpc.ChainUnaryInterceptor(
+			s.metrics.grpc.UnaryServerInterceptor(),
 			logging.UnaryServerInterceptor(slogAdapter(s.log), logOpts...),
 			recovery.UnaryServerInterceptor(recoverOpt),
 		),
 		grpc.ChainStreamInterceptor(
+			s.metrics.grpc.StreamServerInterceptor(),
 			logging.StreamServerInterceptor(slogAdapter(s.log), logOpts...),
 			recovery.StreamServerInterceptor(recoverOpt),
 		),
 	)
-	api := &api{store: s.store, log: s.log}
+	api := &api{store: s.store, log: s.log, m: s.metrics}
+	s.api = api
 	aftercastv1.RegisterSeriesServiceServer(srv, &seriesService{api: api})
 	aftercastv1.RegisterForecastServiceServer(srv, &forecastService{api: api})
 	aftercastv1.RegisterActualServiceServer(srv, &actualService{api: api})
@@ -242,6 +265,7 @@ func (s *Server) newGRPC() *grpc.Server {
 		s.health.SetServingStatus(name, healthpb.HealthCheckResponse_SERVING)
 	}
 	reflection.Register(srv)
+	s.metrics.grpc.InitializeMetrics(srv)
 	return srv
 }
 
