@@ -6,6 +6,8 @@ import (
 	"strconv"
 	"time"
 
+	"google.golang.org/grpc/codes"
+	"google.golang.org/grpc/status"
 	"google.golang.org/protobuf/types/known/timestamppb"
 
 	aftercastv1 "github.com/aftercast/aftercast/api/aftercast/v1"
@@ -167,6 +169,12 @@ func (s *driftService) WatchDriftEvents(req *aftercastv1.WatchDriftEventsRequest
 	if err != nil {
 		return err
 	}
+	if req.GetResumeToken() == "" {
+		// No token: start with what is committed after the call began.
+		if after, err = s.store.LastEventSeq(ctx); err != nil {
+			return s.status(ctx, err)
+		}
+	}
 	tick := time.NewTicker(watchPoll)
 	defer tick.Stop()
 	for {
@@ -188,6 +196,10 @@ func (s *driftService) WatchDriftEvents(req *aftercastv1.WatchDriftEventsRequest
 		select {
 		case <-ctx.Done():
 			return nil
+		case <-s.stopping:
+			// Shutting down: end the stream so that draining does not wait
+			// for watchers; clients resume with their last token.
+			return status.Error(codes.Unavailable, "server shutting down, resume with the last token")
 		case <-tick.C:
 		}
 	}

@@ -16,6 +16,9 @@ type api struct {
 	store *store.Store
 	log   *slog.Logger
 	m     *metrics
+	// stopping is closed when the server starts shutting down, to end
+	// long-lived streams.
+	stopping chan struct{}
 }
 
 func (a *api) metrics() *metrics { return a.m }

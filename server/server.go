@@ -251,7 +251,7 @@ func (s *Server) newGRPC() *grpc.Server {
 			recovery.StreamServerInterceptor(recoverOpt),
 		),
 	)
-	api := &api{store: s.store, log: s.log, m: s.metrics}
+	api := &api{store: s.store, log: s.log, m: s.metrics, stopping: make(chan struct{})}
 	s.api = api
 	aftercastv1.RegisterSeriesServiceServer(srv, &seriesService{api: api})
 	aftercastv1.RegisterForecastServiceServer(srv, &forecastService{api: api})
@@ -320,6 +320,9 @@ func (s *Server) Stop(ctx context.Context) error {
 	s.stopOnce.Do(func() {
 		if s.health != nil {
 			s.health.Shutdown()
+		}
+		if s.api != nil {
+			close(s.api.stopping)
 		}
 		if s.bgStop != nil {
 			s.bgStop()

@@ -304,14 +304,16 @@ func (s *Store) evaluate(ctx context.Context, tx pgx.Tx, se *Series, model strin
 		ev := DriftEvent{Time: now, Series: se.Key, Model: model, Lead: r.lead, Origin: origin, Metric: t.Metric,
 			Previous: t.From, State: t.To, Value: math.NaN(), Limit: math.NaN(), BandLower: math.NaN(), BandUpper: math.NaN(),
 			WindowN: n, KEff: math.NaN(), BaselineVersion: bm.version}
-		if t.Metric != "" {
-			ev.Value, ev.Limit, ev.KEff = t.Value, t.Limit, t.KEff
-		}
-		if r.snap.MAEBandLower != nil {
+		// The band beside the value: the MAE's 95% band, or the ME's 99%
+		// band it was judged against; none for a change without a metric.
+		switch {
+		case t.Metric == "me" && r.snap.MEAlarmLower != nil:
+			ev.BandLower, ev.BandUpper = *r.snap.MEAlarmLower, *r.snap.MEAlarmUpper
+		case t.Metric == "mae" && r.snap.MAEBandLower != nil:
 			ev.BandLower, ev.BandUpper = *r.snap.MAEBandLower, *r.snap.MAEBandUpper
 		}
-		if t.Metric == "me" && r.snap.MEAlarmLower != nil {
-			ev.BandLower, ev.BandUpper = *r.snap.MEAlarmLower, *r.snap.MEAlarmUpper
+		if t.Metric != "" {
+			ev.Value, ev.Limit, ev.KEff = t.Value, t.Limit, t.KEff
 		}
 		r.since = now
 		events = append(events, ev)
@@ -675,6 +677,16 @@ func (s *Store) DriftEvents(ctx context.Context, seriesKey, model string, since 
 		out = append(out, ev)
 	}
 	return out, rows.Err()
+}
+
+// LastEventSeq is the sequence number of the newest committed event (0
+// when there is none): where a watch without a resume token starts.
+func (s *Store) LastEventSeq(ctx context.Context) (int64, error) {
+	var seq int64
+	if err := s.pool.QueryRow(ctx, `SELECT coalesce(max(seq), 0) FROM drift_events`).Scan(&seq); err != nil {
+		return 0, fmt.Errorf("reading drift events: %w", err)
+	}
+	return seq, nil
 }
 
 func orNaN(p *float64) float64 {
