@@ -1,0 +1,119 @@
+package server_test
+
+import (
+	"context"
+	"math/rand/v2"
+	"testing"
+	"time"
+
+	"google.golang.org/grpc"
+	"google.golang.org/grpc/credentials/insecure"
+
+	aftercastv1 "github.com/aftercast/aftercast/api/aftercast/v1"
+	"github.com/aftercast/aftercast/server/store"
+	"github.com/aftercast/aftercast/server/store/storetest"
+)
+
+// pushDays writes days of daily forecasts (leads 1..leads, hourly step) and
+// their actuals, with errors scaled by scale, then evaluates drift.
+func pushDays(t *testing.T, ctx context.Context, st *store.Store, key string, from, days, leads int, scale float64, r *rand.Rand) {
+	t.Helper()
+	for k := from; k < from+days; k++ {
+		o := t0.Add(time.Duration(k) * 24 * time.Hour)
+		vals := make([]float64, leads)
+		var as []store.Actual
+		for h := 1; h <= leads; h++ {
+			vals[h-1] = 100 - scale*r.NormFloat64()
+			as = append(as, store.Actual{Series: key, Time: o.Add(time.Duration(h) * time.Hour), Value: 100})
+		}
+		if _, err := st.WriteForecasts(ctx, []store.ForecastVector{{Series: key, Model: "m", Origin: o, Values: vals}}, 0); err != nil {
+			t.Fatal(err)
+		}
+		if _, err := st.WriteActuals(ctx, as, 0); err != nil {
+			t.Fatal(err)
+		}
+	}
+	if _, err := st.EvaluateDrift(ctx, []string{key}); err != nil {
+		t.Fatal(err)
+	}
+}
+
+// A watch without a token starts with new events; a watch resumed with a
+// token delivers exactly the events after it, as listed.
+func TestWatchDriftEventsResumes(t *testing.T) {
+	t.Parallel()
+	srv, _ := start(t, storetest.URL(t))
+	ctx := ctxT(t)
+	st := srv.Store()
+	const leads = 4
+	if _, _, err := st.CreateSeries(ctx, store.Series{Key: "w", Step: "1h", Horizon: leads}); err != nil {
+		t.Fatal(err)
+	}
+	r := rand.New(rand.NewPCG(5, 6))
+	var rows []store.BacktestRow
+	for k := -365; k < 0; k++ {
+		o := t0.Add(time.Duration(k) * 24 * time.Hour)
+		for h := 1; h <= leads; h++ {
+			rows = append(rows, store.BacktestRow{Series: "w", Origin: o, Target: o.Add(time.Duration(h) * time.Hour), Actual: 100, Forecast: 100 - r.NormFloat64()})
+		}
+	}
+	if _, err := st.ImportBaseline(ctx, "m", rows, nil, nil); err != nil {
+		t.Fatal(err)
+	}
+	pushDays(t, ctx, st, "w", 0, 20, leads, 1, r) // events so far: leaving insufficient_data
+	conn := dialT(t, srv.GRPCAddr())
+	drift := aftercastv1.NewDriftServiceClient(conn)
+	before, err := drift.ListDriftEvents(ctx, &aftercastv1.ListDriftEventsRequest{PageSize: 1000})
+	if err != nil || len(before.GetEvents()) == 0 {
+		t.Fatalf("events before: %d, %v", len(before.GetEvents()), err)
+	}
+
+	wctx, cancel := context.WithCancel(ctx)
+	watch, err := drift.WatchDriftEvents(wctx, &aftercastv1.WatchDriftEventsRequest{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	time.Sleep(700 * time.Millisecond)             // let the watch take its starting point
+	pushDays(t, ctx, st, "w", 20, 30, leads, 3, r) // errors ×3: degraded events follow
+	first, err := watch.Recv()
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, ev := range before.GetEvents() {
+		if ev.GetToken() == first.GetEvent().GetToken() {
+			t.Fatalf("a watch without a token replayed old event %s", ev.GetToken())
+		}
+	}
+	cancel()
+
+	// Resume after the first event received: the rest, no gap, no repeat.
+	want, err := drift.ListDriftEvents(ctx, &aftercastv1.ListDriftEventsRequest{PageToken: first.GetEvent().GetToken(), PageSize: 1000})
+	if err != nil || len(want.GetEvents()) == 0 {
+		t.Fatalf("events after the first: %d, %v", len(want.GetEvents()), err)
+	}
+	rctx, rcancel := context.WithTimeout(ctx, 20*time.Second)
+	defer rcancel()
+	resumed, err := drift.WatchDriftEvents(rctx, &aftercastv1.WatchDriftEventsRequest{ResumeToken: first.GetEvent().GetToken()})
+	if err != nil {
+		t.Fatal(err)
+	}
+	for i, w := range want.GetEvents() {
+		got, err := resumed.Recv()
+		if err != nil {
+			t.Fatalf("event %d: %v", i, err)
+		}
+		if got.GetEvent().GetToken() != w.GetToken() {
+			t.Fatalf("event %d: token %s, want %s", i, got.GetEvent().GetToken(), w.GetToken())
+		}
+	}
+}
+
+func dialT(t *testing.T, addr string) *grpc.ClientConn {
+	t.Helper()
+	conn, err := grpc.NewClient(addr, grpc.WithTransportCredentials(insecure.NewCredentials()))
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(func() { conn.Close() })
+	return conn
+}
