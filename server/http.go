@@ -9,6 +9,8 @@ import (
 	"time"
 
 	"github.com/prometheus/client_golang/prometheus/promhttp"
+
+	"github.com/aftercast/aftercast/server/web"
 )
 
 // httpHandler serves /metrics, /healthz (the process is up) and /readyz
@@ -31,6 +33,8 @@ func (s *Server) httpHandler() http.Handler {
 		}
 		w.Write([]byte("ok\n"))
 	})
+	// Everything else is the status page.
+	mux.Handle("/", web.New(s.store, s.log))
 	return mux
 }
 
