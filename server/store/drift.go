@@ -18,11 +18,6 @@ import (
 // WindowN is the live window of method.md §6: the last 30 origins.
 const WindowN = 30
 
-// eventsLockKey serialises the transactions that write drift events, so
-// that event sequence numbers become visible in order and a watcher that
-// reads "everything after seq s" can never skip one committed later.
-const eventsLockKey = 0x61667465 // "afte"
-
 // leadBaseline is what one lead's (or the pooled series quantity's)
 // backtest contributes to drift: band summaries and the usability verdict.
 type leadBaseline struct {
@@ -597,7 +592,10 @@ func nullable(x float64) any {
 }
 
 func insertEvents(ctx context.Context, tx pgx.Tx, se *Series, events []DriftEvent) error {
-	if _, err := tx.Exec(ctx, "SELECT pg_advisory_xact_lock($1)", eventsLockKey); err != nil {
+	// Held to commit, this lock makes event sequence numbers become visible
+	// in order, so a watcher reading "everything after seq s" can never skip
+	// one committed later.
+	if _, err := tx.Exec(ctx, "SELECT pg_advisory_xact_lock($1, $2)", lockClass, lockEvents); err != nil {
 		return fmt.Errorf("taking the events lock: %w", err)
 	}
 	for i := range events {

@@ -334,10 +334,10 @@ func lockSeries(ctx context.Context, tx pgx.Tx, ids []int64) error {
 	ids = slices.Clone(ids)
 	slices.Sort(ids)
 	ids = slices.Compact(ids)
-	for _, id := range ids {
-		if _, err := tx.Exec(ctx, "SELECT pg_advisory_xact_lock($1)", id); err != nil {
-			return fmt.Errorf("locking series: %w", err)
-		}
+	// One round trip: unnest yields the sorted ids in array order, so the
+	// locks are still taken in id order.
+	if _, err := tx.Exec(ctx, "SELECT pg_advisory_xact_lock(id) FROM unnest($1::bigint[]) AS id", ids); err != nil {
+		return fmt.Errorf("locking series: %w", err)
 	}
 	return nil
 }
@@ -430,7 +430,7 @@ var stageColumns = []string{"series_id", "model", "origin", "vals", "late", "qua
 // table, then one upsert. COPY is the fastest way in; the upsert keeps the
 // write idempotent and first_received_at untouched.
 func storeForecasts(ctx context.Context, tx pgx.Tx, rows map[forecastKey]*forecastRow, now time.Time) error {
-	var src [][]any
+	var fresh, src [][]any
 	for _, r := range rows {
 		if !r.changed {
 			continue
@@ -448,7 +448,19 @@ func storeForecasts(ctx context.Context, tx pgx.Tx, rows map[forecastKey]*foreca
 			}
 			qVals = q
 		}
-		src = append(src, []any{r.se.ID, r.model, r.origin, toFloat8(r.vals), late, qLevels, qVals, r.issuedAt, r.firstRecv, now})
+		row := []any{r.se.ID, r.model, r.origin, toFloat8(r.vals), late, qLevels, qVals, r.issuedAt, r.firstRecv, now}
+		if r.exists {
+			src = append(src, row)
+		} else {
+			fresh = append(fresh, row)
+		}
+	}
+	// A vector not stored yet goes straight in: no other writer can insert
+	// it while this transaction holds its series' lock.
+	if len(fresh) > 0 {
+		if _, err := tx.CopyFrom(ctx, pgx.Identifier{"forecasts"}, stageColumns, pgx.CopyFromRows(fresh)); err != nil {
+			return fmt.Errorf("copying forecasts: %w", err)
+		}
 	}
 	if len(src) == 0 {
 		return nil
@@ -605,8 +617,12 @@ func (s *Store) WriteActuals(ctx context.Context, as []Actual, firstIndex int) (
 		if err := touchActualFreshness(ctx, tx, ids, times, now); err != nil {
 			return err
 		}
-		for id, ts := range fresh {
-			n, err := countCompleted(ctx, tx, seriesByID(series, id), ts)
+		if len(fresh) > 0 {
+			byID := make(map[int64]*Series, len(series))
+			for _, se := range series {
+				byID[se.ID] = se
+			}
+			n, err := countCompleted(ctx, tx, byID, fresh)
 			if err != nil {
 				return err
 			}
@@ -629,15 +645,6 @@ func (s *Store) WriteActuals(ctx context.Context, as []Actual, firstIndex int) (
 		return Ack{Rejected: ack.Rejected, Rejections: ack.Rejections}, err
 	}
 	return ack, nil
-}
-
-func seriesByID(m map[string]*Series, id int64) *Series {
-	for _, se := range m {
-		if se.ID == id {
-			return se
-		}
-	}
-	return nil
 }
 
 func touchActualFreshness(ctx context.Context, tx pgx.Tx, ids []int64, times []time.Time, now time.Time) error {
@@ -663,33 +670,50 @@ func touchActualFreshness(ctx context.Context, tx pgx.Tx, ids []int64, times []t
 }
 
 // countCompleted counts the forecast values (not late) whose targets are
-// among ts, new actuals of series se: the pairs these actuals complete.
-func countCompleted(ctx context.Context, tx pgx.Tx, se *Series, ts []time.Time) (int64, error) {
-	set := make(map[int64]bool, len(ts))
-	lo, hi := ts[0], ts[0]
-	for _, t := range ts {
-		set[t.UnixNano()] = true
-		if t.Before(lo) {
-			lo = t
+// new actuals — fresh maps series id to their times: the pairs these
+// actuals complete. One query for the batch reads, per (series, model) seen
+// in forecast_freshness, the vectors whose origins can reach those times,
+// through the primary key.
+func countCompleted(ctx context.Context, tx pgx.Tx, byID map[int64]*Series, fresh map[int64][]time.Time) (int64, error) {
+	ids := make([]int64, 0, len(fresh))
+	los, his := make([]time.Time, 0, len(fresh)), make([]time.Time, 0, len(fresh))
+	sets := make(map[int64]map[int64]bool, len(fresh))
+	for id, ts := range fresh {
+		se := byID[id]
+		lo, hi := ts[0], ts[0]
+		set := make(map[int64]bool, len(ts))
+		for _, t := range ts {
+			set[t.UnixNano()] = true
+			if t.Before(lo) {
+				lo = t
+			}
+			if t.After(hi) {
+				hi = t
+			}
 		}
-		if t.After(hi) {
-			hi = t
-		}
+		sets[id] = set
+		ids, los, his = append(ids, id), append(los, se.step.Add(lo, -se.Horizon)), append(his, hi)
 	}
-	rows, err := tx.Query(ctx, `SELECT origin, vals, late FROM forecasts WHERE series_id = $1 AND origin >= $2 AND origin < $3`,
-		se.ID, se.step.Add(lo, -se.Horizon), hi)
+	rows, err := tx.Query(ctx, `SELECT f.series_id, f.origin, f.vals, f.late
+		FROM unnest($1::bigint[], $2::timestamptz[], $3::timestamptz[]) AS r(series_id, lo, hi)
+		JOIN forecast_freshness ff ON ff.series_id = r.series_id
+		JOIN LATERAL (SELECT series_id, origin, vals, late FROM forecasts f
+			WHERE f.series_id = r.series_id AND f.model = ff.model AND f.origin >= r.lo AND f.origin < r.hi) f ON true`,
+		ids, los, his)
 	if err != nil {
 		return 0, fmt.Errorf("counting scored pairs: %w", err)
 	}
 	defer rows.Close()
 	var n int64
 	for rows.Next() {
+		var id int64
 		var o time.Time
 		var vals []pgtype.Float8
 		var late []bool
-		if err := rows.Scan(&o, &vals, &late); err != nil {
+		if err := rows.Scan(&id, &o, &vals, &late); err != nil {
 			return 0, fmt.Errorf("counting scored pairs: %w", err)
 		}
+		se, set := byID[id], sets[id]
 		for i, v := range vals {
 			if v.Valid && !(i < len(late) && late[i]) && set[se.step.Add(o, i+1).UnixNano()] {
 				n++

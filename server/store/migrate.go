@@ -74,9 +74,14 @@ func Migrations() ([]Migration, error) {
 	return out, nil
 }
 
-// migrateLockKey is the advisory lock that serialises migrations, so that
-// several replicas starting at once apply each one exactly once.
-const migrateLockKey = 0x61667463 // "aftc"
+// The service's own advisory locks use PostgreSQL's two-key form, whose key
+// space is separate from the one-key form that locks series by id, so no
+// series id can collide with them.
+const (
+	lockClass      = 0x61667463 // "aftc"
+	lockMigrations = 1          // serialises migrations across replicas starting at once
+	lockEvents     = 2          // orders drift events (see insertEvents)
+)
 
 // Migrate applies every embedded migration not yet recorded in
 // aftercast_schema_migrations, each in its own transaction, under a
@@ -91,13 +96,13 @@ func Migrate(ctx context.Context, pool *pgxpool.Pool, log *slog.Logger) ([]int, 
 		return nil, fmt.Errorf("acquiring connection: %w", err)
 	}
 	defer conn.Release()
-	if _, err := conn.Exec(ctx, "SELECT pg_advisory_lock($1)", migrateLockKey); err != nil {
+	if _, err := conn.Exec(ctx, "SELECT pg_advisory_lock($1, $2)", lockClass, lockMigrations); err != nil {
 		return nil, fmt.Errorf("taking the migration lock: %w", err)
 	}
 	defer func() {
 		// Unlock on a context that outlives a cancelled ctx, or the lock
 		// would stay with the pooled connection.
-		_, _ = conn.Exec(context.WithoutCancel(ctx), "SELECT pg_advisory_unlock($1)", migrateLockKey)
+		_, _ = conn.Exec(context.WithoutCancel(ctx), "SELECT pg_advisory_unlock($1, $2)", lockClass, lockMigrations)
 	}()
 	if _, err := conn.Exec(ctx, `CREATE TABLE IF NOT EXISTS aftercast_schema_migrations (
 		version    integer PRIMARY KEY,

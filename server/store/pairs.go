@@ -1,6 +1,7 @@
 package store
 
 import (
+	"cmp"
 	"context"
 	"encoding/base64"
 	"encoding/binary"
@@ -92,6 +93,16 @@ type storedActual struct {
 func (s *Store) walk(ctx context.Context, se *Series, model string, sel *Selection, desc bool, from time.Time, fn func(Pair) bool) error {
 	lo, hi := originBounds(se, sel)
 	leadOK := func(h int) bool { return len(sel.Leads) == 0 || slices.Contains(sel.Leads, h) }
+	// Read only the part of each vector that holds the selected leads.
+	leads := leadSpan{1, 0}
+	if len(sel.Leads) > 0 {
+		leads = leadSpan{slices.Min(sel.Leads), slices.Max(sel.Leads)}
+	}
+	// A window needs about Window origins: read that many, then grow.
+	chunk := chunkOrigins
+	if sel.Window > 0 {
+		chunk = min(chunkOrigins, sel.Window+sel.Window/2+4)
+	}
 	if !from.IsZero() {
 		if desc {
 			hi = from.Add(time.Nanosecond)
@@ -103,7 +114,7 @@ func (s *Store) walk(ctx context.Context, se *Series, model string, sel *Selecti
 		}
 	}
 	for {
-		fs, err := s.readForecasts(ctx, se.ID, model, lo, hi, desc)
+		fs, err := readForecastSpan(ctx, s.pool, se.ID, model, lo, hi, desc, leads, chunk)
 		if err != nil {
 			return err
 		}
@@ -115,7 +126,7 @@ func (s *Store) walk(ctx context.Context, se *Series, model string, sel *Selecti
 			if f.origin.Before(tlo) {
 				tlo = f.origin
 			}
-			if t := se.step.Add(f.origin, len(f.vals)); t.After(thi) {
+			if t := se.step.Add(f.origin, leads.first-1+len(f.vals)); t.After(thi) {
 				thi = t
 			}
 		}
@@ -125,7 +136,7 @@ func (s *Store) walk(ctx context.Context, se *Series, model string, sel *Selecti
 		}
 		for _, f := range fs {
 			for i, x := range f.vals {
-				h := i + 1
+				h := leads.first + i
 				if math.IsNaN(x) || !leadOK(h) {
 					continue
 				}
@@ -144,9 +155,10 @@ func (s *Store) walk(ctx context.Context, se *Series, model string, sel *Selecti
 				}
 			}
 		}
-		if len(fs) < chunkOrigins {
+		if len(fs) < chunk {
 			return nil
 		}
+		chunk = min(chunkOrigins, 4*chunk)
 		last := fs[len(fs)-1].origin
 		if desc {
 			hi = last
@@ -179,18 +191,28 @@ func orMax(t time.Time) time.Time {
 	return t
 }
 
-func (s *Store) readForecasts(ctx context.Context, seriesID int64, model string, lo, hi time.Time, desc bool) ([]storedForecast, error) {
-	return readForecastsQ(ctx, s.pool, seriesID, model, lo, hi, desc)
-}
+// leadSpan is the leads first..last of a vector to read; last 0 means to
+// the end.
+type leadSpan struct{ first, last int }
 
 func readForecastsQ(ctx context.Context, q querier, seriesID int64, model string, lo, hi time.Time, desc bool) ([]storedForecast, error) {
+	return readForecastSpan(ctx, q, seriesID, model, lo, hi, desc, leadSpan{1, 0}, chunkOrigins)
+}
+
+// readForecastSpan reads up to limit vectors, only their leads in span:
+// element i of vals and late is lead span.first+i.
+func readForecastSpan(ctx context.Context, q querier, seriesID int64, model string, lo, hi time.Time, desc bool, span leadSpan, limit int) ([]storedForecast, error) {
 	order := "ASC"
 	if desc {
 		order = "DESC"
 	}
-	rows, err := q.Query(ctx, `SELECT origin, vals, late, received_at FROM forecasts
+	cols, args := "vals, late", []any{seriesID, model, orMin(lo), orMax(hi), limit}
+	if span.first > 1 || span.last > 0 {
+		cols, args = "vals[$6:$7], late[$6:$7]", append(args, span.first, cmp.Or(span.last, math.MaxInt32))
+	}
+	rows, err := q.Query(ctx, `SELECT origin, `+cols+`, received_at FROM forecasts
 		WHERE series_id = $1 AND model = $2 AND origin >= $3 AND origin < $4
-		ORDER BY origin `+order+` LIMIT $5`, seriesID, model, orMin(lo), orMax(hi), chunkOrigins)
+		ORDER BY origin `+order+` LIMIT $5`, args...)
 	if err != nil {
 		return nil, fmt.Errorf("reading forecasts: %w", err)
 	}

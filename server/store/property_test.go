@@ -75,18 +75,19 @@ func TestLiveEqualsOffline(t *testing.T) {
 		<-done
 	}
 	// The generator must reach every rule, or the test proves less than it
-	// claims.
+	// claims. (Checked when every case ran, not under -run …/seed=N.)
 	c := &propCoverage
+	ran := c.cases.Swap(0)
 	t.Logf("over %d cases: forecast points accepted %d, duplicate %d, late %d; actuals accepted %d, duplicate %d, revised %d; %d windowed selections met late pairs",
-		*propCases, c.fAccepted.Load(), c.fDuplicate.Load(), c.fLate.Load(), c.aAccepted.Load(), c.aDuplicate.Load(), c.aRevised.Load(), c.windowLate.Load())
-	if *propCases >= 100 && (c.fDuplicate.Load() == 0 || c.fLate.Load() == 0 || c.aDuplicate.Load() == 0 || c.aRevised.Load() == 0 || c.windowLate.Load() == 0) {
+		ran, c.fAccepted.Load(), c.fDuplicate.Load(), c.fLate.Load(), c.aAccepted.Load(), c.aDuplicate.Load(), c.aRevised.Load(), c.windowLate.Load())
+	if ran >= 100 && (c.fDuplicate.Load() == 0 || c.fLate.Load() == 0 || c.aDuplicate.Load() == 0 || c.aRevised.Load() == 0 || c.windowLate.Load() == 0) {
 		t.Error("the generator no longer produces every kind of event: see the counts above")
 	}
 }
 
 // propCoverage counts what the cases exercised.
 var propCoverage struct {
-	fAccepted, fDuplicate, fLate, aAccepted, aDuplicate, aRevised, windowLate atomic.Int64
+	cases, fAccepted, fDuplicate, fLate, aAccepted, aDuplicate, aRevised, windowLate atomic.Int64
 }
 
 // propEvent is one item of a push: a forecast vector or an actual.
@@ -114,6 +115,7 @@ type propModel struct {
 	// counts
 	fAccepted, fDuplicate, fLate int64
 	aAccepted, aDuplicate, aRev  int64
+	aScored                      int64 // pairs completed by new actuals
 }
 
 type propFKey struct {
@@ -166,6 +168,13 @@ func (m *propModel) actual(a *propActual) {
 	switch {
 	case !ok:
 		m.aAccepted++
+		// Every stored value for this target now has its pair; none is
+		// late, since a value is late only when its actual came first.
+		for k, r := range m.fcs {
+			if h := a.target - k.origin; h >= 1 && h <= len(r.vals) && !math.IsNaN(r.vals[h-1]) {
+				m.aScored++
+			}
+		}
 	case old == a.value:
 		m.aDuplicate++
 	default:
@@ -273,14 +282,23 @@ func propCase(t *testing.T, s *store.Store, seed uint64) {
 		horizon  = 3 + rng.IntN(6)
 	)
 	if stepText == "1d" {
-		zone = []string{"Europe/Brussels", "America/New_York", "Australia/Sydney"}[rng.IntN(3)]
+		// Local 06:00 one to five days before one of the zone's 2026 DST
+		// changes, so that the targets straddle a 23- or 25-hour day.
+		dst := []struct {
+			zone    string
+			changes [2]time.Time
+		}{
+			{"Europe/Brussels", [2]time.Time{time.Date(2026, 3, 29, 0, 0, 0, 0, time.UTC), time.Date(2026, 10, 25, 0, 0, 0, 0, time.UTC)}},
+			{"America/New_York", [2]time.Time{time.Date(2026, 3, 8, 0, 0, 0, 0, time.UTC), time.Date(2026, 11, 1, 0, 0, 0, 0, time.UTC)}},
+			{"Australia/Sydney", [2]time.Time{time.Date(2026, 4, 5, 0, 0, 0, 0, time.UTC), time.Date(2026, 10, 4, 0, 0, 0, 0, time.UTC)}},
+		}[rng.IntN(3)]
+		zone = dst.zone
 		loc, err := time.LoadLocation(zone)
 		if err != nil {
 			t.Fatal(err)
 		}
-		// Local 06:00 some days before a DST change of the zone, so that
-		// the targets straddle a 23- or 25-hour day.
-		base = time.Date(2026, []time.Month{3, 10}[rng.IntN(2)], 20+rng.IntN(6), 6, 0, 0, 0, loc)
+		d := dst.changes[rng.IntN(2)].AddDate(0, 0, -1-rng.IntN(5))
+		base = time.Date(d.Year(), d.Month(), d.Day(), 6, 0, 0, 0, loc)
 	} else if rng.IntN(2) == 0 {
 		zone = "Europe/Brussels" // fixed steps ignore the zone
 	}
@@ -420,6 +438,7 @@ func propCase(t *testing.T, s *store.Store, seed uint64) {
 	}()
 
 	c := &propCoverage
+	c.cases.Add(1)
 	c.fAccepted.Add(model.fAccepted)
 	c.fDuplicate.Add(model.fDuplicate)
 	c.fLate.Add(model.fLate)
@@ -428,13 +447,13 @@ func propCase(t *testing.T, s *store.Store, seed uint64) {
 	c.aRevised.Add(model.aRev)
 
 	// (a) Acknowledgements.
-	if fAck.Accepted != model.fAccepted || fAck.Duplicate != model.fDuplicate || fAck.Late != model.fLate || fAck.Revised != 0 || fAck.Rejected != 0 {
-		fail("forecast acks: accepted %d duplicate %d late %d revised %d rejected %d; model: accepted %d duplicate %d late %d",
-			fAck.Accepted, fAck.Duplicate, fAck.Late, fAck.Revised, fAck.Rejected, model.fAccepted, model.fDuplicate, model.fLate)
+	if fAck.Accepted != model.fAccepted || fAck.Duplicate != model.fDuplicate || fAck.Late != model.fLate || fAck.Revised != 0 || fAck.Rejected != 0 || fAck.Scored != 0 {
+		fail("forecast acks: accepted %d duplicate %d late %d revised %d rejected %d scored %d; model: accepted %d duplicate %d late %d",
+			fAck.Accepted, fAck.Duplicate, fAck.Late, fAck.Revised, fAck.Rejected, fAck.Scored, model.fAccepted, model.fDuplicate, model.fLate)
 	}
-	if aAck.Accepted != model.aAccepted || aAck.Duplicate != model.aDuplicate || aAck.Revised != model.aRev || aAck.Late != 0 || aAck.Rejected != 0 {
-		fail("actual acks: accepted %d duplicate %d revised %d late %d rejected %d; model: accepted %d duplicate %d revised %d",
-			aAck.Accepted, aAck.Duplicate, aAck.Revised, aAck.Late, aAck.Rejected, model.aAccepted, model.aDuplicate, model.aRev)
+	if aAck.Accepted != model.aAccepted || aAck.Duplicate != model.aDuplicate || aAck.Revised != model.aRev || aAck.Late != 0 || aAck.Rejected != 0 || aAck.Scored != model.aScored {
+		fail("actual acks: accepted %d duplicate %d revised %d late %d rejected %d scored %d; model: accepted %d duplicate %d revised %d scored %d",
+			aAck.Accepted, aAck.Duplicate, aAck.Revised, aAck.Late, aAck.Rejected, aAck.Scored, model.aAccepted, model.aDuplicate, model.aRev, model.aScored)
 	}
 
 	for _, m := range models {
@@ -444,7 +463,7 @@ func propCase(t *testing.T, s *store.Store, seed uint64) {
 		propCheck(ctx, fail, s, key, m, whole, all, at)
 		// (d) random selections.
 		for range 4 {
-			sel := propRandomSel(rng, horizon, all, at)
+			sel := propRandomSel(rng, horizon, all)
 			propCheck(ctx, fail, s, key, m, sel, all, at)
 		}
 	}
@@ -452,7 +471,7 @@ func propCase(t *testing.T, s *store.Store, seed uint64) {
 
 // propRandomSel draws a selection: a subset of leads, origin and target
 // ranges, and a window of 1..4 origins (sometimes none).
-func propRandomSel(rng *rand.Rand, horizon int, all []propPair, at func(int) time.Time) *propSel {
+func propRandomSel(rng *rand.Rand, horizon int, all []propPair) *propSel {
 	sel := &propSel{originOpen: [2]bool{true, true}, tgtOpen: [2]bool{true, true}, pageSize: 1 + rng.IntN(40)}
 	var desc []string
 	if rng.IntN(2) == 0 {
@@ -466,7 +485,7 @@ func propRandomSel(rng *rand.Rand, horizon int, all []propPair, at func(int) tim
 		maxO = max(maxO, p.origin)
 	}
 	bounds := func(lo, hi int) (a, b int, open [2]bool) {
-		a, b = lo+rng.IntN(hi-lo+1), 0
+		a = lo + rng.IntN(hi-lo+1)
 		b = a + 1 + rng.IntN(hi-a+2)
 		open = [2]bool{rng.IntN(3) == 0, rng.IntN(3) == 0}
 		return a, b, open
