@@ -33,6 +33,7 @@ func commands() []command {
 		{"drift", "current drift states, series-level first (client)", runDrift},
 		{"events", "drift events, or follow them as they happen (client)", runEvents},
 		{"evaluate", "score a CSV of forecasts and actuals offline, per lead", runEvaluate},
+		{"demo", "run the service on invented district-heating data and report its drift verdicts", runDemo},
 	}
 }
 
