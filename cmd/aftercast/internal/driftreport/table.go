@@ -2,6 +2,7 @@ package driftreport
 
 import (
 	"fmt"
+	"github.com/aftercast/aftercast/cmd/aftercast/internal/report"
 	"io"
 	"math"
 	"strconv"
@@ -15,20 +16,10 @@ import (
 
 // human rounds a value for reading; "—" when absent.
 func human(p *float64) string {
-	if p == nil || math.IsNaN(*p) || math.IsInf(*p, 0) {
+	if p == nil {
 		return "—"
 	}
-	x := *p
-	switch a := math.Abs(x); {
-	case a >= 100:
-		return strconv.FormatFloat(x, 'f', 1, 64)
-	case a >= 1:
-		return strconv.FormatFloat(x, 'f', 3, 64)
-	case a >= 0.001 || a == 0:
-		return strconv.FormatFloat(x, 'f', 4, 64)
-	default:
-		return strconv.FormatFloat(x, 'g', 3, 64)
-	}
+	return report.Human(*p)
 }
 
 // interval is "[lo, hi]", "—" when either bound is absent.
@@ -172,10 +163,10 @@ func WriteBaseline(w io.Writer, r *aftercastv1.GetBaselineResponse) error {
 }
 
 func excluded(x *float64, n int64) string {
-	if n == 0 {
-		return human(x)
+	if x == nil {
+		return report.WithExcluded(math.NaN(), n)
 	}
-	return fmt.Sprintf("%s (-%d)", human(x), n)
+	return report.WithExcluded(*x, n)
 }
 
 // WriteStates writes the series-level state of every (series, model)

@@ -146,8 +146,8 @@ func WriteTable(w io.Writer, rs []Result) error {
 		tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', tabwriter.AlignRight)
 		fmt.Fprintln(tw, "lead\tn\tME\tMAE\tRMSE\tMAPE%\tsMAPE%\tWAPE%\tMASE\t")
 		line := func(lead string, m scoring.Metrics) {
-			fmt.Fprintf(tw, "%s\t%d\t%s\t%s\t%s\t%s\t%s\t%s\t%s\t\n", lead, m.N, human(m.ME), human(m.MAE), human(m.RMSE),
-				withExcluded(m.MAPE, m.MAPEExcluded), withExcluded(m.SMAPE, m.SMAPEExcluded), human(m.WAPE), human(m.MASE))
+			fmt.Fprintf(tw, "%s\t%d\t%s\t%s\t%s\t%s\t%s\t%s\t%s\t\n", lead, m.N, Human(m.ME), Human(m.MAE), Human(m.RMSE),
+				WithExcluded(m.MAPE, m.MAPEExcluded), WithExcluded(m.SMAPE, m.SMAPEExcluded), Human(m.WAPE), Human(m.MASE))
 		}
 		for _, l := range r.Table.Leads {
 			line(strconv.Itoa(l.Lead), l.Metrics)
@@ -163,7 +163,9 @@ func WriteTable(w io.Writer, rs []Result) error {
 	return nil
 }
 
-func human(x float64) string {
+// Human rounds a value for reading; "—" when undefined. Tables share it
+// so that every number a person reads is rounded alike.
+func Human(x float64) string {
 	if !scoring.Defined(x) {
 		return "—"
 	}
@@ -179,10 +181,10 @@ func human(x float64) string {
 	}
 }
 
-// withExcluded marks a percent metric that left pairs out (zero actuals).
-func withExcluded(x float64, excluded int64) string {
+// WithExcluded is Human, marking a percent metric that left pairs out.
+func WithExcluded(x float64, excluded int64) string {
 	if excluded == 0 {
-		return human(x)
+		return Human(x)
 	}
-	return fmt.Sprintf("%s (-%d)", human(x), excluded)
+	return fmt.Sprintf("%s (-%d)", Human(x), excluded)
 }
