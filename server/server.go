@@ -19,6 +19,7 @@ import (
 	"github.com/grpc-ecosystem/go-grpc-middleware/v2/interceptors/recovery"
 	"github.com/jackc/pgx/v5/pgxpool"
 	"github.com/prometheus/client_golang/prometheus"
+	toolkitweb "github.com/prometheus/exporter-toolkit/web"
 	"google.golang.org/grpc"
 	"google.golang.org/grpc/codes"
 	"google.golang.org/grpc/health"
@@ -46,6 +47,11 @@ type Config struct {
 	// Retention deletes forecasts and actuals older than this, checked
 	// hourly. Zero keeps everything.
 	Retention time.Duration
+
+	// WebConfigFile is an exporter-toolkit web configuration (TLS, basic
+	// auth) for the HTTP listener: Prometheus' --web.config.file
+	// convention. Empty serves plain HTTP.
+	WebConfigFile string
 
 	Limits          store.Limits
 	MaxMessageBytes int           // largest gRPC message received; default 16 MiB
@@ -190,8 +196,9 @@ func (s *Server) Start(ctx context.Context) (err error) {
 			return fmt.Errorf("metrics listener: %w", err)
 		}
 		s.http = &http.Server{Handler: s.httpHandler(), ReadHeaderTimeout: 10 * time.Second}
+		webCfg := &toolkitweb.FlagConfig{WebConfigFile: &s.cfg.WebConfigFile, WebSystemdSocket: new(bool), WebListenAddresses: &[]string{}}
 		go func() {
-			if err := s.http.Serve(s.httpLis); !errors.Is(err, http.ErrServerClosed) {
+			if err := toolkitweb.Serve(s.httpLis, s.http, webCfg, s.log); !errors.Is(err, http.ErrServerClosed) {
 				s.serveErr <- err
 			}
 		}()

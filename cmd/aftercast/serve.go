@@ -27,6 +27,7 @@ func runServe(args []string, stdout, stderr io.Writer) error {
 	fs.StringVar(&cfg.DatabaseURL, "database-url", os.Getenv("AFTERCAST_DATABASE_URL"), "PostgreSQL URL (env AFTERCAST_DATABASE_URL); empty: start a private PostgreSQL in --data-dir")
 	fs.StringVar(&cfg.DataDir, "data-dir", "", "data directory of the private PostgreSQL (default $XDG_STATE_HOME/aftercast/pgdata, /var/lib/aftercast/pgdata for root)")
 	fs.BoolVar(&cfg.SkipMigrate, "skip-migrate", false, "do not apply schema migrations at start (run 'aftercast migrate' instead)")
+	fs.StringVar(&cfg.WebConfigFile, "web.config.file", "", "exporter-toolkit web config (TLS, basic auth) for the HTTP listener; empty: plain HTTP")
 	fs.DurationVar(&cfg.Retention, "retention", 0, "delete forecasts and actuals older than this, e.g. 8760h (0 keeps everything)")
 	fs.IntVar(&cfg.Limits.MaxHorizon, "max-horizon", store.DefaultLimits.MaxHorizon, "largest horizon a series may have")
 	fs.IntVar(&cfg.Limits.MaxBatch, "max-batch", store.DefaultLimits.MaxBatch, "most forecast vectors or actuals in one message")
