@@ -34,7 +34,7 @@ type client struct {
 }
 
 // start runs a server on ports chosen by the OS against dbURL.
-func start(t *testing.T, dbURL string) (*server.Server, client) {
+func start(t testing.TB, dbURL string) (*server.Server, client) {
 	t.Helper()
 	srv, err := server.New(server.Config{Listen: "127.0.0.1:0", MetricsListen: "127.0.0.1:0", DatabaseURL: dbURL, Logger: storetest.Logger(t)})
 	if err != nil {

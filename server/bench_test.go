@@ -1,0 +1,95 @@
+package server_test
+
+import (
+	"context"
+	"fmt"
+	"os"
+	"strings"
+	"testing"
+	"time"
+
+	aftercastv1 "github.com/aftercast/aftercast/api/aftercast/v1"
+	"github.com/aftercast/aftercast/server/store"
+	"github.com/aftercast/aftercast/server/store/storetest"
+)
+
+// peakRSS is this process's peak resident set (VmHWM), in MiB: server and
+// client run in one process here, so it bounds the server's.
+func peakRSS() float64 {
+	b, err := os.ReadFile("/proc/self/status")
+	if err != nil {
+		return 0
+	}
+	for _, line := range strings.Split(string(b), "\n") {
+		if rest, ok := strings.CutPrefix(line, "VmHWM:"); ok {
+			var kb float64
+			fmt.Sscanf(strings.TrimSpace(rest), "%f", &kb)
+			return kb / 1024
+		}
+	}
+	return 0
+}
+
+// BenchmarkGRPCForecastIngest pushes forecasts end to end — gRPC stream,
+// validation, commit, acknowledgement — for 10,000 series × 48 leads in
+// messages of 500 vectors, as a producer would, then pushes the same again
+// (all duplicates). Reports points/s for both and the peak RSS.
+func BenchmarkGRPCForecastIngest(b *testing.B) {
+	const series, leads, origins, batch = 10_000, 48, 3, 500
+	srv, c := start(b, storetest.URL(b))
+	ctx := context.Background()
+	st := srv.Store()
+	for i := range series {
+		if _, _, err := st.CreateSeries(ctx, store.Series{Key: fmt.Sprintf("s%05d", i), Step: "1h", Horizon: leads}); err != nil {
+			b.Fatal(err)
+		}
+	}
+	rssBefore := peakRSS()
+	push := func() (time.Duration, *aftercastv1.ForecastPushSummary) {
+		start := time.Now()
+		stream, err := c.forecast.StreamForecasts(ctx)
+		if err != nil {
+			b.Fatal(err)
+		}
+		var msg []*aftercastv1.Forecast
+		for k := range origins {
+			for i := range series {
+				vals := make([]float64, leads)
+				for h := range vals {
+					vals[h] = float64(100 + i%17 + h)
+				}
+				msg = append(msg, dense(fmt.Sprintf("s%05d", i), "m", time.Duration(k)*24*time.Hour, vals...))
+				if len(msg) == batch {
+					if err := stream.Send(&aftercastv1.StreamForecastsRequest{Forecasts: msg}); err != nil {
+						b.Fatal(err)
+					}
+					msg = nil
+				}
+			}
+		}
+		resp, err := stream.CloseAndRecv()
+		if err != nil {
+			b.Fatal(err)
+		}
+		return time.Since(start), resp.GetSummary()
+	}
+	b.ResetTimer()
+	var first, again time.Duration
+	for b.Loop() {
+		var sum *aftercastv1.ForecastPushSummary
+		first, sum = push()
+		if sum.GetAccepted() != series*leads*origins && sum.GetDuplicate() != series*leads*origins {
+			b.Fatalf("summary %v", sum)
+		}
+		again, sum = push()
+		if sum.GetDuplicate() != series*leads*origins {
+			b.Fatalf("re-push summary %v", sum)
+		}
+	}
+	points := float64(series * leads * origins)
+	b.ReportMetric(points/first.Seconds(), "points/s")
+	b.ReportMetric(points/again.Seconds(), "repush-points/s")
+	b.ReportMetric(peakRSS(), "peak-rss-MiB")
+	b.Logf("%d points: first push %v, identical re-push %v; peak RSS %.0f MiB (%.0f MiB before the pushes)",
+		int(points), first.Round(time.Millisecond), again.Round(time.Millisecond), peakRSS(), rssBefore)
+}
