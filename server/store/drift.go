@@ -137,22 +137,37 @@ func (s *Store) activeBaseline(ctx context.Context, q querier, se *Series, model
 	if version == 0 {
 		return nil, nil
 	}
-	key := baselineKey{se.ID, model, version}
-	s.bmu.Lock()
-	m := s.baselines[key]
-	s.bmu.Unlock()
-	if m != nil {
+	if m := s.cachedBaseline(baselineKey{se.ID, model, version}); m != nil {
 		return m, nil
 	}
 	b, err := s.baseline(ctx, q, se, model, version)
 	if err != nil {
 		return nil, err
 	}
-	m = newBaselineModel(se, b)
+	return s.prepare(se, b), nil
+}
+
+func (s *Store) cachedBaseline(k baselineKey) *baselineModel {
 	s.bmu.Lock()
-	s.baselines[key] = m
-	s.bmu.Unlock()
-	return m, nil
+	defer s.bmu.Unlock()
+	return s.baselines[k]
+}
+
+// prepare returns the prepared form of a baseline version, from the cache
+// when another request built it first.
+func (s *Store) prepare(se *Series, b Baseline) *baselineModel {
+	k := baselineKey{se.ID, b.Model, b.Version}
+	if m := s.cachedBaseline(k); m != nil {
+		return m
+	}
+	m := newBaselineModel(se, b)
+	s.bmu.Lock()
+	defer s.bmu.Unlock()
+	if prev := s.baselines[k]; prev != nil {
+		return prev
+	}
+	s.baselines[k] = m
+	return m
 }
 
 // Snapshot is the last evaluation of a drift state: the window's values
@@ -727,16 +742,7 @@ func (s *Store) BaselineView(ctx context.Context, key, model string, version, n 
 	if err != nil {
 		return BaselineVersion{}, nil, nil, err
 	}
-	key2 := baselineKey{se.ID, model, b.Version}
-	s.bmu.Lock()
-	m := s.baselines[key2]
-	s.bmu.Unlock()
-	if m == nil {
-		m = newBaselineModel(se, b)
-		s.bmu.Lock()
-		s.baselines[key2] = m
-		s.bmu.Unlock()
-	}
+	m := s.prepare(se, b)
 	var leads []LeadView
 	for _, l := range b.Leads {
 		leads = append(leads, m.leads[l.Lead].view(l.Lead, n))
