@@ -590,6 +590,7 @@ func (s *Store) WriteActuals(ctx context.Context, as []Actual, firstIndex int) (
 		var wTimes []time.Time
 		var wVals []float64
 		var wRevs []int32
+		var newRows [][]any
 		fresh := map[int64][]time.Time{} // series → times of actuals new in this batch
 		for i, k := range order {
 			if _, had := stored[k]; !had {
@@ -609,11 +610,26 @@ func (s *Store) WriteActuals(ctx context.Context, as []Actual, firstIndex int) (
 				}
 				prev, exists = v, true
 			}
-			if old, had := stored[k]; !had || old != prev {
+			switch old, had := stored[k]; {
+			case !had:
+				newRows = append(newRows, []any{ids[i], times[i], prev, revs})
+			case old != prev:
 				wIDs, wTimes, wVals, wRevs = append(wIDs, ids[i]), append(wTimes, times[i]), append(wVals, prev), append(wRevs, revs)
 			}
 		}
 		now := time.Now().UTC()
+		// Times not stored yet go straight in with COPY: the series locks
+		// keep any other writer from inserting them meanwhile.
+		if len(newRows) > 0 {
+			src := make([][]any, len(newRows))
+			for i, r := range newRows {
+				src[i] = []any{r[0], r[1], r[2], now, now, r[3]}
+			}
+			if _, err := tx.CopyFrom(ctx, pgx.Identifier{"actuals"}, []string{"series_id", "time", "value", "first_received_at", "received_at", "revisions"},
+				pgx.CopyFromRows(src)); err != nil {
+				return fmt.Errorf("storing actuals: %w", err)
+			}
+		}
 		if err := touchActualFreshness(ctx, tx, ids, times, now); err != nil {
 			return err
 		}
@@ -631,6 +647,7 @@ func (s *Store) WriteActuals(ctx context.Context, as []Actual, firstIndex int) (
 		if len(wIDs) == 0 {
 			return nil
 		}
+		// Revisions update the stored row; first_received_at stays.
 		_, err = tx.Exec(ctx, `INSERT INTO actuals (series_id, time, value, first_received_at, received_at, revisions)
 			SELECT series_id, time, value, $5, $5, revs FROM unnest($1::bigint[], $2::timestamptz[], $3::float8[], $4::int[]) AS u(series_id, time, value, revs)
 			ON CONFLICT (series_id, time) DO UPDATE
