@@ -300,22 +300,11 @@ func (s *Store) storeBaseline(ctx context.Context, tx pgx.Tx, se *Series, model 
 	if !scoring.Defined(scale) || scale == 0 {
 		v.Warnings = append(v.Warnings, BaselineWarning{Kind: WarnNoTraining, Message: "no usable training actuals: MASE is unknown"})
 	}
-	prodCadence, prodMaxLead, err := productionShape(ctx, tx, se, model)
+	shape, err := shapeWarnings(ctx, tx, se, model, v)
 	if err != nil {
 		return v, err
 	}
-	if prodCadence > 0 && prodCadence != v.CadenceSteps {
-		v.Warnings = append(v.Warnings, BaselineWarning{Kind: WarnCadence,
-			Message: fmt.Sprintf("backtest origins every %d steps, production origins every %d steps", v.CadenceSteps, prodCadence)})
-	}
-	wantLead, what := se.Horizon, "the series horizon"
-	if prodMaxLead > 0 {
-		wantLead, what = prodMaxLead, "the largest production lead"
-	}
-	if v.MaxLead != wantLead {
-		v.Warnings = append(v.Warnings, BaselineWarning{Kind: WarnHorizon,
-			Message: fmt.Sprintf("backtest reaches lead %d, %s is %d", v.MaxLead, what, wantLead)})
-	}
+	v.Warnings = append(v.Warnings, shape...)
 	if leadWarn != nil {
 		for _, l := range leads {
 			if reason := leadWarn(se, l); reason != "" {
@@ -367,9 +356,50 @@ func cadence(step scoring.Step, origins []time.Time) int {
 	return best
 }
 
+// shapeWarnings compares a baseline's origin cadence and largest lead with
+// what production sends now (method.md §1): at import, and again whenever
+// the baseline is read, since production usually starts after the import.
+func shapeWarnings(ctx context.Context, q querier, se *Series, model string, v BaselineVersion) ([]BaselineWarning, error) {
+	prodCadence, prodMaxLead, err := productionShape(ctx, q, se, model)
+	if err != nil {
+		return nil, err
+	}
+	var out []BaselineWarning
+	if prodCadence > 0 && prodCadence != v.CadenceSteps {
+		out = append(out, BaselineWarning{Kind: WarnCadence,
+			Message: fmt.Sprintf("backtest origins every %d steps, production origins every %d steps", v.CadenceSteps, prodCadence)})
+	}
+	wantLead, what := se.Horizon, "the series horizon"
+	if prodMaxLead > 0 {
+		wantLead, what = prodMaxLead, "the largest production lead"
+	}
+	if v.MaxLead != wantLead {
+		out = append(out, BaselineWarning{Kind: WarnHorizon,
+			Message: fmt.Sprintf("backtest reaches lead %d, %s is %d", v.MaxLead, what, wantLead)})
+	}
+	return out, nil
+}
+
+// refreshShapeWarnings replaces the stored cadence and horizon warnings of
+// v with ones judged against production as it is now.
+func refreshShapeWarnings(ctx context.Context, q querier, se *Series, v *BaselineVersion) error {
+	shape, err := shapeWarnings(ctx, q, se, v.Model, *v)
+	if err != nil {
+		return err
+	}
+	kept := v.Warnings[:0]
+	for _, w := range v.Warnings {
+		if w.Kind != WarnCadence && w.Kind != WarnHorizon {
+			kept = append(kept, w)
+		}
+	}
+	v.Warnings = append(kept, shape...)
+	return nil
+}
+
 // productionShape reads the cadence and largest lead of the model's recent
 // production forecasts for the series (0, 0 when there are none).
-func productionShape(ctx context.Context, q pgx.Tx, se *Series, model string) (cad, maxLead int, err error) {
+func productionShape(ctx context.Context, q querier, se *Series, model string) (cad, maxLead int, err error) {
 	rows, err := q.Query(ctx, `SELECT origin, cardinality(vals) FROM forecasts WHERE series_id = $1 AND model = $2
 		ORDER BY origin DESC LIMIT 200`, se.ID, model)
 	if err != nil {

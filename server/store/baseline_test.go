@@ -98,3 +98,38 @@ func TestImportBaseline(t *testing.T) {
 		t.Errorf("a failed import stored something: %d versions", len(list))
 	}
 }
+
+// Production that starts after the import is judged when the baseline is
+// read: a backtest with daily origins against hourly production warns.
+func TestShapeWarningsFollowProduction(t *testing.T) {
+	t.Parallel()
+	s := storetest.Store(t)
+	ctx := ctxT(t)
+	mustSeries(t, s, "c", "1h", 2)
+	if _, err := s.ImportBaseline(ctx, "m", backtest("c", 10, 2, 24*time.Hour), nil, nil); err != nil {
+		t.Fatal(err)
+	}
+	kinds := func() map[string]bool {
+		v, _, _, err := s.BaselineView(ctx, "c", "m", 0, 30)
+		if err != nil {
+			t.Fatal(err)
+		}
+		out := map[string]bool{}
+		for _, w := range v.Warnings {
+			out[w.Kind] = true
+		}
+		return out
+	}
+	if kinds()[store.WarnCadence] {
+		t.Fatal("cadence warning before any production")
+	}
+	for k := range 5 {
+		o := t0.Add(time.Duration(500+k) * time.Hour)
+		if _, err := s.WriteForecasts(ctx, []store.ForecastVector{{Series: "c", Model: "m", Origin: o, Values: []float64{1, 2}}}, 0); err != nil {
+			t.Fatal(err)
+		}
+	}
+	if !kinds()[store.WarnCadence] {
+		t.Error("hourly production against a daily backtest: no cadence warning")
+	}
+}

@@ -742,6 +742,9 @@ func (s *Store) BaselineView(ctx context.Context, key, model string, version, n 
 	if err != nil {
 		return BaselineVersion{}, nil, nil, err
 	}
+	if err := refreshShapeWarnings(ctx, s.pool, se, &b.BaselineVersion); err != nil {
+		return BaselineVersion{}, nil, nil, err
+	}
 	m := s.prepare(se, b)
 	var leads []LeadView
 	for _, l := range b.Leads {
