@@ -799,10 +799,15 @@ type ActualFreshness struct {
 // Freshness lists the newest origin per (series, model) and the newest
 // actual per series, ordered by series key (and model).
 func (s *Store) Freshness(ctx context.Context) ([]ForecastFreshness, []ActualFreshness, error) {
-	rows, err := s.pool.Query(ctx, `SELECT s.key, f.model, f.last_origin, f.last_received_at,
-			coalesce((SELECT b.origin_cadence_steps FROM baselines b WHERE b.series_id = f.series_id AND b.model = f.model
+	// The newest row per (series, model) and per series is one backward
+	// probe of the primary key each.
+	rows, err := s.pool.Query(ctx, `SELECT s.key, m.model, f.origin, f.received_at,
+			coalesce((SELECT b.origin_cadence_steps FROM baselines b WHERE b.series_id = m.series_id AND b.model = m.model
 				ORDER BY b.version DESC LIMIT 1), 1)
-		FROM forecast_freshness f JOIN series s ON s.id = f.series_id ORDER BY s.key, f.model`)
+		FROM series_models m JOIN series s ON s.id = m.series_id
+		CROSS JOIN LATERAL (SELECT origin, received_at FROM forecasts f WHERE f.series_id = m.series_id AND f.model = m.model
+			ORDER BY origin DESC LIMIT 1) f
+		ORDER BY s.key, m.model`)
 	if err != nil {
 		return nil, nil, fmt.Errorf("reading freshness: %w", err)
 	}
@@ -823,7 +828,9 @@ func (s *Store) Freshness(ctx context.Context) ([]ForecastFreshness, []ActualFre
 	if err := rows.Err(); err != nil {
 		return nil, nil, err
 	}
-	rows, err = s.pool.Query(ctx, `SELECT s.key, a.last_time, a.last_received_at FROM actual_freshness a JOIN series s ON s.id = a.series_id ORDER BY s.key`)
+	rows, err = s.pool.Query(ctx, `SELECT s.key, a.time, a.received_at FROM series s
+		CROSS JOIN LATERAL (SELECT time, received_at FROM actuals a WHERE a.series_id = s.id ORDER BY time DESC LIMIT 1) a
+		ORDER BY s.key`)
 	if err != nil {
 		return nil, nil, fmt.Errorf("reading freshness: %w", err)
 	}

@@ -179,6 +179,7 @@ func (s *Store) WriteForecasts(ctx context.Context, vs []ForecastVector, firstIn
 		return ack, nil
 	}
 	now := time.Now().UTC()
+	var newModels []modelKey
 	err = s.inTx(ctx, func(tx pgx.Tx) error {
 		ids := make([]int64, 0, len(items))
 		for _, it := range items {
@@ -208,11 +209,17 @@ func (s *Store) WriteForecasts(ctx context.Context, vs []ForecastVector, firstIn
 		if err := storeForecasts(ctx, tx, rows, now); err != nil {
 			return err
 		}
-		return touchForecastFreshness(ctx, tx, rows, now)
+		newModels, err = s.recordModels(ctx, tx, rows)
+		return err
 	})
 	if err != nil {
 		return Ack{Rejected: ack.Rejected, Rejections: ack.Rejections}, err
 	}
+	s.mu.Lock()
+	for _, mk := range newModels {
+		s.models[mk] = true
+	}
+	s.mu.Unlock()
 	return ack, nil
 }
 
@@ -481,33 +488,29 @@ func storeForecasts(ctx context.Context, tx pgx.Tx, rows map[forecastKey]*foreca
 	return nil
 }
 
-// touchForecastFreshness records the newest origin received per (series,
-// model).
-func touchForecastFreshness(ctx context.Context, tx pgx.Tx, rows map[forecastKey]*forecastRow, now time.Time) error {
-	type sm struct {
-		id    int64
-		model string
-	}
-	newest := map[sm]time.Time{}
-	for k, r := range rows {
-		key := sm{k.series, k.model}
-		if r.origin.After(newest[key]) {
-			newest[key] = r.origin
+// recordModels stores the (series, model) pairs a batch wrote that this
+// process has not seen stored yet — rare, so the write path almost never
+// pays for it — and returns them, to be cached once the transaction commits.
+func (s *Store) recordModels(ctx context.Context, tx pgx.Tx, rows map[forecastKey]*forecastRow) ([]modelKey, error) {
+	var ids []int64
+	var models []string
+	var out []modelKey
+	s.mu.RLock()
+	for k := range rows {
+		mk := modelKey{k.series, k.model}
+		if !s.models[mk] && !slices.Contains(out, mk) {
+			ids, models, out = append(ids, k.series), append(models, k.model), append(out, mk)
 		}
 	}
-	ids, models, origins := make([]int64, 0, len(newest)), make([]string, 0, len(newest)), make([]time.Time, 0, len(newest))
-	for k, o := range newest {
-		ids, models, origins = append(ids, k.id), append(models, k.model), append(origins, o)
+	s.mu.RUnlock()
+	if len(out) == 0 {
+		return nil, nil
 	}
-	_, err := tx.Exec(ctx, `INSERT INTO forecast_freshness (series_id, model, last_origin, last_received_at)
-		SELECT series_id, model, origin, $4 FROM unnest($1::bigint[], $2::text[], $3::timestamptz[]) AS u(series_id, model, origin)
-		ON CONFLICT (series_id, model) DO UPDATE
-			SET last_origin = greatest(forecast_freshness.last_origin, excluded.last_origin), last_received_at = excluded.last_received_at`,
-		ids, models, origins, now)
-	if err != nil {
-		return fmt.Errorf("recording forecast freshness: %w", err)
+	if _, err := tx.Exec(ctx, `INSERT INTO series_models (series_id, model) SELECT * FROM unnest($1::bigint[], $2::text[])
+		ON CONFLICT DO NOTHING`, ids, models); err != nil {
+		return nil, fmt.Errorf("recording models: %w", err)
 	}
-	return nil
+	return out, nil
 }
 
 // WriteActuals stores a batch of actuals: a new time is accepted, a changed
@@ -630,9 +633,6 @@ func (s *Store) WriteActuals(ctx context.Context, as []Actual, firstIndex int) (
 				return fmt.Errorf("storing actuals: %w", err)
 			}
 		}
-		if err := touchActualFreshness(ctx, tx, ids, times, now); err != nil {
-			return err
-		}
 		if len(fresh) > 0 {
 			byID := make(map[int64]*Series, len(series))
 			for _, se := range series {
@@ -664,32 +664,10 @@ func (s *Store) WriteActuals(ctx context.Context, as []Actual, firstIndex int) (
 	return ack, nil
 }
 
-func touchActualFreshness(ctx context.Context, tx pgx.Tx, ids []int64, times []time.Time, now time.Time) error {
-	newest := map[int64]time.Time{}
-	for i, id := range ids {
-		if times[i].After(newest[id]) {
-			newest[id] = times[i]
-		}
-	}
-	sids, ts := make([]int64, 0, len(newest)), make([]time.Time, 0, len(newest))
-	for id, t := range newest {
-		sids, ts = append(sids, id), append(ts, t)
-	}
-	_, err := tx.Exec(ctx, `INSERT INTO actual_freshness (series_id, last_time, last_received_at)
-		SELECT series_id, t, $3 FROM unnest($1::bigint[], $2::timestamptz[]) AS u(series_id, t)
-		ON CONFLICT (series_id) DO UPDATE
-			SET last_time = greatest(actual_freshness.last_time, excluded.last_time), last_received_at = excluded.last_received_at`,
-		sids, ts, now)
-	if err != nil {
-		return fmt.Errorf("recording actual freshness: %w", err)
-	}
-	return nil
-}
-
 // countCompleted counts the forecast values (not late) whose targets are
 // new actuals — fresh maps series id to their times: the pairs these
 // actuals complete. One query for the batch reads, per (series, model) seen
-// in forecast_freshness, the vectors whose origins can reach those times,
+// in series_models, the vectors whose origins can reach those times,
 // through the primary key.
 func countCompleted(ctx context.Context, tx pgx.Tx, byID map[int64]*Series, fresh map[int64][]time.Time) (int64, error) {
 	ids := make([]int64, 0, len(fresh))
@@ -713,7 +691,7 @@ func countCompleted(ctx context.Context, tx pgx.Tx, byID map[int64]*Series, fres
 	}
 	rows, err := tx.Query(ctx, `SELECT f.series_id, f.origin, f.vals, f.late
 		FROM unnest($1::bigint[], $2::timestamptz[], $3::timestamptz[]) AS r(series_id, lo, hi)
-		JOIN forecast_freshness ff ON ff.series_id = r.series_id
+		JOIN series_models ff ON ff.series_id = r.series_id
 		JOIN LATERAL (SELECT series_id, origin, vals, late FROM forecasts f
 			WHERE f.series_id = r.series_id AND f.model = ff.model AND f.origin >= r.lo AND f.origin < r.hi) f ON true`,
 		ids, los, his)

@@ -78,6 +78,11 @@ func (l Limits) withDefaults() Limits {
 	return d
 }
 
+type modelKey struct {
+	series int64
+	model  string
+}
+
 // Store is aftercast's PostgreSQL storage.
 type Store struct {
 	pool   *pgxpool.Pool
@@ -87,6 +92,7 @@ type Store struct {
 	// refused), so caching them by key is safe across replicas.
 	mu     sync.RWMutex
 	series map[string]*Series
+	models map[modelKey]bool // (series, model) pairs known to be in series_models
 
 	// Prepared baseline versions; a version never changes once stored.
 	bmu       sync.Mutex
@@ -95,7 +101,7 @@ type Store struct {
 
 // New returns a Store over pool; the schema must be migrated (see Migrate).
 func New(pool *pgxpool.Pool, limits Limits) *Store {
-	return &Store{pool: pool, limits: limits.withDefaults(), series: make(map[string]*Series), baselines: make(map[baselineKey]*baselineModel)}
+	return &Store{pool: pool, limits: limits.withDefaults(), series: make(map[string]*Series), models: make(map[modelKey]bool), baselines: make(map[baselineKey]*baselineModel)}
 }
 
 // Limits returns the limits in force.
