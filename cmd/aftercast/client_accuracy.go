@@ -5,7 +5,6 @@ import (
 	"flag"
 	"fmt"
 	"io"
-	"math"
 	"strings"
 	"time"
 
@@ -61,22 +60,11 @@ func runAccuracy(args []string, stdout, stderr io.Writer) error {
 // evaluate` reports, so that both print the same table and JSON. Absent
 // (undefined) metrics become NaN, as scoring.Metrics has them.
 func accuracyResult(resp *aftercastv1.GetAccuracyResponse) report.Result {
-	t := scoring.Table{Overall: metrics(resp.GetOverall()), Leads: make([]scoring.LeadMetrics, 0, len(resp.GetLeads()))}
+	t := scoring.Table{Overall: report.FromProto(resp.GetOverall()), Leads: make([]scoring.LeadMetrics, 0, len(resp.GetLeads()))}
 	for _, l := range resp.GetLeads() {
-		t.Leads = append(t.Leads, scoring.LeadMetrics{Lead: int(l.GetLead()), Metrics: metrics(l.GetMetrics())})
+		t.Leads = append(t.Leads, scoring.LeadMetrics{Lead: int(l.GetLead()), Metrics: report.FromProto(l.GetMetrics())})
 	}
 	return report.Result{Series: resp.GetSeries(), Model: resp.GetModel(), Step: resp.GetStep(), Table: t}
-}
-
-func metrics(m *aftercastv1.AccuracyMetrics) scoring.Metrics {
-	v := func(p *float64) float64 {
-		if p == nil {
-			return math.NaN()
-		}
-		return *p
-	}
-	return scoring.Metrics{N: m.GetN(), ME: v(m.Me), MAE: v(m.Mae), RMSE: v(m.Rmse), MAPE: v(m.Mape),
-		MAPEExcluded: m.GetMapeExcluded(), SMAPE: v(m.Smape), SMAPEExcluded: m.GetSmapeExcluded(), WAPE: v(m.Wape), MASE: v(m.Mase)}
 }
 
 func runPairs(args []string, stdout, stderr io.Writer) error {

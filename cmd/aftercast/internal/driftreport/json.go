@@ -4,6 +4,7 @@ import (
 	"cmp"
 	"encoding/json"
 	"fmt"
+	"github.com/aftercast/aftercast/cmd/aftercast/internal/report"
 	"io"
 	"math"
 	"slices"
@@ -290,27 +291,12 @@ func ToImport(r *aftercastv1.ImportBaselineResponse) Import {
 	return o
 }
 
-// Metrics is the JSON shape of accuracy metrics, the keys of `aftercast
-// evaluate` JSON.
-type Metrics struct {
-	N             int64    `json:"n"`
-	ME            *float64 `json:"me"`
-	MAE           *float64 `json:"mae"`
-	RMSE          *float64 `json:"rmse"`
-	MAPE          *float64 `json:"mape"`
-	MAPEExcluded  int64    `json:"mape_excluded"`
-	SMAPE         *float64 `json:"smape"`
-	SMAPEExcluded int64    `json:"smape_excluded"`
-	WAPE          *float64 `json:"wape"`
-	MASE          *float64 `json:"mase"`
-}
-
-func toMetrics(m *aftercastv1.AccuracyMetrics) *Metrics {
+func toMetrics(m *aftercastv1.AccuracyMetrics) *report.Metrics {
 	if m == nil {
 		return nil
 	}
-	return &Metrics{N: m.GetN(), ME: opt(m.Me), MAE: opt(m.Mae), RMSE: opt(m.Rmse), MAPE: opt(m.Mape),
-		MAPEExcluded: m.GetMapeExcluded(), SMAPE: opt(m.Smape), SMAPEExcluded: m.GetSmapeExcluded(), WAPE: opt(m.Wape), MASE: opt(m.Mase)}
+	v := report.MetricsJSON(report.FromProto(m))
+	return &v
 }
 
 // UpperBand is the JSON shape of the band of MAE or RMSE: expectation,
@@ -355,15 +341,15 @@ func toTwoSided(b *aftercastv1.MetricBand) *TwoSidedBand {
 // or (lead 0) of the pooled decision leads. Reason is null when usable;
 // expected and the bands are null when the server gives none.
 type BaselineLead struct {
-	Lead     int32         `json:"lead"`
-	K        int32         `json:"k"`
-	KEff     *float64      `json:"k_eff"`
-	Usable   bool          `json:"usable"`
-	Reason   *string       `json:"reason"`
-	Expected *Metrics      `json:"expected"`
-	MAE      *UpperBand    `json:"mae"`
-	RMSE     *UpperBand    `json:"rmse"`
-	ME       *TwoSidedBand `json:"me"`
+	Lead     int32           `json:"lead"`
+	K        int32           `json:"k"`
+	KEff     *float64        `json:"k_eff"`
+	Usable   bool            `json:"usable"`
+	Reason   *string         `json:"reason"`
+	Expected *report.Metrics `json:"expected"`
+	MAE      *UpperBand      `json:"mae"`
+	RMSE     *UpperBand      `json:"rmse"`
+	ME       *TwoSidedBand   `json:"me"`
 }
 
 func toBaselineLead(l *aftercastv1.BaselineLead) BaselineLead {

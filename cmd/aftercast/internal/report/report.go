@@ -12,6 +12,7 @@ import (
 	"strconv"
 	"text/tabwriter"
 
+	aftercastv1 "github.com/aftercast/aftercast/api/aftercast/v1"
 	"github.com/aftercast/aftercast/scoring"
 )
 
@@ -39,9 +40,10 @@ func Write(w io.Writer, format string, rs []Result) error {
 	return fmt.Errorf("unknown format %q: want table, json or csv", format)
 }
 
-// jsonMetrics is the JSON shape of one row; pointers make undefined metrics
-// null rather than NaN, which JSON cannot carry.
-type jsonMetrics struct {
+// Metrics is the JSON shape of one row of metrics, shared by every command
+// that prints them; pointers make undefined metrics null rather than NaN,
+// which JSON cannot carry.
+type Metrics struct {
 	Lead          *int     `json:"lead,omitempty"`
 	N             int64    `json:"n"`
 	ME            *float64 `json:"me"`
@@ -56,11 +58,11 @@ type jsonMetrics struct {
 }
 
 type jsonResult struct {
-	Series  string        `json:"series"`
-	Model   string        `json:"model"`
-	Step    string        `json:"step"`
-	Leads   []jsonMetrics `json:"leads"`
-	Overall jsonMetrics   `json:"overall"`
+	Series  string    `json:"series"`
+	Model   string    `json:"model"`
+	Step    string    `json:"step"`
+	Leads   []Metrics `json:"leads"`
+	Overall Metrics   `json:"overall"`
 }
 
 func opt(x float64) *float64 {
@@ -70,10 +72,24 @@ func opt(x float64) *float64 {
 	return &x
 }
 
-func toJSON(m scoring.Metrics) jsonMetrics {
-	return jsonMetrics{N: m.N, ME: opt(m.ME), MAE: opt(m.MAE), RMSE: opt(m.RMSE),
+// MetricsJSON is the JSON shape of m.
+func MetricsJSON(m scoring.Metrics) Metrics {
+	return Metrics{N: m.N, ME: opt(m.ME), MAE: opt(m.MAE), RMSE: opt(m.RMSE),
 		MAPE: opt(m.MAPE), MAPEExcluded: m.MAPEExcluded, SMAPE: opt(m.SMAPE), SMAPEExcluded: m.SMAPEExcluded,
 		WAPE: opt(m.WAPE), MASE: opt(m.MASE)}
+}
+
+// FromProto is the metrics of an API response; an absent value is
+// undefined (NaN).
+func FromProto(m *aftercastv1.AccuracyMetrics) scoring.Metrics {
+	v := func(p *float64) float64 {
+		if p == nil {
+			return math.NaN()
+		}
+		return *p
+	}
+	return scoring.Metrics{N: m.GetN(), ME: v(m.Me), MAE: v(m.Mae), RMSE: v(m.Rmse), MAPE: v(m.Mape),
+		MAPEExcluded: m.GetMapeExcluded(), SMAPE: v(m.Smape), SMAPEExcluded: m.GetSmapeExcluded(), WAPE: v(m.Wape), MASE: v(m.Mase)}
 }
 
 // WriteJSON writes {"results":[{series, model, step, leads, overall}]} with
@@ -83,10 +99,10 @@ func WriteJSON(w io.Writer, rs []Result) error {
 		Results []jsonResult `json:"results"`
 	}{Results: make([]jsonResult, 0, len(rs))}
 	for _, r := range rs {
-		jr := jsonResult{Series: r.Series, Model: r.Model, Step: r.Step, Leads: make([]jsonMetrics, 0, len(r.Table.Leads)),
-			Overall: toJSON(r.Table.Overall)}
+		jr := jsonResult{Series: r.Series, Model: r.Model, Step: r.Step, Leads: make([]Metrics, 0, len(r.Table.Leads)),
+			Overall: MetricsJSON(r.Table.Overall)}
 		for _, l := range r.Table.Leads {
-			m := toJSON(l.Metrics)
+			m := MetricsJSON(l.Metrics)
 			m.Lead = &l.Lead
 			jr.Leads = append(jr.Leads, m)
 		}
