@@ -38,24 +38,31 @@ func runDrift(args []string, stdout, stderr io.Writer) error {
 		return err
 	}
 	defer conn.Close()
-	client := aftercastv1.NewDriftServiceClient(conn)
-	var all []*aftercastv1.SeriesModelDrift
-	for token := ""; ; {
-		ctx, cancel := cf.call()
-		resp, err := client.ListDriftStates(ctx, &aftercastv1.ListDriftStatesRequest{Series: *series, Model: *model, PageSize: 1000, PageToken: token})
-		cancel()
-		if err != nil {
-			return cf.rpcError(err, "")
-		}
-		all = append(all, resp.GetStates()...)
-		if token = resp.GetNextPageToken(); token == "" {
-			break
-		}
+	all, err := listDriftStates(context.Background(), cf, aftercastv1.NewDriftServiceClient(conn), *series, *model)
+	if err != nil {
+		return err
 	}
 	if *format == "json" {
 		return driftreport.WriteJSON(stdout, driftreport.ToStates(all))
 	}
 	return driftreport.WriteStates(stdout, all)
+}
+
+// listDriftStates reads every page of drift states ("" selects all).
+func listDriftStates(ctx context.Context, cf *clientFlags, client aftercastv1.DriftServiceClient, series, model string) ([]*aftercastv1.SeriesModelDrift, error) {
+	var all []*aftercastv1.SeriesModelDrift
+	for token := ""; ; {
+		cctx, cancel := context.WithTimeout(ctx, cf.timeout)
+		resp, err := client.ListDriftStates(cctx, &aftercastv1.ListDriftStatesRequest{Series: series, Model: model, PageSize: 1000, PageToken: token})
+		cancel()
+		if err != nil {
+			return nil, cf.rpcError(err, "")
+		}
+		all = append(all, resp.GetStates()...)
+		if token = resp.GetNextPageToken(); token == "" {
+			return all, nil
+		}
+	}
 }
 
 // eventFilter chooses the events of `aftercast events`.

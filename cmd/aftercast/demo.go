@@ -324,21 +324,12 @@ func (p *producer) stream(ctx context.Context, speed float64) error {
 // results reads back every drift state and event.
 func (p *producer) results(ctx context.Context) ([]*aftercastv1.SeriesModelDrift, []*aftercastv1.DriftEvent, error) {
 	drift := aftercastv1.NewDriftServiceClient(p.conn)
-	var states []*aftercastv1.SeriesModelDrift
-	for token := ""; ; {
-		cctx, cancel := context.WithTimeout(ctx, p.cf.timeout)
-		resp, err := drift.ListDriftStates(cctx, &aftercastv1.ListDriftStatesRequest{PageSize: 1000, PageToken: token})
-		cancel()
-		if err != nil {
-			return nil, nil, p.cf.rpcError(err, "")
-		}
-		states = append(states, resp.GetStates()...)
-		if token = resp.GetNextPageToken(); token == "" {
-			break
-		}
+	states, err := listDriftStates(ctx, p.cf, drift, "", "")
+	if err != nil {
+		return nil, nil, err
 	}
 	var events []*aftercastv1.DriftEvent
-	err := listEvents(ctx, p.cf, drift, eventFilter{}, func(e *aftercastv1.DriftEvent) error {
+	err = listEvents(ctx, p.cf, drift, eventFilter{}, func(e *aftercastv1.DriftEvent) error {
 		events = append(events, e)
 		return nil
 	})
