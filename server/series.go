@@ -66,14 +66,9 @@ func (s *seriesService) GetSeries(ctx context.Context, req *aftercastv1.GetSerie
 
 // ListSeries pages by key; the page token is the last key of the page.
 func (s *seriesService) ListSeries(ctx context.Context, req *aftercastv1.ListSeriesRequest) (*aftercastv1.ListSeriesResponse, error) {
-	size := int(req.GetPageSize())
-	switch {
-	case size < 0:
-		return nil, invalidArg("page_size", "must not be negative")
-	case size == 0:
-		size = 100
-	case size > 1000:
-		size = 1000
+	size, err := pageSize(req.GetPageSize(), 100, 1000)
+	if err != nil {
+		return nil, err
 	}
 	after := req.GetPageToken()
 	if after != "" && !store.ValidKey(after) {
