@@ -93,3 +93,72 @@ func BenchmarkGRPCForecastIngest(b *testing.B) {
 	b.Logf("%d points: first push %v, identical re-push %v; peak RSS %.0f MiB (%.0f MiB before the pushes)",
 		int(points), first.Round(time.Millisecond), again.Round(time.Millisecond), peakRSS(), rssBefore)
 }
+
+// BenchmarkGRPCActuals pushes actuals end to end — gRPC stream, commit,
+// pairs counted, drift re-evaluated, acknowledgement — for 1,000 daily
+// series with H = 2 (each actual meets 2 forecasts), 100 days each, in
+// messages of 5,000 (the CLI's default), then pushes the same again (all
+// duplicates). Reports actuals/s for both.
+func BenchmarkGRPCActuals(b *testing.B) {
+	const series, days, horizon, batch = 1000, 100, 2, 5000
+	srv, c := start(b, storetest.URL(b))
+	ctx := context.Background()
+	st := srv.Store()
+	day := 24 * time.Hour
+	var vs []store.ForecastVector
+	for i := range series {
+		key := fmt.Sprintf("d%04d", i)
+		if _, _, err := st.CreateSeries(ctx, store.Series{Key: key, Step: "1d", Horizon: horizon}); err != nil {
+			b.Fatal(err)
+		}
+		for k := -horizon; k < days; k++ {
+			vs = append(vs, store.ForecastVector{Series: key, Model: "m", Origin: t0.Add(time.Duration(k) * day), Values: []float64{100, 101}})
+		}
+	}
+	for lo := 0; lo < len(vs); lo += batch {
+		if _, err := st.WriteForecasts(ctx, vs[lo:min(lo+batch, len(vs))], lo); err != nil {
+			b.Fatal(err)
+		}
+	}
+	push := func() (time.Duration, *aftercastv1.ActualPushSummary) {
+		start := time.Now()
+		stream, err := c.actual.StreamActuals(ctx)
+		if err != nil {
+			b.Fatal(err)
+		}
+		var msg []*aftercastv1.Actual
+		for k := range days {
+			for i := range series {
+				msg = append(msg, &aftercastv1.Actual{Series: fmt.Sprintf("d%04d", i), Time: ts(time.Duration(k) * day), Value: float64(90 + i%20)})
+				if len(msg) == batch {
+					if err := stream.Send(&aftercastv1.StreamActualsRequest{Actuals: msg}); err != nil {
+						b.Fatal(err)
+					}
+					msg = nil
+				}
+			}
+		}
+		resp, err := stream.CloseAndRecv()
+		if err != nil {
+			b.Fatal(err)
+		}
+		return time.Since(start), resp.GetSummary()
+	}
+	b.ResetTimer()
+	var first, again time.Duration
+	for b.Loop() {
+		var sum *aftercastv1.ActualPushSummary
+		first, sum = push()
+		if sum.GetAccepted() != series*days {
+			b.Fatalf("summary %v", sum)
+		}
+		again, sum = push()
+		if sum.GetDuplicate() != series*days {
+			b.Fatalf("re-push summary %v", sum)
+		}
+	}
+	n := float64(series * days)
+	b.ReportMetric(n/first.Seconds(), "actuals/s")
+	b.ReportMetric(n/again.Seconds(), "repush-actuals/s")
+	b.Logf("%d actuals: first push %v, identical re-push %v", int(n), first.Round(time.Millisecond), again.Round(time.Millisecond))
+}

@@ -259,17 +259,30 @@ func (s *Store) EvaluateDrift(ctx context.Context, seriesKeys []string) ([]Drift
 	if err != nil {
 		return nil, err
 	}
+	ids := make([]int64, 0, len(series))
+	for _, se := range series {
+		ids = append(ids, se.ID)
+	}
+	// One query for the models with a baseline: a feed's batch touches many
+	// series, most of which may have none.
+	rows, err := s.pool.Query(ctx, `SELECT DISTINCT series_id, model FROM baselines WHERE series_id = ANY($1)`, ids)
+	if err != nil {
+		return nil, fmt.Errorf("reading baselines: %w", err)
+	}
+	withBaseline := map[int64][]string{}
+	var id int64
+	var model string
+	if _, err := pgx.ForEachRow(rows, []any{&id, &model}, func() error {
+		withBaseline[id] = append(withBaseline[id], model)
+		return nil
+	}); err != nil {
+		return nil, fmt.Errorf("reading baselines: %w", err)
+	}
 	var events []DriftEvent
 	for _, key := range sortedKeys(series) {
 		se := series[key]
-		rows, err := s.pool.Query(ctx, `SELECT DISTINCT model FROM baselines WHERE series_id = $1 ORDER BY model`, se.ID)
-		if err != nil {
-			return events, fmt.Errorf("reading baselines: %w", err)
-		}
-		models, err := pgx.CollectRows(rows, pgx.RowTo[string])
-		if err != nil {
-			return events, fmt.Errorf("reading baselines: %w", err)
-		}
+		models := withBaseline[se.ID]
+		slices.Sort(models)
 		for _, model := range models {
 			err := s.inTx(ctx, func(tx pgx.Tx) error {
 				if err := lockSeries(ctx, tx, []int64{se.ID}); err != nil {

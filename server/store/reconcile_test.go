@@ -131,3 +131,78 @@ func TestSubMicrosecondTimesInOneBatch(t *testing.T) {
 		t.Errorf("forecast vectors 100 ns apart: %v", err)
 	}
 }
+
+// WriteActuals first tries to COPY a batch as all new and, on a conflict,
+// settles it against the stored values instead; the batch after a conflict
+// reads first. Whatever path a batch takes, its counts and the stored state
+// must be those of pushing the items one by one. Batches alternate between
+// all-new and mixed (new, duplicate, revised) so that every path and every
+// switch between them is taken.
+func TestActualsCountsOnEveryWritePath(t *testing.T) {
+	t.Parallel()
+	s := storetest.Store(t)
+	ctx := ctxT(t)
+	mustSeries(t, s, "p", "1h", 2)
+	h := time.Hour
+	if _, err := s.WriteForecasts(ctx, []store.ForecastVector{{Series: "p", Model: "m", Origin: t0, Values: []float64{1, 2}}}, 0); err != nil {
+		t.Fatal(err)
+	}
+	model := map[time.Time]float64{} // what one-by-one pushing leaves stored
+	at := func(k int) time.Time { return t0.Add(time.Duration(k) * h) }
+	for round, batch := range [][]store.Actual{
+		{{Series: "p", Time: at(1), Value: 1}, {Series: "p", Time: at(2), Value: 2}},                                       // all new, completes 2 pairs
+		{{Series: "p", Time: at(1), Value: 1}, {Series: "p", Time: at(2), Value: 3}, {Series: "p", Time: at(3), Value: 3}}, // dup, revised, new
+		{{Series: "p", Time: at(4), Value: 4}, {Series: "p", Time: at(5), Value: 5}},                                       // all new, after a conflict
+		{{Series: "p", Time: at(6), Value: 6}},                                                                             // all new again
+		{{Series: "p", Time: at(6), Value: 7}, {Series: "p", Time: at(7), Value: 7}, {Series: "p", Time: at(7), Value: 7}}, // revised, new, dup of itself
+		{{Series: "p", Time: at(5), Value: 5}},                                                                             // duplicate only
+	} {
+		var want store.Ack
+		for _, a := range batch {
+			old, ok := model[a.Time]
+			switch {
+			case !ok:
+				want.Accepted++
+				if a.Time.Sub(t0) <= 2*h {
+					want.Scored++
+				}
+			case old == a.Value:
+				want.Duplicate++
+			default:
+				want.Revised++
+			}
+			model[a.Time] = a.Value
+		}
+		got, err := s.WriteActuals(ctx, batch, 0)
+		if err != nil {
+			t.Fatalf("round %d: %v", round, err)
+		}
+		if got.Accepted != want.Accepted || got.Duplicate != want.Duplicate || got.Revised != want.Revised || got.Scored != want.Scored {
+			t.Errorf("round %d: ack %+v, want %+v", round, got, want)
+		}
+		rows, err := s.Pool().Query(ctx, `SELECT time, value FROM actuals`)
+		if err != nil {
+			t.Fatal(err)
+		}
+		stored := map[time.Time]float64{}
+		for rows.Next() {
+			var tm time.Time
+			var v float64
+			if err := rows.Scan(&tm, &v); err != nil {
+				t.Fatal(err)
+			}
+			stored[tm.UTC()] = v
+		}
+		if err := rows.Err(); err != nil {
+			t.Fatal(err)
+		}
+		if len(stored) != len(model) {
+			t.Errorf("round %d: %d actuals stored, want %d", round, len(stored), len(model))
+		}
+		for tm, v := range model {
+			if stored[tm] != v {
+				t.Errorf("round %d: stored %v at %v, want %v", round, stored[tm], tm, v)
+			}
+		}
+	}
+}

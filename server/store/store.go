@@ -13,6 +13,7 @@ import (
 	"fmt"
 	"strings"
 	"sync"
+	"sync/atomic"
 	"time"
 
 	"github.com/jackc/pgx/v5"
@@ -97,6 +98,12 @@ type Store struct {
 	// Prepared baseline versions; a version never changes once stored.
 	bmu       sync.Mutex
 	baselines map[baselineKey]*baselineModel
+
+	// actualsConflict is set when the last batch of actuals held a stored
+	// time: the next batch reads stored values first instead of trying an
+	// optimistic COPY (see WriteActuals). A hint only; counts never depend
+	// on it.
+	actualsConflict atomic.Bool
 }
 
 // New returns a Store over pool; the schema must be migrated (see Migrate).
