@@ -30,6 +30,36 @@ func peakRSS() float64 {
 	return 0
 }
 
+// messages gathers items into messages of up to batch and sends each when
+// full, as a producer streams them: the whole push is never held at once,
+// so the process's peak RSS stays the server's.
+func messages[T any](b *testing.B, batch int, send func([]T) error) *messageBuffer[T] {
+	return &messageBuffer[T]{b: b, batch: batch, send: send}
+}
+
+type messageBuffer[T any] struct {
+	b     *testing.B
+	batch int
+	msg   []T
+	send  func([]T) error
+}
+
+func (m *messageBuffer[T]) add(x T) {
+	if m.msg = append(m.msg, x); len(m.msg) == m.batch {
+		m.flush()
+	}
+}
+
+func (m *messageBuffer[T]) flush() {
+	if len(m.msg) == 0 {
+		return
+	}
+	if err := m.send(m.msg); err != nil {
+		m.b.Fatal(err)
+	}
+	m.msg = nil
+}
+
 // BenchmarkGRPCForecastIngest pushes forecasts end to end — gRPC stream,
 // validation, commit, acknowledgement — for 10,000 series × 48 leads in
 // messages of 500 vectors, as a producer would, then pushes the same again
@@ -51,22 +81,19 @@ func BenchmarkGRPCForecastIngest(b *testing.B) {
 		if err != nil {
 			b.Fatal(err)
 		}
-		var msg []*aftercastv1.Forecast
+		out := messages(b, batch, func(m []*aftercastv1.Forecast) error {
+			return stream.Send(&aftercastv1.StreamForecastsRequest{Forecasts: m})
+		})
 		for k := range origins {
 			for i := range series {
 				vals := make([]float64, leads)
 				for h := range vals {
 					vals[h] = float64(100 + i%17 + h)
 				}
-				msg = append(msg, dense(fmt.Sprintf("s%05d", i), "m", time.Duration(k)*24*time.Hour, vals...))
-				if len(msg) == batch {
-					if err := stream.Send(&aftercastv1.StreamForecastsRequest{Forecasts: msg}); err != nil {
-						b.Fatal(err)
-					}
-					msg = nil
-				}
+				out.add(dense(fmt.Sprintf("s%05d", i), "m", time.Duration(k)*24*time.Hour, vals...))
 			}
 		}
+		out.flush()
 		resp, err := stream.CloseAndRecv()
 		if err != nil {
 			b.Fatal(err)
@@ -126,18 +153,15 @@ func BenchmarkGRPCActuals(b *testing.B) {
 		if err != nil {
 			b.Fatal(err)
 		}
-		var msg []*aftercastv1.Actual
+		out := messages(b, batch, func(m []*aftercastv1.Actual) error {
+			return stream.Send(&aftercastv1.StreamActualsRequest{Actuals: m})
+		})
 		for k := range days {
 			for i := range series {
-				msg = append(msg, &aftercastv1.Actual{Series: fmt.Sprintf("d%04d", i), Time: ts(time.Duration(k) * day), Value: float64(90 + i%20)})
-				if len(msg) == batch {
-					if err := stream.Send(&aftercastv1.StreamActualsRequest{Actuals: msg}); err != nil {
-						b.Fatal(err)
-					}
-					msg = nil
-				}
+				out.add(&aftercastv1.Actual{Series: fmt.Sprintf("d%04d", i), Time: ts(time.Duration(k) * day), Value: float64(90 + i%20)})
 			}
 		}
+		out.flush()
 		resp, err := stream.CloseAndRecv()
 		if err != nil {
 			b.Fatal(err)
