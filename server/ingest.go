@@ -219,6 +219,8 @@ func (s *actualService) StreamActuals(stream aftercastv1.ActualService_StreamAct
 		as := toActuals(req.GetActuals())
 		ack, err := s.writeActuals(ctx, as, n)
 		if err != nil {
+			// What the stream committed before still gets judged.
+			s.evaluateDrift(context.WithoutCancel(ctx), actualSeries(nil, pending))
 			return s.status(ctx, err)
 		}
 		total.Add(ack)

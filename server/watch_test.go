@@ -7,7 +7,10 @@ import (
 	"time"
 
 	"google.golang.org/grpc"
+	"google.golang.org/grpc/codes"
 	"google.golang.org/grpc/credentials/insecure"
+	"google.golang.org/grpc/status"
+	"google.golang.org/protobuf/types/known/timestamppb"
 
 	aftercastv1 "github.com/aftercast/aftercast/api/aftercast/v1"
 	"github.com/aftercast/aftercast/server/store"
@@ -116,4 +119,67 @@ func dialT(t *testing.T, addr string) *grpc.ClientConn {
 	}
 	t.Cleanup(func() { conn.Close() })
 	return conn
+}
+
+// A stream of actuals that fails midway keeps the batches it committed, and
+// those are judged at once: drift does not wait for the next push.
+func TestFailedActualsStreamStillJudgesWhatItCommitted(t *testing.T) {
+	t.Parallel()
+	srv, c := start(t, storetest.URL(t))
+	ctx := ctxT(t)
+	st := srv.Store()
+	const leads = 2
+	if _, _, err := st.CreateSeries(ctx, store.Series{Key: "f", Step: "1h", Horizon: leads}); err != nil {
+		t.Fatal(err)
+	}
+	r := rand.New(rand.NewPCG(7, 8))
+	var rows []store.BacktestRow
+	for k := -365; k < 0; k++ {
+		o := t0.Add(time.Duration(k) * 24 * time.Hour)
+		for h := 1; h <= leads; h++ {
+			rows = append(rows, store.BacktestRow{Series: "f", Origin: o, Target: o.Add(time.Duration(h) * time.Hour), Actual: 100, Forecast: 100 - r.NormFloat64()})
+		}
+	}
+	if _, err := st.ImportBaseline(ctx, "m", rows, nil, nil); err != nil {
+		t.Fatal(err)
+	}
+	var as []*aftercastv1.Actual
+	for k := range 10 {
+		o := t0.Add(time.Duration(k) * 24 * time.Hour)
+		if _, err := st.WriteForecasts(ctx, []store.ForecastVector{{Series: "f", Model: "m", Origin: o, Values: []float64{100 - r.NormFloat64(), 100 - r.NormFloat64()}}}, 0); err != nil {
+			t.Fatal(err)
+		}
+		for h := 1; h <= leads; h++ {
+			as = append(as, &aftercastv1.Actual{Series: "f", Time: timestamppb.New(o.Add(time.Duration(h) * time.Hour)), Value: 100})
+		}
+	}
+	stream, err := c.actual.StreamActuals(ctx)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := stream.Send(&aftercastv1.StreamActualsRequest{Actuals: as}); err != nil {
+		t.Fatal(err)
+	}
+	// One more than a batch may hold: the server refuses it and ends the stream.
+	tooMany := make([]*aftercastv1.Actual, st.Limits().MaxBatch+1)
+	for i := range tooMany {
+		tooMany[i] = &aftercastv1.Actual{Series: "f", Time: timestamppb.New(t0.Add(time.Duration(1000+i) * time.Hour)), Value: 1}
+	}
+	_ = stream.Send(&aftercastv1.StreamActualsRequest{Actuals: tooMany})
+	if _, err := stream.CloseAndRecv(); status.Code(err) != codes.InvalidArgument {
+		t.Fatalf("oversized batch: %v, want InvalidArgument", err)
+	}
+	states, err := st.DriftStates(ctx, "f", "")
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(states) == 0 {
+		t.Fatal("no drift state after a failed stream: the committed actuals were not judged")
+	}
+	last := t0.Add(9 * 24 * time.Hour)
+	for _, s := range states {
+		if !s.LastOrigin.Equal(last) {
+			t.Errorf("lead %d judged up to origin %v, want the last committed %v", s.Lead, s.LastOrigin, last)
+		}
+	}
 }
