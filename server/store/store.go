@@ -101,7 +101,7 @@ type Store struct {
 
 	// actualsConflict is set when the last batch of actuals held a stored
 	// time: the next batch reads stored values first instead of trying an
-	// optimistic COPY (see WriteActuals). A hint only; counts never depend
+	// optimistic insert (see WriteActuals). A hint only; counts never depend
 	// on it.
 	actualsConflict atomic.Bool
 }
