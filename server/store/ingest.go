@@ -180,22 +180,15 @@ func (s *Store) WriteForecasts(ctx context.Context, vs []ForecastVector, firstIn
 		return ack, nil
 	}
 	now := time.Now().UTC()
-	var newModels []modelKey
-	err = s.inTx(ctx, func(tx pgx.Tx) error {
-		ids := make([]int64, 0, len(items))
-		for _, it := range items {
-			ids = append(ids, it.se.ID)
-		}
-		if err := lockSeries(ctx, tx, ids); err != nil {
-			return err
-		}
-		rows, err := loadForecasts(ctx, tx, items2keys(items, func(it item) (*Series, string, time.Time) { return it.se, it.v.Model, it.v.Origin }))
-		if err != nil {
-			return err
-		}
-		known, err := knownActuals(ctx, tx, items2spans(items, func(it item) (*Series, time.Time, int) { return it.se, it.v.Origin, len(it.v.Values) }))
-		if err != nil {
-			return err
+	fkeys := items2keys(items, func(it item) (*Series, string, time.Time) { return it.se, it.v.Model, it.v.Origin })
+	spans := items2spans(items, func(it item) (*Series, time.Time, int) { return it.se, it.v.Origin, len(it.v.Values) })
+	// merge applies the batch to the stored rows (none: every vector new)
+	// and returns the rows to write with the batch's acknowledgement.
+	merge := func(stored map[forecastKey]*forecastRow, known map[int64]map[int64]bool) (map[forecastKey]*forecastRow, Ack) {
+		a := ack
+		rows := stored
+		if rows == nil {
+			rows = make(map[forecastKey]*forecastRow, len(items))
 		}
 		for _, it := range items {
 			k := forecastKey{it.se.ID, it.v.Model, it.v.Origin.UnixNano()}
@@ -205,8 +198,52 @@ func (s *Store) WriteForecasts(ctx context.Context, vs []ForecastVector, firstIn
 				rows[k] = r
 			}
 			r.se = it.se
-			mergeForecast(r, it.v, known[it.se.ID], now, &ack)
+			mergeForecast(r, it.v, known[it.se.ID], now, &a)
 		}
+		return rows, a
+	}
+	var newModels []modelKey
+	var done Ack
+	err = s.inTx(ctx, func(tx pgx.Tx) error {
+		ids := make([]int64, 0, len(items))
+		for _, it := range items {
+			ids = append(ids, it.se.ID)
+		}
+		// Optimistically every vector is new, the usual case for a
+		// forecasting job: lock, read the actuals the hindsight guard needs
+		// and set a savepoint in one round trip, then COPY without reading
+		// stored vectors. A unique violation means some vector is stored
+		// already: roll back to the savepoint and merge with what is stored.
+		// After such a batch the next one reads first (see WriteActuals).
+		optimistic := !s.forecastsConflict.Load()
+		known, err := lockAndReadKnown(ctx, tx, ids, spans, optimistic)
+		if err != nil {
+			return err
+		}
+		var rows map[forecastKey]*forecastRow
+		if optimistic {
+			rows, done = merge(nil, known)
+			err := storeForecasts(ctx, tx, rows, now)
+			switch {
+			case err == nil:
+				newModels, err = s.recordModels(ctx, tx, rows)
+				return err
+			case !isUniqueViolation(err):
+				return err
+			}
+			if _, err := tx.Exec(ctx, "ROLLBACK TO SAVEPOINT "+newForecastsSavepoint); err != nil {
+				return fmt.Errorf("storing forecasts: %w", err)
+			}
+			s.forecastsConflict.Store(true)
+		}
+		stored, err := loadForecasts(ctx, tx, fkeys)
+		if err != nil {
+			return err
+		}
+		if len(stored) == 0 {
+			s.forecastsConflict.Store(false)
+		}
+		rows, done = merge(stored, known)
 		if err := storeForecasts(ctx, tx, rows, now); err != nil {
 			return err
 		}
@@ -221,7 +258,7 @@ func (s *Store) WriteForecasts(ctx context.Context, vs []ForecastVector, firstIn
 		s.models[mk] = true
 	}
 	s.mu.Unlock()
-	return ack, nil
+	return done, nil
 }
 
 func validQuantiles(v *ForecastVector) bool {
@@ -392,36 +429,55 @@ func loadForecasts(ctx context.Context, tx pgx.Tx, keys []forecastKey) (map[fore
 	return out, rows.Err()
 }
 
-// knownActuals returns, per series, the times of actuals already stored in
-// the span the batch's targets cover.
-func knownActuals(ctx context.Context, tx pgx.Tx, spans map[int64]targetSpan) (map[int64]map[int64]bool, error) {
+// newForecastsSavepoint names the savepoint of the optimistic COPY.
+const newForecastsSavepoint = "new_forecasts"
+
+// lockAndReadKnown takes the series locks and returns, per series, the
+// times of actuals already stored in the span the batch's targets cover;
+// with savepoint set it also sets newForecastsSavepoint. One round trip.
+func lockAndReadKnown(ctx context.Context, tx pgx.Tx, lockIDsOf []int64, spans map[int64]targetSpan, savepoint bool) (map[int64]map[int64]bool, error) {
 	ids, los, his := make([]int64, 0, len(spans)), make([]time.Time, 0, len(spans)), make([]time.Time, 0, len(spans))
 	for id, sp := range spans {
 		ids, los, his = append(ids, id), append(los, sp.lo), append(his, sp.hi)
 	}
+	b := &pgx.Batch{}
+	b.Queue(lockSQL, lockIDs(lockIDsOf))
 	// OFFSET 0 keeps the lateral subquery from being flattened into a
 	// join, so each series is one primary-key range probe, whatever the
 	// planner guesses of the ranges (see completedQuery).
-	rows, err := tx.Query(ctx, `SELECT a.series_id, a.time FROM unnest($1::bigint[], $2::timestamptz[], $3::timestamptz[]) AS r(series_id, lo, hi)
+	b.Queue(`SELECT a.series_id, a.time FROM unnest($1::bigint[], $2::timestamptz[], $3::timestamptz[]) AS r(series_id, lo, hi)
 		JOIN LATERAL (SELECT series_id, time FROM actuals a
 			WHERE a.series_id = r.series_id AND a.time BETWEEN r.lo AND r.hi OFFSET 0) a ON true`, ids, los, his)
+	if savepoint {
+		b.Queue("SAVEPOINT " + newForecastsSavepoint)
+	}
+	br := tx.SendBatch(ctx, b)
+	defer br.Close()
+	if _, err := br.Exec(); err != nil {
+		return nil, fmt.Errorf("locking series: %w", err)
+	}
+	rows, err := br.Query()
 	if err != nil {
 		return nil, fmt.Errorf("reading known actuals: %w", err)
 	}
-	defer rows.Close()
 	out := make(map[int64]map[int64]bool, len(spans))
-	for rows.Next() {
-		var id int64
-		var t time.Time
-		if err := rows.Scan(&id, &t); err != nil {
-			return nil, err
-		}
+	var id int64
+	var t time.Time
+	if _, err := pgx.ForEachRow(rows, []any{&id, &t}, func() error {
 		if out[id] == nil {
 			out[id] = map[int64]bool{}
 		}
 		out[id][t.UnixNano()] = true
+		return nil
+	}); err != nil {
+		return nil, fmt.Errorf("reading known actuals: %w", err)
 	}
-	return out, rows.Err()
+	if savepoint {
+		if _, err := br.Exec(); err != nil {
+			return nil, fmt.Errorf("storing forecasts: %w", err)
+		}
+	}
+	return out, br.Close()
 }
 
 func toFloat8(xs []float64) []pgtype.Float8 {

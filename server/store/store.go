@@ -104,6 +104,8 @@ type Store struct {
 	// optimistic insert (see WriteActuals). A hint only; counts never depend
 	// on it.
 	actualsConflict atomic.Bool
+	// forecastsConflict is the same hint for batches of forecasts.
+	forecastsConflict atomic.Bool
 }
 
 // New returns a Store over pool; the schema must be migrated (see Migrate).
