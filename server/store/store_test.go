@@ -3,10 +3,16 @@ package store_test
 import (
 	"context"
 	"errors"
+	"fmt"
 	"math"
 	"os"
+	"slices"
 	"testing"
 	"time"
+
+	"github.com/jackc/pgx/v5"
+	"github.com/jackc/pgx/v5/pgconn"
+	"github.com/jackc/pgx/v5/pgxpool"
 
 	"github.com/aftercast/aftercast/scoring"
 	"github.com/aftercast/aftercast/server/store"
@@ -314,5 +320,77 @@ func TestFreshnessAndScoredCount(t *testing.T) {
 	}
 	if !fs[0].LastOrigin.Equal(t0.Add(2*h)) || fs[0].OriginInterval != h || !as[0].LastTime.Equal(t0.Add(3*h)) {
 		t.Errorf("freshness %+v %+v", fs[0], as[0])
+	}
+}
+
+// Series keys and model names compare bytewise (migration 006) on every
+// server, also one whose default collation is a natural-language one: the
+// test builds such a database with ICU's en-US, migrates it, and checks the
+// declared collations and the order of listed series.
+func TestIdentifiersCompareBytewise(t *testing.T) {
+	t.Parallel()
+	ctx := ctxT(t)
+	admin := storetest.Pool(t)
+	name := fmt.Sprintf("aftercast_icu_%d", time.Now().UnixNano())
+	if _, err := admin.Exec(ctx, "CREATE DATABASE "+name+" TEMPLATE template0 LOCALE_PROVIDER icu ICU_LOCALE 'en-US' LOCALE 'C'"); err != nil {
+		var pe *pgconn.PgError
+		if errors.As(err, &pe) && pe.Code == "0A000" {
+			// Debian's server has ICU; a server built without it cannot
+			// make the database this test needs.
+			t.Skipf("this PostgreSQL has no ICU: %v", err)
+		}
+		t.Fatalf("creating an ICU en-US database: %v", err)
+	}
+	t.Cleanup(func() { _, _ = admin.Exec(context.Background(), "DROP DATABASE IF EXISTS "+name+" WITH (FORCE)") })
+	cfg := admin.Config().Copy()
+	cfg.ConnConfig.Database = name
+	pool, err := pgxpool.NewWithConfig(ctx, cfg)
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(pool.Close)
+	if _, err := store.Migrate(ctx, pool, nil); err != nil {
+		t.Fatal(err)
+	}
+	// The test means something only if the database's own order differs.
+	var natural bool
+	if err := pool.QueryRow(ctx, "SELECT 'a' < 'B'").Scan(&natural); err != nil || !natural {
+		t.Fatalf("the ICU database does not order 'a' before 'B' (%v, %v): it would not tell collations apart", natural, err)
+	}
+	rows, err := pool.Query(ctx, `SELECT table_name || '.' || column_name, coalesce(collation_name, '')
+		FROM information_schema.columns WHERE table_schema = 'public' AND column_name IN ('key', 'model')`)
+	if err != nil {
+		t.Fatal(err)
+	}
+	cols := map[string]string{}
+	var col, coll string
+	if _, err := pgx.ForEachRow(rows, []any{&col, &coll}, func() error { cols[col] = coll; return nil }); err != nil {
+		t.Fatal(err)
+	}
+	if len(cols) < 7 {
+		t.Errorf("identifier columns found: %v, want series.key and six model columns", cols)
+	}
+	for c, coll := range cols {
+		if coll != "C" {
+			t.Errorf("%s has collation %q, want C", c, coll)
+		}
+	}
+	s := store.New(pool, store.Limits{})
+	keys := []string{"aB", "a-b", "B", "a", "A", "Ab"}
+	for _, k := range keys {
+		mustSeries(t, s, k, "1h", 2)
+	}
+	got, err := s.ListSeries(ctx, "", 100)
+	if err != nil {
+		t.Fatal(err)
+	}
+	var order []string
+	for _, se := range got {
+		order = append(order, se.Key)
+	}
+	want := slices.Clone(keys)
+	slices.Sort(want) // Go compares strings bytewise
+	if !slices.Equal(order, want) {
+		t.Errorf("series listed as %v, want bytewise %v", order, want)
 	}
 }
