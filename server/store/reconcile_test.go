@@ -132,7 +132,7 @@ func TestSubMicrosecondTimesInOneBatch(t *testing.T) {
 	}
 }
 
-// WriteActuals first tries to COPY a batch as all new and, on a conflict,
+// WriteActuals first tries to insert a batch as all new and, on a conflict,
 // settles it against the stored values instead; the batch after a conflict
 // reads first. Whatever path a batch takes, its counts and the stored state
 // must be those of pushing the items one by one. Batches alternate between
