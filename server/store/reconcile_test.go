@@ -2,6 +2,7 @@ package store_test
 
 import (
 	"math"
+	"slices"
 	"testing"
 	"time"
 
@@ -204,5 +205,67 @@ func TestActualsCountsOnEveryWritePath(t *testing.T) {
 				t.Errorf("round %d: stored %v at %v, want %v", round, stored[tm], tm, v)
 			}
 		}
+	}
+}
+
+// WriteForecasts likewise first copies a batch as all new and, on a
+// conflict, merges it with the stored vectors; the batch after a conflict
+// reads first. Each round's acknowledgement is worked out by hand from
+// method.md §3, and the stored vectors are checked at the end.
+func TestForecastsCountsOnEveryWritePath(t *testing.T) {
+	t.Parallel()
+	s := storetest.Store(t)
+	ctx := ctxT(t)
+	mustSeries(t, s, "q", "1h", 2)
+	h := time.Hour
+	vec := func(k int, vals ...float64) store.ForecastVector {
+		return store.ForecastVector{Series: "q", Model: "m", Origin: t0.Add(time.Duration(k) * h), Values: vals}
+	}
+	for round, tc := range []struct {
+		batch               []store.ForecastVector
+		actual              time.Duration // > 0: an actual at t0+actual is stored before the batch
+		accepted, dup, late int64
+	}{
+		{batch: []store.ForecastVector{vec(0, 1, 2), vec(1, 1, 2)}, accepted: 4},           // all new
+		{batch: []store.ForecastVector{vec(0, 1, 5), vec(2, 3, 3)}, accepted: 3, dup: 1},   // re-issue and new: conflict
+		{batch: []store.ForecastVector{vec(3, 1, 1)}, accepted: 2},                         // new, read first after the conflict
+		{batch: []store.ForecastVector{vec(4, 9, 9)}, actual: 5 * h, accepted: 1, late: 1}, // new, lead 1's actual known
+		{batch: []store.ForecastVector{vec(3, 1, 8)}, dup: 1, late: 1},                     // re-issue of a lead whose actual is known
+	} {
+		if tc.actual > 0 {
+			if _, err := s.WriteActuals(ctx, []store.Actual{{Series: "q", Time: t0.Add(tc.actual), Value: 0}}, 0); err != nil {
+				t.Fatal(err)
+			}
+		}
+		got, err := s.WriteForecasts(ctx, tc.batch, 0)
+		if err != nil {
+			t.Fatalf("round %d: %v", round, err)
+		}
+		if got.Accepted != tc.accepted || got.Duplicate != tc.dup || got.Late != tc.late || got.Rejected != 0 {
+			t.Errorf("round %d: ack %+v, want accepted %d duplicate %d late %d", round, got, tc.accepted, tc.dup, tc.late)
+		}
+	}
+	want := map[int][]float64{0: {1, 5}, 1: {1, 2}, 2: {3, 3}, 3: {1, 1}, 4: {9, 9}}
+	wantLate := map[int][]bool{4: {true, false}}
+	rows, err := s.Pool().Query(ctx, `SELECT origin, vals, late FROM forecasts`)
+	if err != nil {
+		t.Fatal(err)
+	}
+	n := 0
+	for rows.Next() {
+		var o time.Time
+		var vals []float64
+		var late []bool
+		if err := rows.Scan(&o, &vals, &late); err != nil {
+			t.Fatal(err)
+		}
+		k := int(o.Sub(t0) / h)
+		if !slices.Equal(vals, want[k]) || !slices.Equal(late, wantLate[k]) {
+			t.Errorf("origin %d: stored %v late %v, want %v late %v", k, vals, late, want[k], wantLate[k])
+		}
+		n++
+	}
+	if err := rows.Err(); err != nil || n != len(want) {
+		t.Errorf("%d vectors stored (%v), want %d", n, err, len(want))
 	}
 }
