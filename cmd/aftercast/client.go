@@ -108,6 +108,20 @@ func parseArgs(fs *flag.FlagSet, args []string) ([]string, error) {
 	}
 }
 
+// parseExactly is parseArgs for a command that takes exactly n positional
+// arguments; any other number prints the usage.
+func parseExactly(fs *flag.FlagSet, args []string, n int) ([]string, error) {
+	pos, err := parseArgs(fs, args)
+	if err != nil {
+		return nil, err
+	}
+	if len(pos) != n {
+		fs.Usage()
+		return nil, errUsage
+	}
+	return pos, nil
+}
+
 // sub is one subcommand of a command group such as "series create".
 type sub struct {
 	name string

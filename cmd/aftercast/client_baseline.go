@@ -40,7 +40,7 @@ func baselineImport(args []string, stdout, stderr io.Writer) error {
 		fs.Usage()
 		return errUsage
 	}
-	if err := seriesFormat(*format); err != nil {
+	if err := tableOrJSON(*format); err != nil {
 		return err
 	}
 	if file == "-" && *history == "-" {
@@ -155,7 +155,7 @@ func baselineShow(args []string, stdout, stderr io.Writer) error {
 		fs.Usage()
 		return errUsage
 	}
-	if err := seriesFormat(*format); err != nil {
+	if err := tableOrJSON(*format); err != nil {
 		return err
 	}
 	req := &aftercastv1.GetBaselineRequest{Series: *series, Model: *model}

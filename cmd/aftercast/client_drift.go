@@ -22,15 +22,11 @@ func runDrift(args []string, stdout, stderr io.Writer) error {
 	series := fs.String("series", "", "only this series (default all)")
 	model := fs.String("model", "", "only this model (default all)")
 	format := fs.String("format", "table", "output: table or json")
-	pos, err := parseArgs(fs, args)
+	_, err := parseExactly(fs, args, 0)
 	if err != nil {
 		return err
 	}
-	if len(pos) != 0 {
-		fs.Usage()
-		return errUsage
-	}
-	if err := seriesFormat(*format); err != nil {
+	if err := tableOrJSON(*format); err != nil {
 		return err
 	}
 	conn, err := cf.dial()
@@ -91,15 +87,11 @@ func runEvents(args []string, stdout, stderr io.Writer) error {
 	})
 	format := fs.String("format", "table", "output: table or json (with --follow, one JSON object per line)")
 	follow := fs.Bool("follow", false, "after the stored events, print new ones as they happen, until interrupted")
-	pos, err := parseArgs(fs, args)
+	_, err := parseExactly(fs, args, 0)
 	if err != nil {
 		return err
 	}
-	if len(pos) != 0 {
-		fs.Usage()
-		return errUsage
-	}
-	if err := seriesFormat(*format); err != nil {
+	if err := tableOrJSON(*format); err != nil {
 		return err
 	}
 	conn, err := cf.dial()

@@ -138,13 +138,9 @@ func pushActuals(args []string, stdout, stderr io.Writer) error {
 
 // pushArgs parses the flags of a push command and returns its file.
 func pushArgs(fs *flag.FlagSet, args []string, batch *int) (string, error) {
-	pos, err := parseArgs(fs, args)
+	pos, err := parseExactly(fs, args, 1)
 	if err != nil {
 		return "", err
-	}
-	if len(pos) != 1 {
-		fs.Usage()
-		return "", errUsage
 	}
 	if *batch < 1 {
 		return "", fmt.Errorf("--batch %d: want at least 1", *batch)

@@ -84,15 +84,11 @@ func seriesGet(args []string, stdout, stderr io.Writer) error {
 	fs := newFlags("series get", "KEY", stderr)
 	cf := addClientFlags(fs)
 	format := fs.String("format", "table", "output: table or json")
-	pos, err := parseArgs(fs, args)
+	pos, err := parseExactly(fs, args, 1)
 	if err != nil {
 		return err
 	}
-	if len(pos) != 1 {
-		fs.Usage()
-		return errUsage
-	}
-	if err := seriesFormat(*format); err != nil {
+	if err := tableOrJSON(*format); err != nil {
 		return err
 	}
 	conn, err := cf.dial()
@@ -122,15 +118,11 @@ func seriesList(args []string, stdout, stderr io.Writer) error {
 	cf := addClientFlags(fs)
 	format := fs.String("format", "table", "output: table or json")
 	prefix := fs.String("prefix", "", "only series whose key starts with this")
-	pos, err := parseArgs(fs, args)
+	_, err := parseExactly(fs, args, 0)
 	if err != nil {
 		return err
 	}
-	if len(pos) != 0 {
-		fs.Usage()
-		return errUsage
-	}
-	if err := seriesFormat(*format); err != nil {
+	if err := tableOrJSON(*format); err != nil {
 		return err
 	}
 	conn, err := cf.dial()
@@ -210,7 +202,8 @@ func decisionLeads(s *aftercastv1.Series) string {
 	return scoring.FormatLeads(leads)
 }
 
-func seriesFormat(f string) error {
+// tableOrJSON checks a --format that allows table or json.
+func tableOrJSON(f string) error {
 	if f != "table" && f != "json" {
 		return errors.New("--format: want table or json")
 	}

@@ -51,7 +51,7 @@ func runDemo(args []string, stdout, stderr io.Writer) error {
 		fs.Usage()
 		return errUsage
 	}
-	if err := seriesFormat(*format); err != nil {
+	if err := tableOrJSON(*format); err != nil {
 		return err
 	}
 	if *speed < 0 {
