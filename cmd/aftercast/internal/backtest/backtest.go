@@ -122,14 +122,7 @@ func (im *Import) ReadBacktest(r io.Reader, file string) error {
 	}
 	im.files[0] = file
 	cs, co, ct, cf, ca := rd.Column("series"), rd.Column("origin_time"), rd.Column("target_time"), rd.Column("forecast"), rd.Column("actual")
-	bad := &BadRows{File: file}
-	for {
-		if err := rd.Next(); err == io.EOF {
-			break
-		} else if err != nil {
-			return err
-		}
-		bad.Rows++
+	return eachRow(rd, file, func() error {
 		var r row
 		s, err := rd.Required(cs)
 		if err == nil {
@@ -148,16 +141,12 @@ func (im *Import) ReadBacktest(r io.Reader, file string) error {
 			r.line, err = line(rd)
 		}
 		if err != nil {
-			bad.add(err)
-			continue
+			return err
 		}
 		r.series = im.seriesIndex(s)
 		im.rows = append(im.rows, r)
-	}
-	if bad.N > 0 {
-		return bad
-	}
-	return nil
+		return nil
+	})
 }
 
 // ReadTraining reads a training-actuals file, with errors as ReadBacktest.
@@ -168,14 +157,7 @@ func (im *Import) ReadTraining(r io.Reader, file string) error {
 	}
 	im.files[1] = file
 	cs, ct, cv := rd.Column("series"), rd.Column("time"), rd.Column("value")
-	bad := &BadRows{File: file}
-	for {
-		if err := rd.Next(); err == io.EOF {
-			break
-		} else if err != nil {
-			return err
-		}
-		bad.Rows++
+	return eachRow(rd, file, func() error {
 		var a actual
 		s, err := rd.Required(cs)
 		if err == nil {
@@ -188,11 +170,29 @@ func (im *Import) ReadTraining(r io.Reader, file string) error {
 			a.line, err = line(rd)
 		}
 		if err != nil {
-			bad.add(err)
-			continue
+			return err
 		}
 		a.series = im.seriesIndex(s)
 		im.training = append(im.training, a)
+		return nil
+	})
+}
+
+// eachRow calls parse on every data row of rd. A row that parse refuses
+// is gathered into a *BadRows returned at the end, so one pass reports
+// every bad row of the file rather than the first.
+func eachRow(rd *records.Reader, file string, parse func() error) error {
+	bad := &BadRows{File: file}
+	for {
+		if err := rd.Next(); err == io.EOF {
+			break
+		} else if err != nil {
+			return err
+		}
+		bad.Rows++
+		if err := parse(); err != nil {
+			bad.add(err)
+		}
 	}
 	if bad.N > 0 {
 		return bad
