@@ -60,7 +60,7 @@ func (s *baselineService) ImportBaseline(stream aftercastv1.BaselineService_Impo
 			training = append(training, store.TrainingActual{Series: t.GetSeries(), Time: t.GetTime().AsTime(), Value: t.GetValue()})
 		}
 	}
-	vs, err := s.store.ImportBaseline(ctx, model, rows, training, s.leadUsability)
+	vs, err := s.store.ImportBaseline(ctx, model, rows, training)
 	if err != nil {
 		return s.status(ctx, err)
 	}
@@ -107,11 +107,7 @@ func versionToProto(v store.BaselineVersion) *aftercastv1.BaselineVersion {
 
 // ListBaselineVersions pages with an offset token; versions are few.
 func (s *baselineService) ListBaselineVersions(ctx context.Context, req *aftercastv1.ListBaselineVersionsRequest) (*aftercastv1.ListBaselineVersionsResponse, error) {
-	size, err := pageSize(req.GetPageSize(), 100, 1000)
-	if err != nil {
-		return nil, err
-	}
-	off, err := offsetToken(req.GetPageToken())
+	pg, err := offsetPaging(req)
 	if err != nil {
 		return nil, err
 	}
@@ -120,11 +116,10 @@ func (s *baselineService) ListBaselineVersions(ctx context.Context, req *afterca
 		return nil, s.status(ctx, err)
 	}
 	resp := &aftercastv1.ListBaselineVersionsResponse{}
-	for i := off; i < len(vs) && i < off+size; i++ {
-		resp.Versions = append(resp.Versions, versionToProto(vs[i]))
-	}
-	if off+size < len(vs) {
-		resp.NextPageToken = strconv.Itoa(off + size)
+	var page []store.BaselineVersion
+	page, resp.NextPageToken = pageOf(vs, pg)
+	for _, v := range page {
+		resp.Versions = append(resp.Versions, versionToProto(v))
 	}
 	return resp, nil
 }
@@ -139,21 +134,35 @@ func pageSize(req int32, def, limit int) (int, error) {
 	return min(int(req), limit), nil
 }
 
-func offsetToken(tok string) (int, error) {
-	if tok == "" {
-		return 0, nil
+// offsetPage is a page of a listing small enough to read whole and page in
+// memory: the token is the offset of the page's first item.
+type offsetPage struct{ size, off int }
+
+// offsetPaging reads a request's page size (default 100, at most 1000) and
+// offset token.
+func offsetPaging(req interface {
+	GetPageSize() int32
+	GetPageToken() string
+}) (offsetPage, error) {
+	size, err := pageSize(req.GetPageSize(), 100, 1000)
+	if err != nil || req.GetPageToken() == "" {
+		return offsetPage{size: size}, err
 	}
-	n, err := strconv.Atoi(tok)
-	if err != nil || n < 0 {
-		return 0, invalidArg("page_token", "not a token this service issued")
+	off, err := strconv.Atoi(req.GetPageToken())
+	if err != nil || off < 0 {
+		return offsetPage{}, invalidArg("page_token", "not a token this service issued")
 	}
-	return n, nil
+	return offsetPage{size, off}, nil
 }
 
-// leadUsability judges whether a lead's backtest can judge drift
-// (method.md §4); "" when usable.
-func (a *api) leadUsability(_ *store.Series, l store.BaselineLead) string {
-	return store.LeadUsability(l)
+// pageOf returns the page of items and the token of the next page, "" on
+// the last one.
+func pageOf[T any](items []T, p offsetPage) ([]T, string) {
+	lo, hi := min(p.off, len(items)), min(p.off+p.size, len(items))
+	if hi < len(items) {
+		return items[lo:hi], strconv.Itoa(hi)
+	}
+	return items[lo:hi], ""
 }
 
 // GetBaseline returns a version with per-lead expectations, bands and

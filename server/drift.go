@@ -54,11 +54,7 @@ func statusToProto(st store.DriftStatus) *aftercastv1.DriftStatus {
 // ListDriftStates groups the stored states per (series, model): the
 // series-level state and every lead's. Pages by offset over the groups.
 func (s *driftService) ListDriftStates(ctx context.Context, req *aftercastv1.ListDriftStatesRequest) (*aftercastv1.ListDriftStatesResponse, error) {
-	size, err := pageSize(req.GetPageSize(), 100, 1000)
-	if err != nil {
-		return nil, err
-	}
-	off, err := offsetToken(req.GetPageToken())
+	pg, err := offsetPaging(req)
 	if err != nil {
 		return nil, err
 	}
@@ -89,12 +85,7 @@ func (s *driftService) ListDriftStates(ctx context.Context, req *aftercastv1.Lis
 		}
 	}
 	resp := &aftercastv1.ListDriftStatesResponse{}
-	for i := off; i < len(groups) && i < off+size; i++ {
-		resp.States = append(resp.States, groups[i])
-	}
-	if off+size < len(groups) {
-		resp.NextPageToken = strconv.Itoa(off + size)
-	}
+	resp.States, resp.NextPageToken = pageOf(groups, pg)
 	return resp, nil
 }
 

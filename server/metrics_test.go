@@ -135,7 +135,7 @@ func populate(t *testing.T, ctx context.Context, srv *server.Server) pushTotals 
 			}
 		}
 	}
-	if _, err := srv.Store().ImportBaseline(ctx, mModel, rows, nil, nil); err != nil {
+	if _, err := srv.Store().ImportBaseline(ctx, mModel, rows, nil); err != nil {
 		t.Fatal(err)
 	}
 	vector := func(key string, o time.Time, noise func() float64) *aftercastv1.Forecast {

@@ -60,7 +60,7 @@ func TestWatchDriftEventsResumes(t *testing.T) {
 			rows = append(rows, store.BacktestRow{Series: "w", Origin: o, Target: o.Add(time.Duration(h) * time.Hour), Actual: 100, Forecast: 100 - r.NormFloat64()})
 		}
 	}
-	if _, err := st.ImportBaseline(ctx, "m", rows, nil, nil); err != nil {
+	if _, err := st.ImportBaseline(ctx, "m", rows, nil); err != nil {
 		t.Fatal(err)
 	}
 	pushDays(t, ctx, st, "w", 0, 20, leads, 1, r) // events so far: leaving insufficient_data
@@ -140,7 +140,7 @@ func TestFailedActualsStreamStillJudgesWhatItCommitted(t *testing.T) {
 			rows = append(rows, store.BacktestRow{Series: "f", Origin: o, Target: o.Add(time.Duration(h) * time.Hour), Actual: 100, Forecast: 100 - r.NormFloat64()})
 		}
 	}
-	if _, err := st.ImportBaseline(ctx, "m", rows, nil, nil); err != nil {
+	if _, err := st.ImportBaseline(ctx, "m", rows, nil); err != nil {
 		t.Fatal(err)
 	}
 	var as []*aftercastv1.Actual

@@ -226,7 +226,7 @@ func load(ctx context.Context, t *testing.T, st *store.Store, conn *grpc.ClientC
 				rows = append(rows, store.BacktestRow{Series: key, Origin: o, Target: tg, Actual: level(tg), Forecast: level(tg) - e})
 			}
 		}
-		if _, err := st.ImportBaseline(ctx, model, rows, nil, nil); err != nil {
+		if _, err := st.ImportBaseline(ctx, model, rows, nil); err != nil {
 			t.Fatalf("importing the backtest of %s: %v", key, err)
 		}
 		var fs []*aftercastv1.Forecast

@@ -85,10 +85,8 @@ const maxViolations = 100
 // one new version each, in one transaction. Any invalid row fails the whole
 // import with an *InvalidError whose fields name the rows ("rows[12].target_time").
 // A series whose upload equals its active version gets no new version.
-// leadWarn, when not nil, judges each lead's usability and returns a
-// reason when it is not usable.
-func (s *Store) ImportBaseline(ctx context.Context, model string, rows []BacktestRow, training []TrainingActual,
-	leadWarn func(se *Series, l BaselineLead) string) ([]BaselineVersion, error) {
+// Every lead the drift detector could not use is reported as a warning.
+func (s *Store) ImportBaseline(ctx context.Context, model string, rows []BacktestRow, training []TrainingActual) ([]BaselineVersion, error) {
 	if !modelPattern.MatchString(model) {
 		return nil, invalid("model", "want 1–200 characters of A-Z a-z 0-9 _ . : / -")
 	}
@@ -201,7 +199,7 @@ func (s *Store) ImportBaseline(ctx context.Context, model string, rows []Backtes
 				leads = append(leads, *l)
 			}
 			slices.SortFunc(leads, func(a, b BaselineLead) int { return a.Lead - b.Lead })
-			v, err := s.storeBaseline(ctx, tx, u.se, model, leads, u.training, leadWarn)
+			v, err := s.storeBaseline(ctx, tx, u.se, model, leads, u.training)
 			if err != nil {
 				return err
 			}
@@ -258,7 +256,7 @@ func contentHash(leads []BaselineLead, training []TrainingActual) []byte {
 }
 
 func (s *Store) storeBaseline(ctx context.Context, tx pgx.Tx, se *Series, model string, leads []BaselineLead,
-	training []TrainingActual, leadWarn func(*Series, BaselineLead) string) (BaselineVersion, error) {
+	training []TrainingActual) (BaselineVersion, error) {
 	hash := contentHash(leads, training)
 	var active int
 	var activeHash []byte
@@ -305,11 +303,9 @@ func (s *Store) storeBaseline(ctx context.Context, tx pgx.Tx, se *Series, model 
 		return v, err
 	}
 	v.Warnings = append(v.Warnings, shape...)
-	if leadWarn != nil {
-		for _, l := range leads {
-			if reason := leadWarn(se, l); reason != "" {
-				v.Warnings = append(v.Warnings, BaselineWarning{Kind: WarnLeadNotUsable, Lead: l.Lead, Message: reason})
-			}
+	for _, l := range leads {
+		if reason := LeadUsability(l); reason != "" {
+			v.Warnings = append(v.Warnings, BaselineWarning{Kind: WarnLeadNotUsable, Lead: l.Lead, Message: reason})
 		}
 	}
 	warnings, err := json.Marshal(v.Warnings)

@@ -31,7 +31,7 @@ func TestImportBaseline(t *testing.T) {
 	rows := append(backtest("a", 20, 4, 24*time.Hour), backtest("b", 10, 3, time.Hour)...)
 	training := []store.TrainingActual{{Series: "a", Time: t0.Add(-2 * time.Hour), Value: 4}, {Series: "a", Time: t0.Add(-time.Hour), Value: 6},
 		{Series: "a", Time: t0, Value: 5}, {Series: "a", Time: t0.Add(time.Hour), Value: 7}}
-	vs, err := s.ImportBaseline(ctx, "m", rows, training, nil)
+	vs, err := s.ImportBaseline(ctx, "m", rows, training)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -50,13 +50,13 @@ func TestImportBaseline(t *testing.T) {
 		t.Errorf("b warnings %+v, want horizon and no-training", vs[1].Warnings)
 	}
 	// The same upload again makes no new version.
-	again, err := s.ImportBaseline(ctx, "m", rows, training, nil)
+	again, err := s.ImportBaseline(ctx, "m", rows, training)
 	if err != nil || again[0].Created || again[0].Version != 1 {
 		t.Fatalf("re-import: %+v %v", again, err)
 	}
 	// A changed upload for a makes version 2, active; version 1 stays readable.
 	rows[0].Forecast++
-	v2, err := s.ImportBaseline(ctx, "m", rows[:80], nil, nil)
+	v2, err := s.ImportBaseline(ctx, "m", rows[:80], nil)
 	if err != nil || v2[0].Version != 2 || !v2[0].Created {
 		t.Fatalf("second version: %+v %v", v2, err)
 	}
@@ -80,7 +80,7 @@ func TestImportBaseline(t *testing.T) {
 	bad[1].Target = bad[1].Target.Add(time.Minute)
 	bad[2].Actual = math.Inf(1)
 	bad = append(bad, bad[0], store.BacktestRow{Series: "zz", Origin: t0, Target: t0.Add(time.Hour)})
-	_, err = s.ImportBaseline(ctx, "m", bad, nil, nil)
+	_, err = s.ImportBaseline(ctx, "m", bad, nil)
 	var inv *store.InvalidError
 	if !errors.As(err, &inv) {
 		t.Fatalf("bad import: %v", err)
@@ -106,7 +106,7 @@ func TestShapeWarningsFollowProduction(t *testing.T) {
 	s := storetest.Store(t)
 	ctx := ctxT(t)
 	mustSeries(t, s, "c", "1h", 2)
-	if _, err := s.ImportBaseline(ctx, "m", backtest("c", 10, 2, 24*time.Hour), nil, nil); err != nil {
+	if _, err := s.ImportBaseline(ctx, "m", backtest("c", 10, 2, 24*time.Hour), nil); err != nil {
 		t.Fatal(err)
 	}
 	kinds := func() map[string]bool {

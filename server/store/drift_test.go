@@ -49,7 +49,7 @@ func (sc scenario) run(t *testing.T, ctx context.Context, newStore func() *store
 			rows = append(rows, store.BacktestRow{Series: key, Origin: o, Target: tg, Actual: y, Forecast: y - r.NormFloat64()})
 		}
 	}
-	if _, err := s.ImportBaseline(ctx, "m", rows, nil, nil); err != nil {
+	if _, err := s.ImportBaseline(ctx, "m", rows, nil); err != nil {
 		t.Fatal(err)
 	}
 	const chunks = 4

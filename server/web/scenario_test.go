@@ -109,7 +109,7 @@ func newFixture(t *testing.T) *fixture {
 					rows = append(rows, store.BacktestRow{Series: p.key, Origin: o, Target: tg, Actual: y, Forecast: y - spread(h)*r.NormFloat64()})
 				}
 			}
-			if _, err := st.ImportBaseline(ctx, p.model, rows, nil, nil); err != nil {
+			if _, err := st.ImportBaseline(ctx, p.model, rows, nil); err != nil {
 				t.Fatal(err)
 			}
 		}
