@@ -286,11 +286,7 @@ func leadChart(id string, pts []leadPoint, horizon int, decision []int, allDecis
 	x := linear{0.5, float64(horizon) + 0.5, f.left, f.left + f.plotW()}
 	hi := 0.0
 	for _, p := range pts {
-		for _, v := range []float64{p.MAE, p.Upper, p.Alarm, p.Expected} {
-			if defined(v) {
-				hi = math.Max(hi, v)
-			}
-		}
+		hi = maxDefined(hi, p.MAE, p.Upper, p.Alarm, p.Expected)
 	}
 	y := c.yAxis(f, hi*1.05, yTitle("MAE", unit))
 	if !allDecision {
@@ -420,6 +416,17 @@ type eventMark struct {
 	Title  string
 }
 
+// maxDefined is the largest of hi and the defined values in vs: the top of
+// a chart's value axis.
+func maxDefined(hi float64, vs ...float64) float64 {
+	for _, v := range vs {
+		if defined(v) {
+			hi = math.Max(hi, v)
+		}
+	}
+	return hi
+}
+
 // originChart draws one lead's windowed MAE over origins against the band
 // for each window's own size.
 func originChart(id string, lead int, pts []windowPoint, marks []eventMark, unit string, loc *time.Location) *chart {
@@ -439,11 +446,7 @@ func originChart(id string, lead int, pts []windowPoint, marks []eventMark, unit
 	xt := func(t time.Time) float64 { return x.at(float64(t.UnixNano())) }
 	hi := 0.0
 	for _, p := range pts {
-		for _, v := range []float64{p.MAE, p.Upper, p.Alarm, p.Expected} {
-			if defined(v) {
-				hi = math.Max(hi, v)
-			}
-		}
+		hi = maxDefined(hi, p.MAE, p.Upper, p.Alarm, p.Expected)
 	}
 	y := c.yAxis(f, hi*1.05, yTitle("MAE", unit))
 	n := len(pts)
