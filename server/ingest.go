@@ -96,6 +96,17 @@ func (a *api) writeActuals(ctx context.Context, as []store.Actual, first int) (s
 	return ack, err
 }
 
+// addCapped adds a batch's acknowledgement to a stream's total, keeping no
+// more rejections than a summary lists (and one more, which marks it
+// truncated): a long stream of bad rows must not grow the server's memory.
+// The counts stay exact.
+func addCapped(total *store.Ack, ack store.Ack) {
+	total.Add(ack)
+	if len(total.Rejections) > maxRejectionsListed+1 {
+		total.Rejections = total.Rejections[:maxRejectionsListed+1]
+	}
+}
+
 func forecastSummary(ack store.Ack) *aftercastv1.ForecastPushSummary {
 	s := &aftercastv1.ForecastPushSummary{Accepted: ack.Accepted, Duplicate: ack.Duplicate, Late: ack.Late, Rejected: ack.Rejected}
 	for i, r := range ack.Rejections {
@@ -135,7 +146,7 @@ func (s *forecastService) StreamForecasts(stream aftercastv1.ForecastService_Str
 		if err != nil {
 			return s.status(ctx, err)
 		}
-		total.Add(ack)
+		addCapped(&total, ack)
 		n += len(req.GetForecasts())
 	}
 }
@@ -223,7 +234,7 @@ func (s *actualService) StreamActuals(stream aftercastv1.ActualService_StreamAct
 			s.evaluateDrift(context.WithoutCancel(ctx), actualSeries(nil, pending))
 			return s.status(ctx, err)
 		}
-		total.Add(ack)
+		addCapped(&total, ack)
 		n += len(as)
 		actualSeries(as, pending)
 		if time.Since(last) > evaluateEvery {

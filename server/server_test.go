@@ -303,3 +303,37 @@ func TestTwoServersOneDatabase(t *testing.T) {
 		}
 	}
 }
+
+// A stream's summary lists the first 1000 rejections in push order and says
+// it is truncated; the counts cover every rejected item.
+func TestStreamListsFirstRejections(t *testing.T) {
+	t.Parallel()
+	_, c := start(t, storetest.URL(t))
+	ctx := ctxT(t)
+	stream, err := c.actual.StreamActuals(ctx)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for m := range 3 {
+		msg := make([]*aftercastv1.Actual, 700)
+		for i := range msg {
+			msg[i] = &aftercastv1.Actual{Series: "nowhere", Time: ts(time.Duration(m*700+i) * time.Hour), Value: 1}
+		}
+		if err := stream.Send(&aftercastv1.StreamActualsRequest{Actuals: msg}); err != nil {
+			t.Fatal(err)
+		}
+	}
+	resp, err := stream.CloseAndRecv()
+	if err != nil {
+		t.Fatal(err)
+	}
+	sum := resp.GetSummary()
+	if sum.GetRejected() != 2100 || len(sum.GetRejections()) != 1000 || !sum.GetRejectionsTruncated() {
+		t.Fatalf("rejected %d, listed %d, truncated %v; want 2100, 1000, true", sum.GetRejected(), len(sum.GetRejections()), sum.GetRejectionsTruncated())
+	}
+	for i, r := range sum.GetRejections() {
+		if r.GetIndex() != int64(i) {
+			t.Fatalf("rejection %d has index %d, want push order", i, r.GetIndex())
+		}
+	}
+}
