@@ -6,29 +6,31 @@ import (
 	"math"
 )
 
-// BandMetric names a metric that has a backtest band (method.md §4).
-type BandMetric string
+// Metric names a metric that has a backtest band and can cause a drift
+// state (method.md §4–5). Its values are the one spelling every layer
+// uses: API, events, /metrics labels and the status page.
+type Metric string
 
 // The metrics with a band. RMSE's band is built on the MSE and
-// square-rooted.
+// square-rooted; ME is the mean error (bias).
 const (
-	BandMAE  BandMetric = "mae"
-	BandRMSE BandMetric = "rmse"
-	BandME   BandMetric = "me"
+	MetricMAE  Metric = "mae"
+	MetricRMSE Metric = "rmse"
+	MetricME   Metric = "me"
 )
 
 // Quantities maps errors e_t (in origin order) to the per-origin quantity q_t
 // whose mean the metric is: |e_t| for MAE, e_t² for RMSE (the band is built
 // on the MSE), e_t for ME. It panics on an unknown metric.
-func Quantities(m BandMetric, e []float64) []float64 {
+func Quantities(m Metric, e []float64) []float64 {
 	q := make([]float64, len(e))
 	for i, x := range e {
 		switch m {
-		case BandMAE:
+		case MetricMAE:
 			q[i] = math.Abs(x)
-		case BandRMSE:
+		case MetricRMSE:
 			q[i] = x * x
-		case BandME:
+		case MetricME:
 			q[i] = x
 		default:
 			panic(fmt.Sprintf("scoring: unknown band metric %q", m))
@@ -220,7 +222,7 @@ var ErrBandLevel = errors.New("band level must lie strictly between 0 and 1")
 // 0/0, τ is its limit φ(0)/f_ν(0). Bound returns NaN (and an error saying
 // why) when the summary is unusable, n < 1, p is outside (0, 1), or, for
 // MAE and RMSE, the mean is not positive.
-func (s *Summary) Bound(m BandMetric, n int, p float64) (float64, error) {
+func (s *Summary) Bound(m Metric, n int, p float64) (float64, error) {
 	if err := s.check(m, n); err != nil {
 		return math.NaN(), err
 	}
@@ -231,15 +233,15 @@ func (s *Summary) Bound(m BandMetric, n int, p float64) (float64, error) {
 }
 
 // check says why no bound of metric m can be computed for windows of n.
-func (s *Summary) check(m BandMetric, n int) error {
+func (s *Summary) check(m Metric, n int) error {
 	switch {
 	case s.Unusable != "":
 		return errors.New(s.Unusable)
-	case m != BandME && m != BandMAE && m != BandRMSE:
+	case m != MetricME && m != MetricMAE && m != MetricRMSE:
 		return fmt.Errorf("unknown band metric %q", m)
 	case n < 1:
 		return fmt.Errorf("live window of %d origins: need at least 1", n)
-	case m != BandME && !(s.Mean > 0):
+	case m != MetricME && !(s.Mean > 0):
 		return fmt.Errorf("backtest mean of the %s quantity is %v: a Gamma band needs a positive mean", m, s.Mean)
 	}
 	return nil
@@ -248,10 +250,10 @@ func (s *Summary) check(m BandMetric, n int) error {
 // bound is Bound after the checks, given tq = t_ν⁻¹(max(p, 1−p)); the t
 // quantile is by far the costliest step, so [Summary.Bands] computes it once
 // per level.
-func (s *Summary) bound(m BandMetric, n int, p, tq float64) float64 {
+func (s *Summary) bound(m Metric, n int, p, tq float64) float64 {
 	V := s.Variance(n)
 	pp := math.Max(p, 1-p)
-	if m == BandME {
+	if m == MetricME {
 		return s.Mean + sign(p-0.5)*tq*math.Sqrt(V)
 	}
 	var tau float64
@@ -262,7 +264,7 @@ func (s *Summary) bound(m BandMetric, n int, p, tq float64) float64 {
 	}
 	vp := V * tau * tau
 	b := gammaQuantile(s.Mean*s.Mean/vp, s.Mean/vp, p)
-	if m == BandRMSE {
+	if m == MetricRMSE {
 		b = math.Sqrt(b)
 	}
 	return b
@@ -278,34 +280,35 @@ func sign(x float64) float64 {
 	return 0
 }
 
-// The levels of method.md §4: the displayed central 95% band, and the 99%
-// alarm limit (one-sided upper for MAE and RMSE, two-sided for ME).
+// The levels of method.md §4: the displayed central 95% band, and the
+// alarm limits, which share one false-alarm budget: MAE (and RMSE)
+// one-sided upper at p = 0.995, ME two-sided at p = 0.001 and 0.999.
 const (
-	bandLow   = 0.025
-	bandHigh  = 0.975
-	alarmOne  = 0.99
-	alarmLow  = 0.005
-	alarmHigh = 0.995
+	bandLow     = 0.025
+	bandHigh    = 0.975
+	alarmUpper  = 0.995
+	alarmMELow  = 0.001
+	alarmMEHigh = 0.999
 )
 
 // Band is the backtest band of one metric for a live window of N origins
 // (method.md §4).
 //
-// For MAE and RMSE the alarm is one-sided: AlarmUpper is the p = 0.99
+// For MAE and RMSE the alarm is one-sided: AlarmUpper is the p = 0.995
 // bound and AlarmLower is −Inf (no lower alarm). For ME, AlarmLower and
-// AlarmUpper are the p = 0.005 and p = 0.995 bounds.
+// AlarmUpper are the p = 0.001 and p = 0.999 bounds.
 //
 // When no band can be built, Unusable says why and Expected, the bounds and
 // possibly KEff are NaN; compare nothing against such a band.
 type Band struct {
-	Metric   BandMetric
+	Metric   Metric
 	N        int     // live window size the band is for
 	Expected float64 // c (MAE, ME) or √c (RMSE): the backtest value of the metric
 	Lower    float64 // central 95% band, p = 0.025
 	Upper    float64 // central 95% band, p = 0.975
 
-	AlarmLower float64 // ME: p = 0.005; MAE and RMSE: −Inf
-	AlarmUpper float64 // MAE and RMSE: p = 0.99; ME: p = 0.995
+	AlarmLower float64 // ME: p = 0.001; MAE and RMSE: −Inf
+	AlarmUpper float64 // MAE and RMSE: p = 0.995; ME: p = 0.999
 
 	K    int
 	KEff float64 // of this metric's quantity
@@ -318,23 +321,23 @@ func (b Band) Usable() bool { return b.Unusable == "" }
 
 // Band returns the band of metric m for a live window of n origins. The
 // summary must be of m's quantity (see [Quantities]).
-func (s *Summary) Band(m BandMetric, n int) Band { return s.Bands(m, n)[0] }
+func (s *Summary) Band(m Metric, n int) Band { return s.Bands(m, n)[0] }
 
 // Bands returns the bands of metric m for each window size in ns, e.g. every
 // size a filling window passes through. It is cheaper than calling
 // [Summary.Band] for each, since the t quantiles depend on the level only.
-func (s *Summary) Bands(m BandMetric, ns ...int) []Band {
+func (s *Summary) Bands(m Metric, ns ...int) []Band {
 	nan := math.NaN()
-	alarm := alarmOne
-	if m == BandME {
-		alarm = alarmHigh
+	alarm := alarmUpper
+	if m == MetricME {
+		alarm = alarmMEHigh
 	}
 	var t95, tAlarm float64
 	out := make([]Band, len(ns))
 	for i, n := range ns {
 		b := Band{Metric: m, N: n, Expected: s.Mean, Lower: nan, Upper: nan, AlarmLower: nan, AlarmUpper: nan,
 			K: s.K, KEff: s.KEff}
-		if m == BandRMSE {
+		if m == MetricRMSE {
 			b.Expected = math.Sqrt(s.Mean)
 		}
 		if err := s.check(m, n); err != nil {
@@ -346,10 +349,10 @@ func (s *Summary) Bands(m BandMetric, ns ...int) []Band {
 			t95, tAlarm = studentTQuantile(s.Nu, bandHigh), studentTQuantile(s.Nu, alarm)
 		}
 		b.Lower, b.Upper = s.bound(m, n, bandLow, t95), s.bound(m, n, bandHigh, t95)
-		if m == BandME {
-			b.AlarmLower, b.AlarmUpper = s.bound(m, n, alarmLow, tAlarm), s.bound(m, n, alarmHigh, tAlarm)
+		if m == MetricME {
+			b.AlarmLower, b.AlarmUpper = s.bound(m, n, alarmMELow, tAlarm), s.bound(m, n, alarmMEHigh, tAlarm)
 		} else {
-			b.AlarmLower, b.AlarmUpper = math.Inf(-1), s.bound(m, n, alarmOne, tAlarm)
+			b.AlarmLower, b.AlarmUpper = math.Inf(-1), s.bound(m, n, alarmUpper, tAlarm)
 		}
 		out[i] = b
 	}
@@ -385,43 +388,4 @@ func Usability(abs Summary) Verdict {
 		v.Usable = true
 	}
 	return v
-}
-
-// Pooled is the per-origin quantity the series state pages on (method.md
-// §5): at each origin where every decision lead has its pair, the mean over
-// the decision leads of |e| (Abs) and of e (Bias).
-type Pooled struct {
-	Origins []int     // indices into the input of the origins kept, ascending
-	Abs     []float64 // mean of |e_{t,h}| over the decision leads
-	Bias    []float64 // mean of e_{t,h} over the decision leads
-}
-
-// PoolDecisionLeads pools per-origin per-lead errors over the decision
-// leads. errs holds one map lead → error per origin, in origin order; an
-// origin missing a decision lead (absent or NaN) is left out. Build the
-// pooled baseline with Summarize(p.Abs, h) and Summarize(p.Bias, h) where h
-// is the largest decision lead, and judge windows of the pooled values the
-// same way.
-func PoolDecisionLeads(errs []map[int]float64, leads []int) (Pooled, error) {
-	if len(leads) == 0 {
-		return Pooled{}, errors.New("pooling over no decision leads")
-	}
-	var p Pooled
-	nf := float64(len(leads))
-origins:
-	for i, m := range errs {
-		var a, b sum
-		for _, h := range leads {
-			e, ok := m[h]
-			if !ok || math.IsNaN(e) {
-				continue origins
-			}
-			a.add(math.Abs(e))
-			b.add(e)
-		}
-		p.Origins = append(p.Origins, i)
-		p.Abs = append(p.Abs, a.value()/nf)
-		p.Bias = append(p.Bias, b.value()/nf)
-	}
-	return p, nil
 }

@@ -15,22 +15,22 @@ func ExampleSummary_Band() {
 	for t := range e {
 		e[t] = math.Sin(1.7*float64(t)) + 0.5*math.Cos(0.3*float64(t))
 	}
-	abs := scoring.Summarize(scoring.Quantities(scoring.BandMAE, e), 1)
+	abs := scoring.Summarize(scoring.Quantities(scoring.MetricMAE, e), 1)
 	fmt.Println(scoring.Usability(abs).Usable, abs.K)
-	for _, b := range abs.Bands(scoring.BandMAE, 30, 10) {
+	for _, b := range abs.Bands(scoring.MetricMAE, 30, 10) {
 		fmt.Printf("n=%d: MAE %.3f, 95%% band [%.3f, %.3f], alarm above %.3f\n", b.N, b.Expected, b.Lower, b.Upper, b.AlarmUpper)
 	}
 	// Output:
 	// true 365
-	// n=30: MAE 0.675, 95% band [0.609, 0.745], alarm above 0.759
-	// n=10: MAE 0.675, 95% band [0.565, 0.795], alarm above 0.820
+	// n=30: MAE 0.675, 95% band [0.609, 0.745], alarm above 0.768
+	// n=10: MAE 0.675, 95% band [0.565, 0.795], alarm above 0.836
 }
 
 // Feed a detector one evaluation per newly scored origin; it reports each
 // change of state with what caused it.
 func ExampleDetector() {
-	mae := scoring.Band{Metric: scoring.BandMAE, Lower: 0.6, Upper: 1.0, AlarmLower: math.Inf(-1), AlarmUpper: 1.2, KEff: 300}
-	me := scoring.Band{Metric: scoring.BandME, Lower: -0.3, Upper: 0.3, AlarmLower: -0.5, AlarmUpper: 0.5, KEff: 340}
+	mae := scoring.Band{Metric: scoring.MetricMAE, Lower: 0.6, Upper: 1.0, AlarmLower: math.Inf(-1), AlarmUpper: 1.2, KEff: 300}
+	me := scoring.Band{Metric: scoring.MetricME, Lower: -0.3, Upper: 0.3, AlarmLower: -0.5, AlarmUpper: 0.5, KEff: 340}
 	var d scoring.Detector
 	for _, w := range []struct {
 		n       int

@@ -61,7 +61,7 @@ func TestSummarizeByHand(t *testing.T) {
 	v := s.Variance(4)
 	tq := studentTQuantile(s.Nu, 0.975)
 	for p, want := range map[float64]float64{0.975: 5 + tq*math.Sqrt(v), 0.025: 5 - tq*math.Sqrt(v), 0.5: 5} {
-		if got, err := s.Bound(BandME, 4, p); err != nil || !relClose(got, want, 1e-14) {
+		if got, err := s.Bound(MetricME, 4, p); err != nil || !relClose(got, want, 1e-14) {
 			t.Errorf("ME bound p=%v = %v, %v; want %v", p, got, err, want)
 		}
 	}
@@ -82,7 +82,7 @@ func TestBandAgainstR(t *testing.T) {
 	sums := map[string]Summary{}
 	checked := 0
 	for _, rec := range readCSV(t, "../testdata/quantiles/band_reference.csv", "case,metric,n,field,value") {
-		name, m, field, want := rec[0], BandMetric(rec[1]), rec[3], parseF(t, rec[4])
+		name, m, field, want := rec[0], Metric(rec[1]), rec[3], parseF(t, rec[4])
 		n, _ := strconv.Atoi(rec[2])
 		id := name + "/" + string(m)
 		s, ok := sums[id]
@@ -205,7 +205,7 @@ func ar1(seed uint64, n int, phi float64) []float64 {
 // of five insignificant lags starts at once, so M is small and f ≈ 1.
 func TestSummarizeIndependent(t *testing.T) {
 	t.Parallel()
-	for _, m := range []BandMetric{BandMAE, BandRMSE, BandME} {
+	for _, m := range []Metric{MetricMAE, MetricRMSE, MetricME} {
 		s := Summarize(Quantities(m, normals(7, 2000)), 1)
 		if s.Unusable != "" {
 			t.Fatal(s.Unusable)
@@ -224,14 +224,14 @@ func TestSummarizeIndependent(t *testing.T) {
 func TestSummarizeAR1(t *testing.T) {
 	t.Parallel()
 	e := ar1(11, 4000, 0.8)
-	me := Summarize(Quantities(BandME, e), 1)
+	me := Summarize(Quantities(MetricME, e), 1)
 	if me.MHat < 5 || me.FK < 6 || me.FK > 12 || me.KEff > 4000/6.0 {
 		t.Errorf("ME: m̂ = %d, f_K = %v, K_eff = %v; want f_K ≈ 9", me.MHat, me.FK, me.KEff)
 	}
 	if f30 := me.FactorN(30); f30 <= 1 || f30 >= me.FK {
 		t.Errorf("ME: f_30 = %v, want between 1 and f_K = %v (the window's triangular weights)", f30, me.FK)
 	}
-	mae := Summarize(Quantities(BandMAE, e), 1)
+	mae := Summarize(Quantities(MetricMAE, e), 1)
 	if mae.FK <= 1.5 || mae.KEff >= float64(mae.K)/1.5 {
 		t.Errorf("MAE: f_K = %v, K_eff = %v; want f_K > 1.5, K_eff < K/1.5", mae.FK, mae.KEff)
 	}
@@ -307,13 +307,13 @@ func TestSummaryUnusable(t *testing.T) {
 		if !strings.Contains(s.Unusable, c.want) || s.K != len(c.q) {
 			t.Errorf("%s: Unusable = %q, K = %d; want %q, K = %d", c.name, s.Unusable, s.K, c.want, len(c.q))
 		}
-		for _, m := range []BandMetric{BandMAE, BandRMSE, BandME} {
+		for _, m := range []Metric{MetricMAE, MetricRMSE, MetricME} {
 			b := s.Band(m, 30)
 			if b.Usable() || b.Unusable != s.Unusable || !math.IsNaN(b.Upper) || !math.IsNaN(b.AlarmUpper) || b.K != len(c.q) {
 				t.Errorf("%s %s: band %+v, want unusable with NaN bounds", c.name, m, b)
 			}
 		}
-		if _, err := s.Bound(BandMAE, 30, 0.5); err == nil {
+		if _, err := s.Bound(MetricMAE, 30, 0.5); err == nil {
 			t.Errorf("%s: Bound without error", c.name)
 		}
 		if !math.IsNaN(s.Variance(30)) || !math.IsNaN(s.FactorN(30)) {
@@ -330,19 +330,19 @@ func TestSummaryUnusable(t *testing.T) {
 	}
 	// A zero mean is fine for ME but gives no Gamma band.
 	s := Summarize([]float64{-1, 1, -1, 1, 1, -1}, 1)
-	if b := s.Band(BandME, 3); !b.Usable() || b.Expected != 0 || !(b.Lower < 0 && b.Upper > 0) {
+	if b := s.Band(MetricME, 3); !b.Usable() || b.Expected != 0 || !(b.Lower < 0 && b.Upper > 0) {
 		t.Errorf("ME with c = 0: %+v", b)
 	}
-	if b := s.Band(BandMAE, 3); b.Usable() || !strings.Contains(b.Unusable, "positive mean") {
+	if b := s.Band(MetricMAE, 3); b.Usable() || !strings.Contains(b.Unusable, "positive mean") {
 		t.Errorf("MAE with c = 0: %+v", b)
 	}
 	for _, n := range []int{0, -1} {
-		if b := s.Band(BandME, n); b.Usable() {
+		if b := s.Band(MetricME, n); b.Usable() {
 			t.Errorf("n = %d: usable band", n)
 		}
 	}
 	for _, p := range []float64{0, 1, -0.1, math.NaN()} {
-		if _, err := s.Bound(BandME, 3, p); !errors.Is(err, ErrBandLevel) {
+		if _, err := s.Bound(MetricME, 3, p); !errors.Is(err, ErrBandLevel) {
 			t.Errorf("p = %v: err = %v, want ErrBandLevel", p, err)
 		}
 	}
@@ -351,7 +351,7 @@ func TestSummaryUnusable(t *testing.T) {
 func TestBandShape(t *testing.T) {
 	t.Parallel()
 	e := ar1(3, 365, 0.3)
-	for _, m := range []BandMetric{BandMAE, BandRMSE, BandME} {
+	for _, m := range []Metric{MetricMAE, MetricRMSE, MetricME} {
 		s := Summarize(Quantities(m, e), 1)
 		prev := math.Inf(1)
 		for _, n := range []int{7, 14, 30, 90} {
@@ -368,25 +368,31 @@ func TestBandShape(t *testing.T) {
 				prev = w
 			}
 			switch m {
-			case BandME:
+			case MetricME:
+				lo, _ := s.Bound(m, n, 0.001)
+				hi, _ := s.Bound(m, n, 0.999)
+				if b.AlarmLower != lo || b.AlarmUpper != hi {
+					t.Errorf("ME n=%d: alarm band (%v, %v), want the p = 0.001, 0.999 bounds (%v, %v)", n, b.AlarmLower, b.AlarmUpper, lo, hi)
+				}
 				if !(b.AlarmLower < b.Lower) || !relClose(b.Upper-b.Expected, b.Expected-b.Lower, 1e-12) ||
 					!relClose(b.AlarmUpper-b.Expected, b.Expected-b.AlarmLower, 1e-12) {
 					t.Errorf("ME n=%d: not symmetric about c: %+v", n, b)
 				}
-			case BandRMSE:
-				mse, _ := s.Bound(BandMAE, n, 0.99) // the same Gamma bound, not square-rooted
+			case MetricRMSE:
+				mse, _ := s.Bound(MetricMAE, n, 0.995) // the same Gamma bound, not square-rooted
 				if !math.IsInf(b.AlarmLower, -1) || !relClose(b.AlarmUpper, math.Sqrt(mse), 1e-15) || !relClose(b.Expected, math.Sqrt(s.Mean), 1e-15) {
 					t.Errorf("RMSE n=%d: %+v, want √ of the MSE bounds", n, b)
 				}
-			case BandMAE:
-				if !math.IsInf(b.AlarmLower, -1) {
-					t.Errorf("MAE n=%d: AlarmLower = %v, want −Inf", n, b.AlarmLower)
+			case MetricMAE:
+				hi, _ := s.Bound(m, n, 0.995)
+				if !math.IsInf(b.AlarmLower, -1) || b.AlarmUpper != hi {
+					t.Errorf("MAE n=%d: alarm (%v, %v), want (−Inf, the p = 0.995 bound %v)", n, b.AlarmLower, b.AlarmUpper, hi)
 				}
 			}
 		}
 	}
 	// Bands gives the very bands Band and Bound give one by one.
-	for _, m := range []BandMetric{BandMAE, BandRMSE, BandME} {
+	for _, m := range []Metric{MetricMAE, MetricRMSE, MetricME} {
 		s := Summarize(Quantities(m, e), 1)
 		ns := []int{7, 8, 13, 14, 30}
 		for i, b := range s.Bands(m, ns...) {
@@ -399,9 +405,9 @@ func TestBandShape(t *testing.T) {
 		}
 	}
 	// At p = ½ the Gamma bound uses the limit of τ_p, so it is continuous.
-	s := Summarize(Quantities(BandMAE, e), 1)
-	mid, err := s.Bound(BandMAE, 30, 0.5)
-	near, _ := s.Bound(BandMAE, 30, 0.5+1e-9)
+	s := Summarize(Quantities(MetricMAE, e), 1)
+	mid, err := s.Bound(MetricMAE, 30, 0.5)
+	near, _ := s.Bound(MetricMAE, 30, 0.5+1e-9)
 	if err != nil || !relClose(mid, near, 1e-8) {
 		t.Errorf("MAE bound at p = ½: %v (%v), at ½+1e-9: %v", mid, err, near)
 	}
@@ -421,7 +427,7 @@ func TestUsability(t *testing.T) {
 		{"AR(1) φ=0.97 K=200", ar1(4, 200, 0.97), false, "K=200 (need ≥ 180), K_eff="},
 	}
 	for _, c := range cases {
-		s := Summarize(Quantities(BandMAE, c.e), 1)
+		s := Summarize(Quantities(MetricMAE, c.e), 1)
 		v := Usability(s)
 		if v.Usable != c.usable || !strings.Contains(v.Reason, c.reason) || v.K != len(c.e) || v.KEff != s.KEff {
 			t.Errorf("%s: %+v (K_eff %v)", c.name, v, s.KEff)
@@ -429,30 +435,6 @@ func TestUsability(t *testing.T) {
 		if !c.usable && !strings.Contains(v.Reason, "K_eff=") {
 			t.Errorf("%s: reason %q does not name K_eff", c.name, v.Reason)
 		}
-	}
-}
-
-func TestPoolDecisionLeads(t *testing.T) {
-	t.Parallel()
-	errs := []map[int]float64{
-		{1: 1, 4: -3, 7: 9},    // kept: |e| mean 2, e mean −1
-		{1: 2},                 // lead 4 missing
-		{1: -2, 4: math.NaN()}, // NaN counts as missing
-		{4: 0.5, 1: -0.5},      // kept: 0.5, 0
-	}
-	p, err := PoolDecisionLeads(errs, []int{1, 4})
-	if err != nil {
-		t.Fatal(err)
-	}
-	want := Pooled{Origins: []int{0, 3}, Abs: []float64{2, 0.5}, Bias: []float64{-1, 0}}
-	if !equalInts(p.Origins, want.Origins) || !equalFloats(p.Abs, want.Abs) || !equalFloats(p.Bias, want.Bias) {
-		t.Errorf("got %+v, want %+v", p, want)
-	}
-	if _, err := PoolDecisionLeads(errs, nil); err == nil {
-		t.Error("no decision leads: want error")
-	}
-	if p, _ := PoolDecisionLeads(nil, []int{1}); len(p.Abs) != 0 {
-		t.Errorf("no origins: %+v", p)
 	}
 }
 

@@ -14,9 +14,9 @@ import (
 // they were made): MAE 95% band [0.6, 1.0], 99% upper limit 1.2; ME 95%
 // band [−0.3, 0.3], 99% band [−0.5, 0.5].
 var (
-	testMAEBand = Band{Metric: BandMAE, N: 30, Expected: 0.8, Lower: 0.6, Upper: 1.0,
+	testMAEBand = Band{Metric: MetricMAE, N: 30, Expected: 0.8, Lower: 0.6, Upper: 1.0,
 		AlarmLower: math.Inf(-1), AlarmUpper: 1.2, K: 365, KEff: 300}
-	testMEBand = Band{Metric: BandME, N: 30, Expected: 0, Lower: -0.3, Upper: 0.3,
+	testMEBand = Band{Metric: MetricME, N: 30, Expected: 0, Lower: -0.3, Upper: 0.3,
 		AlarmLower: -0.5, AlarmUpper: 0.5, K: 365, KEff: 340}
 )
 
@@ -42,14 +42,14 @@ type step struct {
 	ev   Evaluation
 	want State // state after the step
 	// For the step that changes state (Changed must match want != previous):
-	metric string
+	metric Metric
 	value  float64
 	limit  float64
 }
 
 func s(e Evaluation, want State) step { return step{ev: e, want: want} }
 
-func sc(e Evaluation, want State, metric string, value, limit float64) step {
+func sc(e Evaluation, want State, metric Metric, value, limit float64) step {
 	return step{e, want, metric, value, limit}
 }
 
@@ -99,7 +99,9 @@ func detectorIn(t *testing.T, st State) *Detector {
 	case deg:
 		d.Observe(ev(fullWin, hiMAE, okME))
 	case imp:
-		d.Observe(ev(fullWin, loMAE, okME))
+		for range DriftHysteresis {
+			d.Observe(ev(fullWin, loMAE, okME))
+		}
 	}
 	if d.state() != st {
 		t.Fatalf("setup: state %s, want %s", d.State, st)
@@ -135,11 +137,23 @@ func TestDetectorTransitions(t *testing.T) {
 			s(ev(short, hiMAE, okME), in), s(ev(short, okMAE, hiME), in), sc(ev(short, hiMAE, okME), deg, "mae", hiMAE, 1.2)}},
 		{"degraded on MAE and ME count as one call", in, []step{
 			s(ev(short, hiMAE, okME), in), s(ev(short, okMAE, loME), in), sc(ev(short, okMAE, hiME), deg, "me", hiME, 0.5)}},
-		{"within → improved", in, []step{sc(ev(fullWin, loMAE, okME), imp, "mae", loMAE, 0.6)}},
-		{"short window: 3 calls to improve", in, []step{
+		{"within → improved after 3 evaluations below", in, []step{
+			s(ev(fullWin, loMAE, okME), in), s(ev(fullWin, loMAE, okME), in), sc(ev(fullWin, loMAE, okME), imp, "mae", loMAE, 0.6)}},
+		{"short window: 3 evaluations below to improve", in, []step{
 			s(ev(short, loMAE, okME), in), s(ev(short, loMAE, okME), in), sc(ev(short, loMAE, okME), imp, "mae", loMAE, 0.6)}},
-		{"improved → within", imp, []step{sc(ev(fullWin, okMAE, okME), in, "mae", okMAE, 0.6)}},
+		{"improved → within after 3 evaluations not below", imp, []step{
+			s(ev(fullWin, okMAE, okME), imp), s(ev(fullWin, 0.6, okME), imp), sc(ev(fullWin, gapMAE, okME), in, "mae", gapMAE, 0.6)}},
+		{"no flapping at the lower bound, from within", in, []step{
+			s(ev(fullWin, loMAE, okME), in), s(ev(fullWin, okMAE, okME), in), s(ev(fullWin, loMAE, okME), in),
+			s(ev(fullWin, loMAE, okME), in), s(ev(fullWin, okMAE, okME), in), s(ev(fullWin, loMAE, okME), in)}},
+		{"no flapping at the lower bound, from improved", imp, []step{
+			s(ev(fullWin, okMAE, okME), imp), s(ev(fullWin, loMAE, okME), imp), s(ev(fullWin, okMAE, okME), imp),
+			s(ev(fullWin, okMAE, okME), imp), s(ev(fullWin, loMAE, okME), imp), s(ev(fullWin, okMAE, okME), imp)}},
 		{"improved → degraded directly", imp, []step{sc(ev(fullWin, hiMAE, okME), deg, "mae", hiMAE, 1.2)}},
+		{"below the band at the first evaluations: within, then improved", ins, []step{
+			sc(ev(14, loMAE, okME), in, "", 0, 0), s(ev(15, loMAE, okME), in), sc(ev(16, loMAE, okME), imp, "mae", loMAE, 0.6)}},
+		{"short window below the band leaves insufficient_data for improved", ins, []step{
+			s(ev(7, loMAE, okME), ins), s(ev(8, loMAE, okME), ins), sc(ev(9, loMAE, okME), imp, "mae", loMAE, 0.6)}},
 		{"gap between 95% and 99% is within", in, []step{s(ev(fullWin, gapMAE, gapME), in)}},
 		{"hysteresis: 3 evaluations back inside to leave degraded", deg, []step{
 			s(ev(fullWin, okMAE, okME), deg), s(ev(fullWin, okMAE, okME), deg), sc(ev(fullWin, 0.9, okME), in, "mae", 0.9, 1.0)}},
@@ -237,15 +251,21 @@ func TestDetectorResume(t *testing.T) {
 	mes := []float64{okME, gapME, hiME, loME, -gapME}
 	var straight, resumed Detector
 	changes := map[string]int{}
+	run, mae, me := 0, okMAE, okME
 	for i := range 20000 {
 		n := min(1+i%400, fullWin)
 		if r.IntN(50) == 0 {
 			n = 7 + r.IntN(7)
 		}
-		e := ev(n, maes[r.IntN(len(maes))], mes[r.IntN(len(mes))])
-		if r.IntN(4) > 0 { // long runs make persistence and hysteresis matter
-			e = ev(n, okMAE, okME)
+		// Runs of one value make persistence and hysteresis matter.
+		if run == 0 {
+			run, mae, me = 1+r.IntN(5), maes[r.IntN(len(maes))], mes[r.IntN(len(mes))]
+			if r.IntN(3) > 0 {
+				me = okME
+			}
 		}
+		run--
+		e := ev(n, mae, me)
 		var tr1, tr2 Transition
 		if i%997 == 500 {
 			v := Verdict{Usable: i%2 == 0, Reason: "test"}

@@ -3,6 +3,7 @@ package scoring
 import (
 	"math"
 	"slices"
+	"time"
 )
 
 // LeadMetrics are the metrics of the pairs of one lead.
@@ -95,7 +96,9 @@ func (t *Tabulator) Table(scale float64) Table {
 }
 
 // Pair is one scored (origin, lead) pair: the actual and the forecast.
+// Tabulating ignores the origin; drift replays order by it.
 type Pair struct {
+	Origin   time.Time
 	Lead     int
 	Actual   float64
 	Forecast float64
