@@ -73,7 +73,7 @@ func (s *accuracyService) GetAccuracy(ctx context.Context, req *aftercastv1.GetA
 	for _, l := range res.Table.Leads {
 		ns[l.Lead] = int(l.N)
 	}
-	version, views, err := s.store.ActiveLeadViews(ctx, req.GetSeries(), req.GetModel(), ns)
+	version, views, err := s.drift.LeadViews(ctx, req.GetSeries(), req.GetModel(), ns)
 	if err != nil {
 		return nil, s.status(ctx, err)
 	}

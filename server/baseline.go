@@ -12,6 +12,7 @@ import (
 
 	aftercastv1 "github.com/aftercast/aftercast/api/aftercast/v1"
 	"github.com/aftercast/aftercast/scoring"
+	"github.com/aftercast/aftercast/server/drift"
 	"github.com/aftercast/aftercast/server/store"
 )
 
@@ -64,14 +65,9 @@ func (s *baselineService) ImportBaseline(stream aftercastv1.BaselineService_Impo
 	if err != nil {
 		return s.status(ctx, err)
 	}
-	// A new version restarts the detectors; judge what is stored already.
-	var keys []string
-	for _, v := range vs {
-		if v.Created {
-			keys = append(keys, v.Series)
-		}
-	}
-	s.evaluateDrift(ctx, keys)
+	// A new version was stored with a mark to re-judge the production
+	// period against it.
+	s.drift.Wake()
 	resp := &aftercastv1.ImportBaselineResponse{Model: model}
 	for _, v := range vs {
 		resp.Baselines = append(resp.Baselines, &aftercastv1.ImportedBaseline{Version: versionToProto(v), Created: v.Created})
@@ -168,11 +164,14 @@ func pageOf[T any](items []T, p offsetPage) ([]T, string) {
 // GetBaseline returns a version with per-lead expectations, bands and
 // limits for the requested window size.
 func (s *baselineService) GetBaseline(ctx context.Context, req *aftercastv1.GetBaselineRequest) (*aftercastv1.GetBaselineResponse, error) {
-	n := store.WindowN
+	n := scoring.DriftWindow
 	if req.WindowN != nil {
 		n = int(req.GetWindowN())
 	}
-	v, leads, pooled, err := s.store.BaselineView(ctx, req.GetSeries(), req.GetModel(), int(req.GetVersion()), n)
+	if maxN := s.store.Limits().MaxWindow; n < 1 || n > maxN {
+		return nil, invalidArg("window_n", fmt.Sprintf("want 1 to %d origins", maxN))
+	}
+	v, leads, pooled, err := s.drift.BaselineView(ctx, req.GetSeries(), req.GetModel(), int(req.GetVersion()), n)
 	if err != nil {
 		return nil, s.status(ctx, err)
 	}
@@ -198,7 +197,7 @@ func bandToProto(b scoring.Band) *aftercastv1.MetricBand {
 	return p
 }
 
-func leadViewToProto(l store.LeadView) *aftercastv1.BaselineLead {
+func leadViewToProto(l drift.LeadView) *aftercastv1.BaselineLead {
 	p := &aftercastv1.BaselineLead{Lead: int32(l.Lead), K: int32(l.K), KEff: l.KEff, Mae: bandToProto(l.MAE), Rmse: bandToProto(l.RMSE),
 		Me: bandToProto(l.ME), Usable: l.Usable, UnusableReason: l.Reason}
 	if l.Lead > 0 {

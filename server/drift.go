@@ -28,23 +28,42 @@ var stateToProto = map[scoring.State]aftercastv1.DriftState{
 	scoring.StateInsufficientBaseline: aftercastv1.DriftState_DRIFT_STATE_INSUFFICIENT_BASELINE,
 }
 
-var metricToProto = map[string]aftercastv1.DriftMetric{
-	"mae": aftercastv1.DriftMetric_DRIFT_METRIC_MAE,
-	"me":  aftercastv1.DriftMetric_DRIFT_METRIC_ME,
+var metricToProto = map[scoring.Metric]aftercastv1.DriftMetric{
+	scoring.MetricMAE: aftercastv1.DriftMetric_DRIFT_METRIC_MAE,
+	scoring.MetricME:  aftercastv1.DriftMetric_DRIFT_METRIC_ME,
+}
+
+var causeToProto = map[scoring.Cause]aftercastv1.DriftCause{
+	scoring.CauseData:     aftercastv1.DriftCause_DRIFT_CAUSE_DATA,
+	scoring.CauseRevision: aftercastv1.DriftCause_DRIFT_CAUSE_REVISION,
+	scoring.CauseBaseline: aftercastv1.DriftCause_DRIFT_CAUSE_BASELINE,
+}
+
+// timeOrNil is t as a proto timestamp, nil when zero.
+func timeOrNil(t time.Time) *timestamppb.Timestamp {
+	if t.IsZero() {
+		return nil
+	}
+	return timestamppb.New(t)
+}
+
+func leadOrNil(h int) *int32 {
+	if h == 0 {
+		return nil
+	}
+	l := int32(h)
+	return &l
 }
 
 func statusToProto(st store.DriftStatus) *aftercastv1.DriftStatus {
 	sn := st.Snapshot
-	p := &aftercastv1.DriftStatus{State: stateToProto[st.State], StateSinceTime: timestamppb.New(st.Since), WindowN: int32(sn.WindowN),
+	p := &aftercastv1.DriftStatus{Lead: leadOrNil(st.Lead), State: stateToProto[st.State], StateSinceTime: timeOrNil(st.Noticed),
+		NoticedTime: timeOrNil(st.Noticed), OnsetOriginTime: timeOrNil(st.Onset), OriginsSinceOnset: int32(sn.OriginsSinceOnset),
+		LastOriginTime: timeOrNil(st.LastOrigin), WindowN: int32(sn.WindowN),
 		Mae: sn.MAE, MaeExpected: sn.MAEExpected, MaeBandLower: sn.MAEBandLower, MaeBandUpper: sn.MAEBandUpper, MaeAlarmLimit: sn.MAEAlarmLimit,
-		Me: sn.ME, MeExpected: sn.MEExpected, MeAlarmLower: sn.MEAlarmLower, MeAlarmUpper: sn.MEAlarmUpper, KEff: sn.KEff}
-	if st.Lead > 0 {
-		l := int32(st.Lead)
-		p.Lead = &l
-	}
-	if !st.LastOrigin.IsZero() {
-		p.LastOriginTime = timestamppb.New(st.LastOrigin)
-	}
+		Me: sn.ME, MeExpected: sn.MEExpected, MeBandLower: sn.MEBandLower, MeBandUpper: sn.MEBandUpper,
+		MeAlarmLower: sn.MEAlarmLower, MeAlarmUpper: sn.MEAlarmUpper, KEff: sn.KEff,
+		OnsetMetric: metricToProto[sn.EnteredMetric], OnsetValue: sn.EnteredValue, OnsetLimit: sn.EnteredLimit, Reason: sn.Reason}
 	for _, m := range sn.Breached {
 		p.BreachedMetrics = append(p.BreachedMetrics, metricToProto[m])
 	}
@@ -85,8 +104,34 @@ func (s *driftService) ListDriftStates(ctx context.Context, req *aftercastv1.Lis
 		}
 	}
 	resp := &aftercastv1.ListDriftStatesResponse{}
+	if resp.PendingEvaluations, _, err = s.store.DriftBacklog(ctx); err != nil {
+		return nil, s.status(ctx, err)
+	}
+	if resp.ExpectedChancePagesPerWeek, err = s.chancePages(ctx, groups); err != nil {
+		return nil, s.status(ctx, err)
+	}
 	resp.States, resp.NextPageToken = pageOf(groups, pg)
 	return resp, nil
+}
+
+// chancePages is the pages the (series, model) groups that can page are
+// expected to raise by chance per week if all are healthy (method.md §5).
+func (s *driftService) chancePages(ctx context.Context, groups []*aftercastv1.SeriesModelDrift) (float64, error) {
+	fs, _, err := s.store.Freshness(ctx)
+	if err != nil {
+		return 0, err
+	}
+	interval := map[[2]string]time.Duration{}
+	for _, f := range fs {
+		interval[[2]string{f.Series, f.Model}] = f.OriginInterval
+	}
+	var pages float64
+	for _, g := range groups {
+		if g.GetSeriesStatus().GetState() != aftercastv1.DriftState_DRIFT_STATE_INSUFFICIENT_BASELINE {
+			pages += scoring.ChancePagesPerWeek(interval[[2]string{g.GetSeries(), g.GetModel()}])
+		}
+	}
+	return pages, nil
 }
 
 func optNaN(x float64) *float64 {
@@ -97,15 +142,11 @@ func optNaN(x float64) *float64 {
 }
 
 func eventToProto(ev store.DriftEvent) *aftercastv1.DriftEvent {
-	p := &aftercastv1.DriftEvent{Token: strconv.FormatInt(ev.Seq, 10), EventTime: timestamppb.New(ev.Time), Series: ev.Series, Model: ev.Model,
-		OriginTime: timestamppb.New(ev.Origin), Metric: metricToProto[ev.Metric], PreviousState: stateToProto[ev.Previous], NewState: stateToProto[ev.State],
+	return &aftercastv1.DriftEvent{Token: strconv.FormatInt(ev.Seq, 10), EventTime: timestamppb.New(ev.Time), Series: ev.Series, Model: ev.Model,
+		Lead: leadOrNil(ev.Lead), OriginTime: timeOrNil(ev.Origin), Cause: causeToProto[ev.Cause], Metric: metricToProto[ev.Metric],
+		PreviousState: stateToProto[ev.Previous], NewState: stateToProto[ev.State],
 		Value: optNaN(ev.Value), Limit: optNaN(ev.Limit), BandLower: optNaN(ev.BandLower), BandUpper: optNaN(ev.BandUpper),
 		WindowN: int32(ev.WindowN), KEff: optNaN(ev.KEff)}
-	if ev.Lead > 0 {
-		l := int32(ev.Lead)
-		p.Lead = &l
-	}
-	return p
 }
 
 func eventToken(tok string) (int64, error) {
@@ -128,11 +169,25 @@ func (s *driftService) ListDriftEvents(ctx context.Context, req *aftercastv1.Lis
 	if err != nil {
 		return nil, err
 	}
-	var since time.Time
-	if req.GetSinceTime() != nil {
-		since = req.GetSinceTime().AsTime()
+	f := store.EventFilter{Series: req.GetSeries(), Model: req.GetModel(), After: after, Limit: size + 1}
+	for _, t := range []struct {
+		field string
+		ts    *timestamppb.Timestamp
+		to    *time.Time
+	}{{"since_time", req.GetSinceTime(), &f.Since}, {"origin_from_time", req.GetOriginFromTime(), &f.OriginFrom},
+		{"origin_to_time", req.GetOriginToTime(), &f.OriginTo}} {
+		if t.ts == nil {
+			continue
+		}
+		if err := t.ts.CheckValid(); err != nil {
+			return nil, invalidArg(t.field, err.Error())
+		}
+		*t.to = t.ts.AsTime()
 	}
-	evs, err := s.store.DriftEvents(ctx, req.GetSeries(), req.GetModel(), since, after, size+1)
+	if !f.OriginFrom.IsZero() && !f.OriginTo.IsZero() && !f.OriginFrom.Before(f.OriginTo) {
+		return nil, invalidArg("origin_to_time", "must be after origin_from_time")
+	}
+	evs, err := s.store.DriftEvents(ctx, f)
 	if err != nil {
 		return nil, s.status(ctx, err)
 	}
@@ -170,7 +225,7 @@ func (s *driftService) WatchDriftEvents(req *aftercastv1.WatchDriftEventsRequest
 	defer tick.Stop()
 	for {
 		qctx, cancel := context.WithTimeout(ctx, 30*time.Second)
-		evs, err := s.store.DriftEvents(qctx, req.GetSeries(), req.GetModel(), time.Time{}, after, 1000)
+		evs, err := s.store.DriftEvents(qctx, store.EventFilter{Series: req.GetSeries(), Model: req.GetModel(), After: after, Limit: 1000})
 		cancel()
 		if err != nil {
 			return s.status(ctx, err)
@@ -196,20 +251,27 @@ func (s *driftService) WatchDriftEvents(req *aftercastv1.WatchDriftEventsRequest
 	}
 }
 
-// evaluateDrift re-judges the drift states of the series an ingestion
-// touched. The data is committed already; a failure here is logged and
-// caught up by the next evaluation, which is idempotent.
-func (a *api) evaluateDrift(ctx context.Context, series []string) {
-	if len(series) == 0 {
-		return
+// GetDriftHistory replays the stored production period and returns its
+// transitions.
+func (s *driftService) GetDriftHistory(ctx context.Context, req *aftercastv1.GetDriftHistoryRequest) (*aftercastv1.GetDriftHistoryResponse, error) {
+	if req.Lead != nil && req.GetLead() < 0 {
+		return nil, invalidArg("lead", "must be 0 (the series level) or a lead")
 	}
-	evs, err := a.store.EvaluateDrift(ctx, series)
+	history, version, err := s.drift.History(ctx, req.GetSeries(), req.GetModel())
 	if err != nil {
-		a.log.ErrorContext(ctx, "evaluating drift", "err", err)
+		return nil, s.status(ctx, err)
 	}
-	a.metrics().countStateChanges(evs)
-	for _, ev := range evs {
-		a.log.InfoContext(ctx, "drift state changed", "series", ev.Series, "model", ev.Model, "lead", ev.Lead,
-			"from", ev.Previous, "to", ev.State, "metric", ev.Metric, "origin", ev.Origin)
+	resp := &aftercastv1.GetDriftHistoryResponse{BaselineVersion: int32(version)}
+	for _, c := range history {
+		if req.Lead != nil && int(req.GetLead()) != c.Lead {
+			continue
+		}
+		t := &aftercastv1.DriftTransition{Lead: leadOrNil(c.Lead), OriginTime: timestamppb.New(c.Origin), PreviousState: stateToProto[c.From],
+			NewState: stateToProto[c.To], Metric: metricToProto[c.Metric], WindowN: int32(c.N), Reason: c.Reason}
+		if c.Metric != "" {
+			t.Value, t.Limit, t.KEff = optNaN(c.Value), optNaN(c.Limit), optNaN(c.KEff)
+		}
+		resp.Transitions = append(resp.Transitions, t)
 	}
+	return resp, nil
 }

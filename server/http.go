@@ -34,7 +34,7 @@ func (s *Server) httpHandler() http.Handler {
 		w.Write([]byte("ok\n"))
 	})
 	// Everything else is the status page.
-	mux.Handle("/", web.New(s.store, s.log))
+	mux.Handle("/", web.New(s.store, s.drift, s.log))
 	return mux
 }
 

@@ -6,7 +6,6 @@ import (
 	"fmt"
 	"io"
 	"math"
-	"time"
 
 	aftercastv1 "github.com/aftercast/aftercast/api/aftercast/v1"
 	"github.com/aftercast/aftercast/server/store"
@@ -88,10 +87,15 @@ func (a *api) writeForecasts(ctx context.Context, fs []*aftercastv1.Forecast, fi
 }
 
 // writeActuals stores a batch of actuals and counts what became of them.
+// The store marks what the batch re-scores in the same transaction; the
+// evaluator is woken to judge it off the request path.
 func (a *api) writeActuals(ctx context.Context, as []store.Actual, first int) (store.Ack, error) {
 	ack, err := a.store.WriteActuals(ctx, as, first)
 	if err == nil {
 		a.metrics().countActuals(ack)
+		if ack.Accepted+ack.Revised > 0 {
+			a.drift.Wake()
+		}
 	}
 	return ack, err
 }
@@ -185,62 +189,28 @@ func (s *actualService) PushActuals(ctx context.Context, req *aftercastv1.PushAc
 	if err != nil {
 		return nil, s.status(ctx, err)
 	}
-	s.evaluateDrift(ctx, actualSeries(as, nil))
 	return &aftercastv1.PushActualsResponse{Summary: actualSummary(ack)}, nil
 }
 
-// actualSeries adds the series keys of as to seen and returns them all.
-func actualSeries(as []store.Actual, seen map[string]bool) []string {
-	if seen == nil {
-		seen = map[string]bool{}
-	}
-	for _, a := range as {
-		seen[a.Series] = true
-	}
-	keys := make([]string, 0, len(seen))
-	for k := range seen {
-		keys = append(keys, k)
-	}
-	return keys
-}
-
-// evaluateEvery bounds how long a long actuals stream goes without its
-// drift states being brought up to date.
-const evaluateEvery = 2 * time.Second
-
 // StreamActuals: same commit-per-message semantics as StreamForecasts.
-// Drift is re-evaluated every few seconds during the stream and at its end;
-// evaluation is idempotent, so how often does not change the states.
 func (s *actualService) StreamActuals(stream aftercastv1.ActualService_StreamActualsServer) error {
 	ctx := stream.Context()
 	var total store.Ack
 	n := 0
-	pending := map[string]bool{}
-	last := time.Now()
 	for {
 		req, err := stream.Recv()
 		if errors.Is(err, io.EOF) {
-			s.evaluateDrift(ctx, actualSeries(nil, pending))
 			return stream.SendAndClose(&aftercastv1.StreamActualsResponse{Summary: actualSummary(total)})
 		}
 		if err != nil {
-			s.evaluateDrift(context.WithoutCancel(ctx), actualSeries(nil, pending))
 			return err
 		}
 		as := toActuals(req.GetActuals())
 		ack, err := s.writeActuals(ctx, as, n)
 		if err != nil {
-			// What the stream committed before still gets judged.
-			s.evaluateDrift(context.WithoutCancel(ctx), actualSeries(nil, pending))
 			return s.status(ctx, err)
 		}
 		addCapped(&total, ack)
 		n += len(as)
-		actualSeries(as, pending)
-		if time.Since(last) > evaluateEvery {
-			s.evaluateDrift(ctx, actualSeries(nil, pending))
-			clear(pending)
-			last = time.Now()
-		}
 	}
 }

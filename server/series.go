@@ -8,12 +8,14 @@ import (
 	"google.golang.org/protobuf/types/known/timestamppb"
 
 	aftercastv1 "github.com/aftercast/aftercast/api/aftercast/v1"
+	"github.com/aftercast/aftercast/server/drift"
 	"github.com/aftercast/aftercast/server/store"
 )
 
 // api holds what every service implementation shares.
 type api struct {
 	store *store.Store
+	drift *drift.Evaluator
 	log   *slog.Logger
 	m     *metrics
 	// stopping is closed when the server starts shutting down, to end

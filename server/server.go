@@ -29,6 +29,7 @@ import (
 	"google.golang.org/grpc/status"
 
 	aftercastv1 "github.com/aftercast/aftercast/api/aftercast/v1"
+	"github.com/aftercast/aftercast/server/drift"
 	"github.com/aftercast/aftercast/server/pglocal"
 	"github.com/aftercast/aftercast/server/store"
 )
@@ -103,6 +104,7 @@ type Server struct {
 	cluster  *pglocal.Cluster
 	pool     *pgxpool.Pool
 	store    *store.Store
+	drift    *drift.Evaluator
 	api      *api
 	grpc     *grpc.Server
 	health   *health.Server
@@ -184,6 +186,12 @@ func (s *Server) Start(ctx context.Context) (err error) {
 	}
 	s.store = store.New(s.pool, s.cfg.Limits)
 	s.metrics.store.Store(s.store)
+	s.drift = drift.New(s.store, drift.Config{Logger: s.log, OnEvents: s.announced})
+	bgCtx, cancel := context.WithCancel(context.WithoutCancel(ctx))
+	s.bgStop = cancel
+	// Marks left by an earlier process (or another replica) are drained
+	// from the start.
+	s.bg.Go(func() { s.drift.Run(bgCtx) })
 
 	if s.grpcLis, err = net.Listen("tcp", s.cfg.Listen); err != nil {
 		return fmt.Errorf("gRPC listener: %w", err)
@@ -203,8 +211,6 @@ func (s *Server) Start(ctx context.Context) (err error) {
 			}
 		}()
 	}
-	bgCtx, cancel := context.WithCancel(context.WithoutCancel(ctx))
-	s.bgStop = cancel
 	if s.cfg.Retention > 0 {
 		s.bg.Go(func() { s.retain(bgCtx) })
 	}
@@ -258,7 +264,7 @@ func (s *Server) newGRPC() *grpc.Server {
 			recovery.StreamServerInterceptor(recoverOpt),
 		),
 	)
-	api := &api{store: s.store, log: s.log, m: s.metrics, stopping: make(chan struct{})}
+	api := &api{store: s.store, drift: s.drift, log: s.log, m: s.metrics, stopping: make(chan struct{})}
 	s.api = api
 	aftercastv1.RegisterSeriesServiceServer(srv, &seriesService{api: api})
 	aftercastv1.RegisterForecastServiceServer(srv, &forecastService{api: api})
@@ -301,6 +307,18 @@ func (s *Server) MetricsAddr() string {
 
 // Store is the server's store, for tests and the demo.
 func (s *Server) Store() *store.Store { return s.store }
+
+// Drift is the server's drift evaluator, for tests and benchmarks.
+func (s *Server) Drift() *drift.Evaluator { return s.drift }
+
+// announced counts and logs the drift events an evaluation committed.
+func (s *Server) announced(evs []store.DriftEvent) {
+	s.metrics.countStateChanges(evs)
+	for _, ev := range evs {
+		s.log.Info("drift state changed", "series", ev.Series, "model", ev.Model, "lead", ev.Lead,
+			"from", ev.Previous, "to", ev.State, "metric", ev.Metric, "onset_origin", ev.Origin, "cause", ev.Cause)
+	}
+}
 
 // Run starts the server and serves until ctx is cancelled or serving
 // fails, then stops it.

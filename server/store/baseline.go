@@ -304,7 +304,7 @@ func (s *Store) storeBaseline(ctx context.Context, tx pgx.Tx, se *Series, model 
 	}
 	v.Warnings = append(v.Warnings, shape...)
 	for _, l := range leads {
-		if reason := LeadUsability(l); reason != "" {
+		if reason := leadUsability(l); reason != "" {
 			v.Warnings = append(v.Warnings, BaselineWarning{Kind: WarnLeadNotUsable, Lead: l.Lead, Message: reason})
 		}
 	}
@@ -331,7 +331,21 @@ func (s *Store) storeBaseline(ctx context.Context, tx pgx.Tx, se *Series, model 
 		pgx.CopyFromRows(src)); err != nil {
 		return v, fmt.Errorf("storing baseline rows: %w", err)
 	}
+	// A new active version re-judges the whole production period.
+	if _, err := tx.Exec(ctx, `INSERT INTO drift_marks (series_id, model, cause) VALUES ($1, $2, 'baseline')`, se.ID, model); err != nil {
+		return v, fmt.Errorf("marking drift for re-judgement: %w", err)
+	}
 	return v, nil
+}
+
+// leadUsability judges a lead's backtest as the drift detector will
+// (method.md §4), for the import's warnings: "" when usable, else why not.
+func leadUsability(l BaselineLead) string {
+	e := make([]float64, len(l.Origins))
+	for i := range e {
+		e[i] = l.Actuals[i] - l.Forecasts[i]
+	}
+	return scoring.Usability(scoring.Summarize(scoring.Quantities(scoring.MetricMAE, e), l.Lead)).Reason
 }
 
 // cadence is the most common gap, in steps, between consecutive origins
@@ -470,7 +484,11 @@ func (s *Store) GetBaseline(ctx context.Context, key, model string, version int)
 	if err != nil {
 		return Baseline{}, err
 	}
-	return s.baseline(ctx, s.pool, se, model, version)
+	b, err := s.baseline(ctx, s.pool, se, model, version)
+	if err != nil {
+		return b, err
+	}
+	return b, refreshShapeWarnings(ctx, s.pool, se, &b.BaselineVersion)
 }
 
 func (s *Store) baseline(ctx context.Context, q querier, se *Series, model string, version int) (Baseline, error) {
@@ -546,4 +564,29 @@ func (s *Store) ActiveScale(ctx context.Context, key, model string) (float64, er
 		return math.NaN(), fmt.Errorf("reading baseline scale: %w", err)
 	}
 	return *scale, nil
+}
+
+// BaselineRows returns a baseline version of a series with its rows, as
+// stored (no warnings refreshed); version 0 is the active one.
+func (s *Store) BaselineRows(ctx context.Context, se *Series, model string, version int) (Baseline, error) {
+	return s.baseline(ctx, s.pool, se, model, version)
+}
+
+// ActiveBaseline returns the series and the active baseline version of
+// (key, model); ErrNotFound when the series or the baseline does not exist.
+func (s *Store) ActiveBaseline(ctx context.Context, key, model string) (*Series, ActiveBaseline, error) {
+	se, err := s.seriesByKey(ctx, key)
+	if err != nil {
+		return nil, ActiveBaseline{}, err
+	}
+	a := ActiveBaseline{Model: model}
+	err = s.pool.QueryRow(ctx, `SELECT version, last_origin FROM baselines WHERE series_id = $1 AND model = $2
+		ORDER BY version DESC LIMIT 1`, se.ID, model).Scan(&a.Version, &a.LastOrigin)
+	if errors.Is(err, pgx.ErrNoRows) {
+		return se, a, fmt.Errorf("no baseline of model %q for series %q: %w", model, key, ErrNotFound)
+	}
+	if err != nil {
+		return se, a, fmt.Errorf("reading baselines: %w", err)
+	}
+	return se, a, nil
 }

@@ -6,7 +6,6 @@ import (
 	"fmt"
 	"math"
 	"slices"
-	"sync"
 	"time"
 
 	"github.com/jackc/pgx/v5"
@@ -15,163 +14,15 @@ import (
 	"github.com/aftercast/aftercast/scoring"
 )
 
+// The drift records: current states, announced events, the marks of what
+// must be re-judged and the checkpoints replays resume from. Judging lives
+// in scoring and server/drift; this file is SQL.
+
 // WindowN is the live window of method.md §6: the last 30 origins.
 const WindowN = 30
 
-// leadBaseline is what one lead's (or the pooled series quantity's)
-// backtest contributes to drift: band summaries and the usability verdict.
-type leadBaseline struct {
-	abs, sq, bias scoring.Summary
-	verdict       scoring.Verdict
-	expected      scoring.Metrics // every metric over the backtest pairs (zero for the pooled entry)
-	hasRMSE       bool
-
-	mu    sync.Mutex
-	bands map[int][3]scoring.Band // by window n: MAE, RMSE, ME
-}
-
-// band returns the MAE, RMSE and ME bands for window n, cached: the t
-// quantiles behind them are the costly part.
-func (l *leadBaseline) band(n int) (mae, rmse, me scoring.Band) {
-	l.mu.Lock()
-	defer l.mu.Unlock()
-	if b, ok := l.bands[n]; ok {
-		return b[0], b[1], b[2]
-	}
-	b := [3]scoring.Band{l.abs.Band(scoring.BandMAE, n), {}, l.bias.Band(scoring.BandME, n)}
-	if l.hasRMSE {
-		b[1] = l.sq.Band(scoring.BandRMSE, n)
-	}
-	if l.bands == nil {
-		l.bands = map[int][3]scoring.Band{}
-	}
-	l.bands[n] = b
-	return b[0], b[1], b[2]
-}
-
-// baselineModel is a baseline version prepared for judging: per lead and
-// pooled over the decision leads (lead 0).
-type baselineModel struct {
-	version int
-	scale   float64
-	leads   map[int]*leadBaseline
-	pooled  *leadBaseline // nil when no backtest origin has every decision lead
-}
-
-type baselineKey struct {
-	series  int64
-	model   string
-	version int
-}
-
-// newBaselineModel builds the band summaries of a baseline (method.md §4).
-func newBaselineModel(se *Series, b Baseline) *baselineModel {
-	m := &baselineModel{version: b.Version, scale: b.MASEScale, leads: map[int]*leadBaseline{}}
-	for _, l := range b.Leads {
-		e := make([]float64, len(l.Origins))
-		var acc scoring.Accumulator
-		for i := range e {
-			e[i] = l.Actuals[i] - l.Forecasts[i]
-			acc.Add(l.Actuals[i], l.Forecasts[i])
-		}
-		lb := &leadBaseline{hasRMSE: true, expected: acc.Metrics(b.MASEScale),
-			abs:  scoring.Summarize(scoring.Quantities(scoring.BandMAE, e), l.Lead),
-			sq:   scoring.Summarize(scoring.Quantities(scoring.BandRMSE, e), l.Lead),
-			bias: scoring.Summarize(scoring.Quantities(scoring.BandME, e), l.Lead)}
-		lb.verdict = scoring.Usability(lb.abs)
-		m.leads[l.Lead] = lb
-	}
-	// Pooled decision-lead quantity: per backtest origin, the errors of
-	// every decision lead.
-	dec := se.Decision()
-	byOrigin := map[int64]map[int]float64{}
-	for _, l := range b.Leads {
-		if !slices.Contains(dec, l.Lead) {
-			continue
-		}
-		for i, o := range l.Origins {
-			k := o.UnixNano()
-			if byOrigin[k] == nil {
-				byOrigin[k] = map[int]float64{}
-			}
-			byOrigin[k][l.Lead] = l.Actuals[i] - l.Forecasts[i]
-		}
-	}
-	origins := make([]int64, 0, len(byOrigin))
-	for k := range byOrigin {
-		origins = append(origins, k)
-	}
-	slices.Sort(origins)
-	errs := make([]map[int]float64, len(origins))
-	for i, k := range origins {
-		errs[i] = byOrigin[k]
-	}
-	if p, err := scoring.PoolDecisionLeads(errs, dec); err == nil && len(p.Abs) > 0 {
-		h := slices.Max(dec)
-		m.pooled = &leadBaseline{abs: scoring.Summarize(p.Abs, h), bias: scoring.Summarize(p.Bias, h)}
-		m.pooled.verdict = scoring.Usability(m.pooled.abs)
-	}
-	return m
-}
-
-// LeadUsability judges a lead's backtest as the drift detector will, for
-// import warnings: "" when usable, else the reason.
-func LeadUsability(l BaselineLead) string {
-	e := make([]float64, len(l.Origins))
-	for i := range e {
-		e[i] = l.Actuals[i] - l.Forecasts[i]
-	}
-	v := scoring.Usability(scoring.Summarize(scoring.Quantities(scoring.BandMAE, e), l.Lead))
-	return v.Reason
-}
-
-// activeBaseline returns the prepared active baseline of (series, model),
-// nil when there is none. Versions are immutable, so the cache needs no
-// invalidation; a new version is a new key.
-func (s *Store) activeBaseline(ctx context.Context, q querier, se *Series, model string) (*baselineModel, error) {
-	var version int
-	err := q.QueryRow(ctx, `SELECT coalesce(max(version), 0) FROM baselines WHERE series_id = $1 AND model = $2`, se.ID, model).Scan(&version)
-	if err != nil {
-		return nil, fmt.Errorf("reading baselines: %w", err)
-	}
-	if version == 0 {
-		return nil, nil
-	}
-	if m := s.cachedBaseline(baselineKey{se.ID, model, version}); m != nil {
-		return m, nil
-	}
-	b, err := s.baseline(ctx, q, se, model, version)
-	if err != nil {
-		return nil, err
-	}
-	return s.prepare(se, b), nil
-}
-
-func (s *Store) cachedBaseline(k baselineKey) *baselineModel {
-	s.bmu.Lock()
-	defer s.bmu.Unlock()
-	return s.baselines[k]
-}
-
-// prepare returns the prepared form of a baseline version, from the cache
-// when another request built it first.
-func (s *Store) prepare(se *Series, b Baseline) *baselineModel {
-	k := baselineKey{se.ID, b.Model, b.Version}
-	if m := s.cachedBaseline(k); m != nil {
-		return m
-	}
-	m := newBaselineModel(se, b)
-	s.bmu.Lock()
-	defer s.bmu.Unlock()
-	if prev := s.baselines[k]; prev != nil {
-		return prev
-	}
-	s.baselines[k] = m
-	return m
-}
-
-// Snapshot is the last evaluation of a drift state: the window's values
-// and the bands and limits they were judged against.
+// Snapshot is a drift state's last evaluation: the window's values, the
+// bands and limits they were judged against, and what entered the state.
 type Snapshot struct {
 	WindowN        int      `json:"window_n"`
 	MAE            *float64 `json:"mae,omitempty"`
@@ -191,15 +42,18 @@ type Snapshot struct {
 	MEAlarmLower   *float64 `json:"me_alarm_lower,omitempty"`
 	MEAlarmUpper   *float64 `json:"me_alarm_upper,omitempty"`
 	KEff           *float64 `json:"k_eff,omitempty"`
-	Breached       []string `json:"breached,omitempty"` // metrics beyond their alarm limits at the last evaluation
-	Reason         string   `json:"reason,omitempty"`   // why the baseline is unusable
-}
-
-func fin(x float64) *float64 {
-	if math.IsNaN(x) || math.IsInf(x, 0) {
-		return nil
-	}
-	return &x
+	// Breached lists the metrics beyond their alarm limits at the last
+	// evaluation.
+	Breached []scoring.Metric `json:"breached,omitempty"`
+	Reason   string           `json:"reason,omitempty"` // why the baseline is unusable
+	// Entered is what entered the current state: the metric, its window
+	// value and the limit it crossed (empty for a change without a metric).
+	EnteredMetric scoring.Metric `json:"entered_metric,omitempty"`
+	EnteredValue  *float64       `json:"entered_value,omitempty"`
+	EnteredLimit  *float64       `json:"entered_limit,omitempty"`
+	// OriginsSinceOnset counts the evaluations the state has lasted, the
+	// one that entered it included; 0 for the state the period started in.
+	OriginsSinceOnset int `json:"origins_since_onset,omitempty"`
 }
 
 // DriftStatus is the current drift state of one lead (Lead > 0) or of the
@@ -210,20 +64,22 @@ type DriftStatus struct {
 	Lead            int
 	BaselineVersion int
 	State           scoring.State
-	Since           time.Time
-	LastOrigin      time.Time
+	Onset           time.Time // origin at which the state was entered; zero for the state the period started in
+	Noticed         time.Time // when aftercast announced the state (wall clock)
+	LastOrigin      time.Time // last origin judged; zero: none
 	Snapshot        Snapshot
 }
 
-// DriftEvent is one stored change of drift state.
+// DriftEvent is one announced change of a drift state.
 type DriftEvent struct {
 	Seq             int64
-	Time            time.Time
+	Time            time.Time // when it was recorded
 	Series          string
 	Model           string
-	Lead            int // 0: the series-level state
-	Origin          time.Time
-	Metric          string
+	Lead            int       // 0: the series-level state
+	Origin          time.Time // onset: the origin at which the new state was entered
+	Cause           scoring.Cause
+	Metric          scoring.Metric
 	Previous, State scoring.State
 	Value, Limit    float64 // NaN when the change had no metric
 	BandLower       float64
@@ -233,383 +89,437 @@ type DriftEvent struct {
 	BaselineVersion int
 }
 
-type driftRow struct {
-	lead       int
-	det        scoring.Detector
-	since      time.Time
-	lastOrigin time.Time
-	snap       Snapshot
-	version    int
-	dirty      bool
+// DriftMark says, from the write that made it necessary, that a series'
+// drift must be re-judged from an origin on.
+type DriftMark struct {
+	ID       int64
+	Model    string    // "": every model of the series
+	From     time.Time // zero: the whole production period
+	Baseline bool      // a new baseline version: the period is re-judged against it
+	Created  time.Time
 }
 
-// livePair is a scored production pair, for windows.
-type livePair struct {
-	origin time.Time
-	e      float64
+// ActiveBaseline is the active baseline version of a (series, model).
+type ActiveBaseline struct {
+	Model      string
+	Version    int
+	LastOrigin time.Time // last backtest origin: production starts after it
 }
 
-// EvaluateDrift re-evaluates the drift states of every model with an
-// active baseline on the given series, feeding each state machine one
-// evaluation per origin newly scored since its last one, in origin order
-// (method.md §5). It is idempotent: with nothing new scored it changes
-// nothing, so it can run after any write and catch up after a crash.
-func (s *Store) EvaluateDrift(ctx context.Context, seriesKeys []string) ([]DriftEvent, error) {
-	series, err := s.seriesByKeys(ctx, seriesKeys)
-	if err != nil {
-		return nil, err
-	}
-	ids := make([]int64, 0, len(series))
-	for _, se := range series {
-		ids = append(ids, se.ID)
-	}
-	// One query for the models with a baseline: a feed's batch touches many
-	// series, most of which may have none.
-	rows, err := s.pool.Query(ctx, `SELECT DISTINCT series_id, model FROM baselines WHERE series_id = ANY($1)`, ids)
-	if err != nil {
-		return nil, fmt.Errorf("reading baselines: %w", err)
-	}
-	withBaseline := map[int64][]string{}
-	var id int64
-	var model string
-	if _, err := pgx.ForEachRow(rows, []any{&id, &model}, func() error {
-		withBaseline[id] = append(withBaseline[id], model)
-		return nil
-	}); err != nil {
-		return nil, fmt.Errorf("reading baselines: %w", err)
-	}
-	var events []DriftEvent
-	for _, key := range sortedKeys(series) {
-		se := series[key]
-		models := withBaseline[se.ID]
-		slices.Sort(models)
-		for _, model := range models {
-			err := s.inTx(ctx, func(tx pgx.Tx) error {
-				if err := lockSeries(ctx, tx, []int64{se.ID}); err != nil {
-					return err
-				}
-				evs, err := s.evaluate(ctx, tx, se, model)
-				events = append(events, evs...)
-				return err
-			})
-			if err != nil {
-				return events, err
-			}
-		}
-	}
-	return events, nil
+// ClaimedSeries is one series of a [DriftClaim]: its marks, its active
+// baselines and its stored states.
+type ClaimedSeries struct {
+	Series    *Series
+	Marks     []DriftMark
+	Baselines []ActiveBaseline         // by model
+	States    map[string][]DriftStatus // by model
 }
 
-func (s *Store) evaluate(ctx context.Context, tx pgx.Tx, se *Series, model string) ([]DriftEvent, error) {
-	bm, err := s.activeBaseline(ctx, tx, se, model)
-	if err != nil || bm == nil {
-		return nil, err
-	}
-	states, err := loadDriftRows(ctx, tx, se, model)
+// DriftClaim holds series claimed for evaluation: a transaction that holds
+// each claimed series' evaluation lock until Commit or Release, so that
+// replicas never judge one series at the same time. Pushes take other locks
+// and are never held up by it.
+type DriftClaim struct {
+	tx     pgx.Tx
+	Series []*ClaimedSeries
+	marks  []int64
+	ids    map[string]int64 // series key → id
+}
+
+// lockClassDrift is the first key of the per-series evaluation locks
+// (pg_try_advisory_xact_lock(class, series id)); "afdr".
+const lockClassDrift = 0x61666472
+
+// ClaimDrift claims up to limit series with marks that no other evaluator
+// holds, oldest marks first, and reads their marks, baselines and states.
+// It returns nil when there is nothing to claim.
+func (s *Store) ClaimDrift(ctx context.Context, limit int) (*DriftClaim, error) {
+	tx, err := s.pool.Begin(ctx)
 	if err != nil {
-		return nil, err
+		return nil, fmt.Errorf("starting transaction: %w", err)
 	}
-	now := time.Now().UTC()
-	get := func(lead int) *driftRow {
-		r := states[lead]
-		if r == nil || r.version != bm.version {
-			// A new baseline version starts its detectors afresh.
-			r = &driftRow{lead: lead, version: bm.version, since: now, dirty: true}
-			states[lead] = r
+	c := &DriftClaim{tx: tx, ids: map[string]int64{}}
+	ok := false
+	defer func() {
+		if !ok {
+			c.Release(ctx)
 		}
-		return r
-	}
-	var events []DriftEvent
-	emit := func(r *driftRow, origin time.Time, t scoring.Transition, n int) {
-		if !t.Changed {
-			return
-		}
-		ev := DriftEvent{Time: now, Series: se.Key, Model: model, Lead: r.lead, Origin: origin, Metric: t.Metric,
-			Previous: t.From, State: t.To, Value: math.NaN(), Limit: math.NaN(), BandLower: math.NaN(), BandUpper: math.NaN(),
-			WindowN: n, KEff: math.NaN(), BaselineVersion: bm.version}
-		// The band beside the value: the MAE's 95% band, or the ME's 99%
-		// band it was judged against; none for a change without a metric.
-		switch {
-		case t.Metric == "me" && r.snap.MEAlarmLower != nil:
-			ev.BandLower, ev.BandUpper = *r.snap.MEAlarmLower, *r.snap.MEAlarmUpper
-		case t.Metric == "mae" && r.snap.MAEBandLower != nil:
-			ev.BandLower, ev.BandUpper = *r.snap.MAEBandLower, *r.snap.MAEBandUpper
-		}
-		if t.Metric != "" {
-			ev.Value, ev.Limit, ev.KEff = t.Value, t.Limit, t.KEff
-		}
-		r.since = now
-		events = append(events, ev)
-	}
-
-	// Which leads to judge, and how far back the windows must reach.
-	leads := make([]int, 0, se.Horizon)
-	for h := 1; h <= se.Horizon; h++ {
-		leads = append(leads, h)
-	}
-	dec := se.Decision()
-	need := map[int]time.Time{} // lead → last evaluated origin (zero: never)
-	for _, h := range append([]int{0}, leads...) {
-		need[h] = get(h).lastOrigin
-	}
-	byLead, pooled, err := s.recentPairs(ctx, tx, se, model, need, dec)
+	}()
+	rows, err := tx.Query(ctx, `WITH c AS MATERIALIZED (
+			SELECT series_id, min(id) AS first FROM drift_marks GROUP BY series_id ORDER BY first LIMIT $1),
+		l AS MATERIALIZED (SELECT series_id, first, pg_try_advisory_xact_lock($2, series_id::int) AS got FROM c)
+		SELECT s.key FROM l JOIN series s ON s.id = l.series_id WHERE l.got ORDER BY l.first`, limit, lockClassDrift)
 	if err != nil {
-		return nil, err
+		return nil, fmt.Errorf("claiming drift marks: %w", err)
 	}
-
-	judge := func(r *driftRow, lb *leadBaseline, series []livePair, abs, bias, sq []float64) {
-		if lb == nil {
-			r.det.SetBaseline(scoring.Verdict{Reason: "no backtest pairs for this lead"})
-			r.snap = Snapshot{Reason: "no backtest pairs for this lead"}
-			r.dirty = true
-			return
-		}
-		if t := r.det.SetBaseline(lb.verdict); t.Changed {
-			emit(r, r.lastOrigin, t, 0)
-			r.snap.Reason = lb.verdict.Reason
-			r.dirty = true
-		}
-		if !lb.verdict.Usable {
-			return
-		}
-		for i, p := range series {
-			if !p.origin.After(r.lastOrigin) {
-				continue
-			}
-			lo := max(0, i-WindowN+1)
-			var sa, sb, ss float64
-			for j := lo; j <= i; j++ {
-				sa += abs[j]
-				sb += bias[j]
-				if sq != nil {
-					ss += sq[j]
-				}
-			}
-			n := i - lo + 1
-			mae, me, rmse := sa/float64(n), sb/float64(n), math.NaN()
-			if sq != nil {
-				rmse = math.Sqrt(ss / float64(n))
-			}
-			bMAE, bRMSE, bME := lb.band(n)
-			r.snap = snapshotOf(n, mae, me, rmse, bMAE, bRMSE, bME)
-			t := r.det.Observe(scoring.Evaluation{N: n, MAE: mae, ME: me, MAEBand: bMAE, MEBand: bME})
-			emit(r, p.origin, t, n)
-			r.lastOrigin, r.dirty = p.origin, true
-		}
+	keys, err := pgx.CollectRows(rows, pgx.RowTo[string])
+	if err != nil {
+		return nil, fmt.Errorf("claiming drift marks: %w", err)
 	}
-	for _, h := range leads {
-		ps := byLead[h]
-		abs, bias, sq := make([]float64, len(ps)), make([]float64, len(ps)), make([]float64, len(ps))
-		for i, p := range ps {
-			abs[i], bias[i], sq[i] = math.Abs(p.e), p.e, p.e*p.e
-		}
-		judge(get(h), bm.leads[h], ps, abs, bias, sq)
+	if len(keys) == 0 {
+		return nil, nil
 	}
-	abs, bias := make([]float64, len(pooled)), make([]float64, len(pooled))
-	ps := make([]livePair, len(pooled))
-	for i, p := range pooled {
-		ps[i], abs[i], bias[i] = livePair{origin: p.origin}, p.abs, p.bias
-	}
-	judge(get(0), bm.pooled, ps, abs, bias, nil)
-
-	if err := saveDriftRows(ctx, tx, se, model, states, now); err != nil {
-		return nil, err
-	}
-	if len(events) > 0 {
-		if err := insertEvents(ctx, tx, se, events); err != nil {
+	byID := map[int64]*ClaimedSeries{}
+	ids := make([]int64, 0, len(keys))
+	for _, k := range keys {
+		se, err := s.seriesByKey(ctx, k)
+		if err != nil {
 			return nil, err
 		}
+		cs := &ClaimedSeries{Series: se, States: map[string][]DriftStatus{}}
+		c.Series = append(c.Series, cs)
+		byID[se.ID], c.ids[se.Key] = cs, se.ID
+		ids = append(ids, se.ID)
+	}
+	if err := c.readClaimed(ctx, ids, byID); err != nil {
+		return nil, err
+	}
+	ok = true
+	return c, nil
+}
+
+// readClaimed reads the marks, active baselines and states of the claimed
+// series in one round trip.
+func (c *DriftClaim) readClaimed(ctx context.Context, ids []int64, byID map[int64]*ClaimedSeries) error {
+	b := &pgx.Batch{}
+	b.Queue(`SELECT id, series_id, coalesce(model, ''), from_origin, cause = 'baseline', created_at FROM drift_marks
+		WHERE series_id = ANY($1) ORDER BY id`, ids).Query(func(rows pgx.Rows) error {
+		var m DriftMark
+		var id int64
+		var from pgtype.Timestamptz
+		_, err := pgx.ForEachRow(rows, []any{&m.ID, &id, &m.Model, &from, &m.Baseline, &m.Created}, func() error {
+			m.From = from.Time
+			byID[id].Marks = append(byID[id].Marks, m)
+			c.marks = append(c.marks, m.ID)
+			return nil
+		})
+		return err
+	})
+	b.Queue(`SELECT DISTINCT ON (series_id, model) series_id, model, version, last_origin FROM baselines
+		WHERE series_id = ANY($1) ORDER BY series_id, model, version DESC`, ids).Query(func(rows pgx.Rows) error {
+		var a ActiveBaseline
+		var id int64
+		_, err := pgx.ForEachRow(rows, []any{&id, &a.Model, &a.Version, &a.LastOrigin}, func() error {
+			byID[id].Baselines = append(byID[id].Baselines, a)
+			return nil
+		})
+		return err
+	})
+	b.Queue(statesQuery+` WHERE d.series_id = ANY($1) ORDER BY d.series_id, d.model, d.lead`, ids).Query(func(rows pgx.Rows) error {
+		return scanStates(rows, func(id int64, st DriftStatus) {
+			byID[id].States[st.Model] = append(byID[id].States[st.Model], st)
+		})
+	})
+	if err := c.tx.SendBatch(ctx, b).Close(); err != nil {
+		return fmt.Errorf("reading claimed drift marks: %w", err)
+	}
+	return nil
+}
+
+// Release gives the claim up: its marks stay for the next evaluation.
+func (c *DriftClaim) Release(ctx context.Context) {
+	_ = c.tx.Rollback(context.WithoutCancel(ctx))
+}
+
+// CheckpointQuery asks for the newest checkpoint of a (series, model) and
+// baseline version at an origin before Before.
+type CheckpointQuery struct {
+	Series  *Series
+	Model   string
+	Version int
+	Before  time.Time
+}
+
+// Checkpoints answers the queries in order; a checkpoint with nil Leads
+// means none is stored (start from the beginning).
+func (c *DriftClaim) Checkpoints(ctx context.Context, qs []CheckpointQuery) ([]scoring.Checkpoint, error) {
+	out := make([]scoring.Checkpoint, len(qs))
+	if len(qs) == 0 {
+		return out, nil
+	}
+	idx, ids, models, versions, before := make([]int, len(qs)), make([]int64, len(qs)), make([]string, len(qs)), make([]int, len(qs)), make([]time.Time, len(qs))
+	for i, q := range qs {
+		idx[i], ids[i], models[i], versions[i], before[i] = i, q.Series.ID, q.Model, q.Version, q.Before
+	}
+	rows, err := c.tx.Query(ctx, `SELECT r.i, k.checkpoint FROM unnest($1::int[], $2::bigint[], $3::text[], $4::int[], $5::timestamptz[])
+			AS r(i, series_id, model, version, before)
+		JOIN LATERAL (SELECT checkpoint FROM drift_checkpoints k WHERE k.series_id = r.series_id AND k.model = r.model
+			AND k.baseline_version = r.version AND k.origin < r.before ORDER BY k.origin DESC LIMIT 1) k ON true`,
+		idx, ids, models, versions, before)
+	if err != nil {
+		return nil, fmt.Errorf("reading drift checkpoints: %w", err)
+	}
+	var i int
+	var raw []byte
+	_, err = pgx.ForEachRow(rows, []any{&i, &raw}, func() error {
+		return json.Unmarshal(raw, &out[i])
+	})
+	if err != nil {
+		return nil, fmt.Errorf("reading drift checkpoints: %w", err)
+	}
+	return out, nil
+}
+
+// PairsQuery asks for the scored pairs of a (series, model) at origins
+// from From on.
+type PairsQuery struct {
+	Series *Series
+	Model  string
+	From   time.Time
+}
+
+// ScoredPairs answers the queries in order: the scored pairs (late values
+// left out) sorted by origin and lead, read through the primary keys in
+// two round trips for all queries.
+func (c *DriftClaim) ScoredPairs(ctx context.Context, qs []PairsQuery) ([][]scoring.Pair, error) {
+	return scoredPairs(ctx, c.tx, qs)
+}
+
+// ScoredPairs is [DriftClaim.ScoredPairs] outside a claim, for reads.
+func (s *Store) ScoredPairs(ctx context.Context, qs []PairsQuery) ([][]scoring.Pair, error) {
+	return scoredPairs(ctx, s.pool, qs)
+}
+
+func scoredPairs(ctx context.Context, q querier, qs []PairsQuery) ([][]scoring.Pair, error) {
+	out := make([][]scoring.Pair, len(qs))
+	if len(qs) == 0 {
+		return out, nil
+	}
+	idx, ids, models, from := make([]int, len(qs)), make([]int64, len(qs)), make([]string, len(qs)), make([]time.Time, len(qs))
+	for i, p := range qs {
+		idx[i], ids[i], models[i], from[i] = i, p.Series.ID, p.Model, orMin(p.From)
+	}
+	// OFFSET 0 keeps each lateral subquery a range probe of the primary
+	// key (see completedQuery).
+	rows, err := q.Query(ctx, `SELECT r.i, f.origin, f.vals, f.late
+		FROM unnest($1::int[], $2::bigint[], $3::text[], $4::timestamptz[]) AS r(i, series_id, model, lo)
+		JOIN LATERAL (SELECT origin, vals, late FROM forecasts f
+			WHERE f.series_id = r.series_id AND f.model = r.model AND f.origin >= r.lo OFFSET 0) f ON true`, idx, ids, models, from)
+	if err != nil {
+		return nil, fmt.Errorf("reading forecasts: %w", err)
+	}
+	vecs := make([][]storedForecast, len(qs))
+	var i int
+	var f storedForecast
+	var vals []pgtype.Float8
+	if _, err := pgx.ForEachRow(rows, []any{&i, &f.origin, &vals, &f.late}, func() error {
+		f.vals = fromFloat8(vals)
+		vecs[i] = append(vecs[i], f)
+		f = storedForecast{}
+		return nil
+	}); err != nil {
+		return nil, fmt.Errorf("reading forecasts: %w", err)
+	}
+	acts, err := actualsFor(ctx, q, qs, vecs)
+	if err != nil {
+		return nil, err
+	}
+	for i, p := range qs {
+		slices.SortFunc(vecs[i], func(a, b storedForecast) int { return a.origin.Compare(b.origin) })
+		out[i] = pairUp(p.Series, vecs[i], acts[p.Series.ID])
+	}
+	return out, nil
+}
+
+// actualsFor reads, per series, the actuals the vectors' targets can meet.
+func actualsFor(ctx context.Context, q querier, qs []PairsQuery, vecs [][]storedForecast) (map[int64]map[int64]float64, error) {
+	type span struct{ lo, hi time.Time }
+	spans := map[int64]*span{}
+	for i, p := range qs {
+		if len(vecs[i]) == 0 {
+			continue
+		}
+		lo, hi := vecs[i][0].origin, vecs[i][0].origin
+		for _, f := range vecs[i] {
+			lo, hi = minTimeOf(lo, f.origin), maxTimeOf(hi, f.origin)
+		}
+		hi = p.Series.step.Add(hi, p.Series.Horizon)
+		if sp := spans[p.Series.ID]; sp == nil {
+			spans[p.Series.ID] = &span{lo, hi}
+		} else {
+			sp.lo, sp.hi = minTimeOf(sp.lo, lo), maxTimeOf(sp.hi, hi)
+		}
+	}
+	out := map[int64]map[int64]float64{}
+	if len(spans) == 0 {
+		return out, nil
+	}
+	ids, los, his := make([]int64, 0, len(spans)), make([]time.Time, 0, len(spans)), make([]time.Time, 0, len(spans))
+	for id, sp := range spans {
+		ids, los, his = append(ids, id), append(los, sp.lo), append(his, sp.hi)
+		out[id] = map[int64]float64{}
+	}
+	rows, err := q.Query(ctx, `SELECT a.series_id, a.time, a.value FROM unnest($1::bigint[], $2::timestamptz[], $3::timestamptz[]) AS r(series_id, lo, hi)
+		JOIN LATERAL (SELECT series_id, time, value FROM actuals a
+			WHERE a.series_id = r.series_id AND a.time > r.lo AND a.time <= r.hi OFFSET 0) a ON true`, ids, los, his)
+	if err != nil {
+		return nil, fmt.Errorf("reading actuals: %w", err)
+	}
+	var id int64
+	var t time.Time
+	var v float64
+	if _, err := pgx.ForEachRow(rows, []any{&id, &t, &v}, func() error {
+		out[id][t.UnixNano()] = v
+		return nil
+	}); err != nil {
+		return nil, fmt.Errorf("reading actuals: %w", err)
+	}
+	return out, nil
+}
+
+// pairUp matches vectors (in origin order) with actuals: the scored pairs
+// of method.md §3, late values left out.
+func pairUp(se *Series, vecs []storedForecast, acts map[int64]float64) []scoring.Pair {
+	var out []scoring.Pair
+	for _, f := range vecs {
+		for i, x := range f.vals {
+			if math.IsNaN(x) || i < len(f.late) && f.late[i] {
+				continue
+			}
+			y, ok := acts[se.step.Add(f.origin, i+1).UnixNano()]
+			if !ok {
+				continue
+			}
+			out = append(out, scoring.Pair{Origin: f.origin, Lead: i + 1, Forecast: x, Actual: y})
+		}
+	}
+	return out
+}
+
+func minTimeOf(a, b time.Time) time.Time {
+	if b.Before(a) {
+		return b
+	}
+	return a
+}
+
+func maxTimeOf(a, b time.Time) time.Time {
+	if b.After(a) {
+		return b
+	}
+	return a
+}
+
+// CheckpointWrite replaces a (series, model)'s checkpoints after After
+// (and every one of another baseline version) by New, then keeps the
+// newest and, of those whose Seq is a multiple of Every, the newest Keep.
+type CheckpointWrite struct {
+	Series  *Series
+	Model   string
+	Version int
+	After   time.Time // zero: replace all
+	New     []scoring.Checkpoint
+	Every   int
+	Keep    int
+}
+
+// DriftWrite is what an evaluation of claimed series stores.
+type DriftWrite struct {
+	States      []DriftStatus
+	Checkpoints []CheckpointWrite
+	Events      []DriftEvent // Seq is set on commit
+	Now         time.Time    // updated_at of the states
+}
+
+// Commit stores w, removes the claimed marks and commits, all in one
+// transaction. It returns the events with their sequence numbers.
+func (c *DriftClaim) Commit(ctx context.Context, w DriftWrite) ([]DriftEvent, error) {
+	defer c.Release(ctx)
+	b := &pgx.Batch{}
+	if err := c.queueStates(b, w.States, w.Now); err != nil {
+		return nil, err
+	}
+	if err := c.queueCheckpoints(b, w.Checkpoints); err != nil {
+		return nil, err
+	}
+	events := slices.Clone(w.Events)
+	if len(events) > 0 {
+		// Held to commit, this lock makes event sequence numbers become
+		// visible in order, so a watcher reading "everything after seq s"
+		// can never skip one committed later.
+		b.Queue("SELECT pg_advisory_xact_lock($1, $2)", lockClass, lockEvents)
+		for i := range events {
+			c.queueEvent(b, &events[i])
+		}
+	}
+	b.Queue(`DELETE FROM drift_marks WHERE id = ANY($1)`, c.marks)
+	if err := c.tx.SendBatch(ctx, b).Close(); err != nil {
+		return nil, fmt.Errorf("storing drift evaluation: %w", err)
+	}
+	if err := c.tx.Commit(ctx); err != nil {
+		return nil, fmt.Errorf("committing drift evaluation: %w", err)
 	}
 	return events, nil
 }
 
-func snapshotOf(n int, mae, me, rmse float64, bMAE, bRMSE, bME scoring.Band) Snapshot {
-	snap := Snapshot{WindowN: n, MAE: fin(mae), ME: fin(me), MAEExpected: fin(bMAE.Expected), MAEBandLower: fin(bMAE.Lower),
-		MAEBandUpper: fin(bMAE.Upper), MAEAlarmLimit: fin(bMAE.AlarmUpper), MEExpected: fin(bME.Expected),
-		MEBandLower: fin(bME.Lower), MEBandUpper: fin(bME.Upper),
-		MEAlarmLower: fin(bME.AlarmLower), MEAlarmUpper: fin(bME.AlarmUpper), KEff: fin(bMAE.KEff)}
-	if bRMSE.Metric != "" {
-		snap.RMSE, snap.RMSEExpected, snap.RMSEBandLower = fin(rmse), fin(bRMSE.Expected), fin(bRMSE.Lower)
-		snap.RMSEBandUpper, snap.RMSEAlarmLimit = fin(bRMSE.Upper), fin(bRMSE.AlarmUpper)
-	}
-	if mae > bMAE.AlarmUpper {
-		snap.Breached = append(snap.Breached, "mae")
-	}
-	if me < bME.AlarmLower || me > bME.AlarmUpper {
-		snap.Breached = append(snap.Breached, "me")
-	}
-	return snap
-}
-
-type pooledPoint struct {
-	origin    time.Time
-	abs, bias float64
-}
-
-// recentPairs reads the scored (non-late) pairs of (series, model) per
-// lead, newest first until every lead has WindowN pairs at or before its
-// last evaluated origin (so that every new origin's window is complete), and
-// the pooled decision-lead points likewise. Results are in origin order.
-func (s *Store) recentPairs(ctx context.Context, q querier, se *Series, model string, last map[int]time.Time, dec []int) (map[int][]livePair, []pooledPoint, error) {
-	byLead := map[int][]livePair{}
-	var pooled []pooledPoint
-	older := map[int]int{} // lead → pairs found at or before its last origin
-	// A lead never evaluated replays at most the first chunk of history,
-	// so that a lead production never sends does not make every
-	// evaluation read all of it.
-	firstChunk, fresh := true, false
-	for _, t := range last {
-		fresh = fresh || t.IsZero()
-	}
-	done := func() bool {
-		if firstChunk && fresh {
-			return false
-		}
-		for h, t := range last {
-			if !t.IsZero() && older[h] < WindowN {
-				return false
-			}
-		}
-		return true
-	}
-	hi := time.Time{}
-	for {
-		fs, err := readForecastsQ(ctx, q, se.ID, model, time.Time{}, hi, true)
-		if err != nil {
-			return nil, nil, err
-		}
-		if len(fs) == 0 {
-			break
-		}
-		tlo, thi := fs[len(fs)-1].origin, fs[0].origin
-		thi = se.step.Add(thi, se.Horizon)
-		acts, err := readActualsQ(ctx, q, se.ID, tlo, thi)
-		if err != nil {
-			return nil, nil, err
-		}
-		stop := false
-		for _, f := range fs {
-			errs := map[int]float64{}
-			for i, x := range f.vals {
-				h := i + 1
-				if math.IsNaN(x) || (f.late != nil && i < len(f.late) && f.late[i]) {
-					continue
-				}
-				a, ok := acts[se.step.Add(f.origin, h).UnixNano()]
-				if !ok {
-					continue
-				}
-				e := a.value - x
-				errs[h] = e
-				byLead[h] = append(byLead[h], livePair{f.origin, e})
-				if lt, ok := last[h]; ok && !lt.IsZero() && !f.origin.After(lt) {
-					older[h]++
-				}
-			}
-			complete := true
-			var sa, sb float64
-			for _, h := range dec {
-				e, ok := errs[h]
-				if !ok {
-					complete = false
-					break
-				}
-				sa += math.Abs(e)
-				sb += e
-			}
-			if complete {
-				n := float64(len(dec))
-				pooled = append(pooled, pooledPoint{f.origin, sa / n, sb / n})
-				if lt := last[0]; !lt.IsZero() && !f.origin.After(lt) {
-					older[0]++
-				}
-			}
-			if done() {
-				stop = true
-				break
-			}
-		}
-		firstChunk = false
-		if stop || done() || len(fs) < chunkOrigins {
-			break
-		}
-		hi = fs[len(fs)-1].origin
-	}
-	for h := range byLead {
-		slices.Reverse(byLead[h])
-	}
-	slices.Reverse(pooled)
-	return byLead, pooled, nil
-}
-
-func loadDriftRows(ctx context.Context, q querier, se *Series, model string) (map[int]*driftRow, error) {
-	rows, err := q.Query(ctx, `SELECT lead, baseline_version, machine, snapshot, state_since, last_origin
-		FROM drift_states WHERE series_id = $1 AND model = $2`, se.ID, model)
-	if err != nil {
-		return nil, fmt.Errorf("reading drift states: %w", err)
-	}
-	defer rows.Close()
-	out := map[int]*driftRow{}
-	for rows.Next() {
-		r := &driftRow{}
-		var machine, snap []byte
-		var last pgtype.Timestamptz
-		if err := rows.Scan(&r.lead, &r.version, &machine, &snap, &r.since, &last); err != nil {
-			return nil, fmt.Errorf("reading drift states: %w", err)
-		}
-		if err := json.Unmarshal(machine, &r.det); err != nil {
-			return nil, fmt.Errorf("drift state machine: %w", err)
-		}
-		if err := json.Unmarshal(snap, &r.snap); err != nil {
-			return nil, fmt.Errorf("drift snapshot: %w", err)
-		}
-		r.lastOrigin = last.Time
-		out[r.lead] = r
-	}
-	return out, rows.Err()
-}
-
-func saveDriftRows(ctx context.Context, tx pgx.Tx, se *Series, model string, states map[int]*driftRow, now time.Time) error {
-	var leads, versions []int
-	var stateNames []string
-	var machines, snaps [][]byte
-	var since []time.Time
-	var lasts []pgtype.Timestamptz
-	for _, r := range states {
-		if !r.dirty {
-			continue
-		}
-		m, err := json.Marshal(r.det)
-		if err != nil {
-			return err
-		}
-		sn, err := json.Marshal(r.snap)
-		if err != nil {
-			return err
-		}
-		state := r.det.State
-		if state == "" {
-			state = scoring.StateInsufficientData
-		}
-		leads, versions, stateNames = append(leads, r.lead), append(versions, r.version), append(stateNames, string(state))
-		machines, snaps, since = append(machines, m), append(snaps, sn), append(since, r.since)
-		lasts = append(lasts, pgtype.Timestamptz{Time: r.lastOrigin, Valid: !r.lastOrigin.IsZero()})
-	}
-	if len(leads) == 0 {
+func (c *DriftClaim) queueStates(b *pgx.Batch, sts []DriftStatus, now time.Time) error {
+	if len(sts) == 0 {
 		return nil
 	}
-	_, err := tx.Exec(ctx, `INSERT INTO drift_states (series_id, model, lead, baseline_version, state, state_since, machine, snapshot, last_origin, updated_at)
-		SELECT $1, $2, u.lead, u.version, u.state, u.since, u.machine, u.snap, u.last_origin, $10
-		FROM unnest($3::int[], $4::int[], $5::text[], $6::timestamptz[], $7::jsonb[], $8::jsonb[], $9::timestamptz[])
-			AS u(lead, version, state, since, machine, snap, last_origin)
+	n := len(sts)
+	ids, models, leads, versions, states := make([]int64, n), make([]string, n), make([]int, n), make([]int, n), make([]string, n)
+	noticed, onsets, lasts, snaps := make([]time.Time, n), make([]pgtype.Timestamptz, n), make([]pgtype.Timestamptz, n), make([][]byte, n)
+	for i, st := range sts {
+		snap, err := json.Marshal(st.Snapshot)
+		if err != nil {
+			return err
+		}
+		ids[i], models[i], leads[i], versions[i], states[i] = c.ids[st.Series], st.Model, st.Lead, st.BaselineVersion, string(st.State)
+		noticed[i], snaps[i] = st.Noticed, snap
+		onsets[i] = pgtype.Timestamptz{Time: st.Onset, Valid: !st.Onset.IsZero()}
+		lasts[i] = pgtype.Timestamptz{Time: st.LastOrigin, Valid: !st.LastOrigin.IsZero()}
+	}
+	b.Queue(`INSERT INTO drift_states (series_id, model, lead, baseline_version, state, noticed_at, onset_origin, last_origin, snapshot, updated_at)
+		SELECT u.series_id, u.model, u.lead, u.version, u.state, u.noticed, u.onset, u.last_origin, u.snap, $10
+		FROM unnest($1::bigint[], $2::text[], $3::int[], $4::int[], $5::text[], $6::timestamptz[], $7::timestamptz[], $8::timestamptz[], $9::jsonb[])
+			AS u(series_id, model, lead, version, state, noticed, onset, last_origin, snap)
 		ON CONFLICT (series_id, model, lead) DO UPDATE SET baseline_version = excluded.baseline_version, state = excluded.state,
-			state_since = excluded.state_since, machine = excluded.machine, snapshot = excluded.snapshot,
-			last_origin = excluded.last_origin, updated_at = excluded.updated_at`,
-		se.ID, model, leads, versions, stateNames, since, machines, snaps, lasts, now)
-	if err != nil {
-		return fmt.Errorf("storing drift states: %w", err)
+			noticed_at = excluded.noticed_at, onset_origin = excluded.onset_origin, last_origin = excluded.last_origin,
+			snapshot = excluded.snapshot, updated_at = excluded.updated_at`,
+		ids, models, leads, versions, states, noticed, onsets, lasts, snaps, now)
+	return nil
+}
+
+func (c *DriftClaim) queueCheckpoints(b *pgx.Batch, ws []CheckpointWrite) error {
+	for _, w := range ws {
+		b.Queue(`DELETE FROM drift_checkpoints WHERE series_id = $1 AND model = $2 AND (origin > $3 OR baseline_version <> $4)`,
+			w.Series.ID, w.Model, orMin(w.After), w.Version)
+		if len(w.New) == 0 {
+			continue
+		}
+		origins, seqs, raws := make([]time.Time, len(w.New)), make([]int, len(w.New)), make([][]byte, len(w.New))
+		for i, cp := range w.New {
+			raw, err := json.Marshal(cp)
+			if err != nil {
+				return err
+			}
+			origins[i], seqs[i], raws[i] = cp.Origin, cp.Seq, raw
+		}
+		b.Queue(`INSERT INTO drift_checkpoints (series_id, model, origin, baseline_version, seq, checkpoint)
+			SELECT $1, $2, u.origin, $3, u.seq, u.cp FROM unnest($4::timestamptz[], $5::int[], $6::jsonb[]) AS u(origin, seq, cp)
+			ON CONFLICT (series_id, model, origin) DO UPDATE SET baseline_version = excluded.baseline_version,
+				seq = excluded.seq, checkpoint = excluded.checkpoint`,
+			w.Series.ID, w.Model, w.Version, origins, seqs, raws)
+		b.Queue(`DELETE FROM drift_checkpoints d WHERE d.series_id = $1 AND d.model = $2
+			AND d.origin < (SELECT max(origin) FROM drift_checkpoints x WHERE x.series_id = $1 AND x.model = $2)
+			AND (d.seq % $3 <> 0 OR d.origin <= coalesce((SELECT origin FROM drift_checkpoints x
+				WHERE x.series_id = $1 AND x.model = $2 AND x.seq % $3 = 0 ORDER BY origin DESC OFFSET $4 LIMIT 1), '-infinity'))`,
+			w.Series.ID, w.Model, max(w.Every, 1), w.Keep)
 	}
 	return nil
+}
+
+func (c *DriftClaim) queueEvent(b *pgx.Batch, ev *DriftEvent) {
+	var lead any
+	if ev.Lead > 0 {
+		lead = ev.Lead
+	}
+	b.Queue(`INSERT INTO drift_events (series_id, model, lead, event_time, origin_time, cause, metric, previous, state,
+			value, limit_value, band_lower, band_upper, window_n, k_eff, baseline_version)
+		VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9, $10, $11, $12, $13, $14, $15, $16) RETURNING seq`,
+		c.ids[ev.Series], ev.Model, lead, ev.Time, ev.Origin, string(ev.Cause), string(ev.Metric), string(ev.Previous), string(ev.State),
+		nullable(ev.Value), nullable(ev.Limit), nullable(ev.BandLower), nullable(ev.BandUpper), ev.WindowN, nullable(ev.KEff),
+		ev.BaselineVersion).QueryRow(func(row pgx.Row) error { return row.Scan(&ev.Seq) })
 }
 
 func nullable(x float64) any {
@@ -619,27 +529,25 @@ func nullable(x float64) any {
 	return x
 }
 
-func insertEvents(ctx context.Context, tx pgx.Tx, se *Series, events []DriftEvent) error {
-	// Held to commit, this lock makes event sequence numbers become visible
-	// in order, so a watcher reading "everything after seq s" can never skip
-	// one committed later.
-	if _, err := tx.Exec(ctx, "SELECT pg_advisory_xact_lock($1, $2)", lockClass, lockEvents); err != nil {
-		return fmt.Errorf("taking the events lock: %w", err)
-	}
-	for i := range events {
-		ev := &events[i]
-		var lead any
-		if ev.Lead > 0 {
-			lead = ev.Lead
+const statesQuery = `SELECT d.series_id, s.key, d.model, d.lead, d.baseline_version, d.state, d.noticed_at, d.onset_origin, d.last_origin, d.snapshot
+	FROM drift_states d JOIN series s ON s.id = d.series_id`
+
+func scanStates(rows pgx.Rows, each func(id int64, st DriftStatus)) error {
+	var st DriftStatus
+	var id int64
+	var state string
+	var onset, last pgtype.Timestamptz
+	var snap []byte
+	_, err := pgx.ForEachRow(rows, []any{&id, &st.Series, &st.Model, &st.Lead, &st.BaselineVersion, &state, &st.Noticed, &onset, &last, &snap}, func() error {
+		st.State, st.Onset, st.LastOrigin, st.Snapshot = scoring.State(state), onset.Time, last.Time, Snapshot{}
+		if err := json.Unmarshal(snap, &st.Snapshot); err != nil {
+			return fmt.Errorf("drift snapshot: %w", err)
 		}
-		err := tx.QueryRow(ctx, `INSERT INTO drift_events (series_id, model, lead, event_time, origin_time, metric, previous, state,
-				value, limit_value, band_lower, band_upper, window_n, k_eff, baseline_version)
-			VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9, $10, $11, $12, $13, $14, $15) RETURNING seq`,
-			se.ID, ev.Model, lead, ev.Time, ev.Origin, ev.Metric, string(ev.Previous), string(ev.State),
-			nullable(ev.Value), nullable(ev.Limit), nullable(ev.BandLower), nullable(ev.BandUpper), ev.WindowN, nullable(ev.KEff), ev.BaselineVersion).Scan(&ev.Seq)
-		if err != nil {
-			return fmt.Errorf("storing drift event: %w", err)
-		}
+		each(id, st)
+		return nil
+	})
+	if err != nil {
+		return fmt.Errorf("reading drift states: %w", err)
 	}
 	return nil
 }
@@ -648,61 +556,57 @@ func insertEvents(ctx context.Context, tx pgx.Tx, se *Series, events []DriftEven
 // model ("" = all), ordered by series key, model, lead (series-level 0
 // first).
 func (s *Store) DriftStates(ctx context.Context, seriesKey, model string) ([]DriftStatus, error) {
-	rows, err := s.pool.Query(ctx, `SELECT s.key, d.model, d.lead, d.baseline_version, d.state, d.state_since, d.last_origin, d.snapshot
-		FROM drift_states d JOIN series s ON s.id = d.series_id
-		WHERE ($1 = '' OR s.key = $1) AND ($2 = '' OR d.model = $2)
+	rows, err := s.pool.Query(ctx, statesQuery+` WHERE ($1 = '' OR s.key = $1) AND ($2 = '' OR d.model = $2)
 		ORDER BY s.key, d.model, d.lead`, seriesKey, model)
 	if err != nil {
 		return nil, fmt.Errorf("reading drift states: %w", err)
 	}
-	defer rows.Close()
 	var out []DriftStatus
-	for rows.Next() {
-		var st DriftStatus
-		var state string
-		var last pgtype.Timestamptz
-		var snap []byte
-		if err := rows.Scan(&st.Series, &st.Model, &st.Lead, &st.BaselineVersion, &state, &st.Since, &last, &snap); err != nil {
-			return nil, fmt.Errorf("reading drift states: %w", err)
-		}
-		st.State, st.LastOrigin = scoring.State(state), last.Time
-		if err := json.Unmarshal(snap, &st.Snapshot); err != nil {
-			return nil, err
-		}
-		out = append(out, st)
-	}
-	return out, rows.Err()
+	err = scanStates(rows, func(_ int64, st DriftStatus) { out = append(out, st) })
+	return out, err
 }
 
-// DriftEvents lists events after sequence number after (0: from the
-// start), optionally filtered, oldest first, at most limit.
-func (s *Store) DriftEvents(ctx context.Context, seriesKey, model string, since time.Time, after int64, limit int) ([]DriftEvent, error) {
-	if limit <= 0 || limit > 10000 {
-		limit = 10000
+// EventFilter selects drift events: after sequence number After (0: from
+// the start), of one series and model ("" = all), recorded at or after
+// Since, with onset origins in [OriginFrom, OriginTo) (zero: open), at
+// most Limit (0 or more than 10 000: 10 000).
+type EventFilter struct {
+	Series, Model        string
+	Since                time.Time
+	OriginFrom, OriginTo time.Time
+	After                int64
+	Limit                int
+}
+
+// DriftEvents lists the selected events, oldest first (commit order).
+func (s *Store) DriftEvents(ctx context.Context, f EventFilter) ([]DriftEvent, error) {
+	if f.Limit <= 0 || f.Limit > 10000 {
+		f.Limit = 10000
 	}
-	rows, err := s.pool.Query(ctx, `SELECT e.seq, e.event_time, s.key, e.model, coalesce(e.lead, 0), e.origin_time, e.metric, e.previous, e.state,
-			e.value, e.limit_value, e.band_lower, e.band_upper, e.window_n, e.k_eff, e.baseline_version
+	rows, err := s.pool.Query(ctx, `SELECT e.seq, e.event_time, s.key, e.model, coalesce(e.lead, 0), e.origin_time, e.cause, e.metric,
+			e.previous, e.state, e.value, e.limit_value, e.band_lower, e.band_upper, e.window_n, e.k_eff, e.baseline_version
 		FROM drift_events e JOIN series s ON s.id = e.series_id
 		WHERE e.seq > $1 AND ($2 = '' OR s.key = $2) AND ($3 = '' OR e.model = $3) AND e.event_time >= $4
-		ORDER BY e.seq LIMIT $5`, after, seriesKey, model, orMin(since), limit)
+			AND e.origin_time >= $5 AND e.origin_time < $6
+		ORDER BY e.seq LIMIT $7`, f.After, f.Series, f.Model, orMin(f.Since), orMin(f.OriginFrom), orMax(f.OriginTo), f.Limit)
 	if err != nil {
 		return nil, fmt.Errorf("reading drift events: %w", err)
 	}
-	defer rows.Close()
 	var out []DriftEvent
-	for rows.Next() {
-		var ev DriftEvent
-		var prev, state string
-		var value, limit, lo, hi, keff *float64
-		if err := rows.Scan(&ev.Seq, &ev.Time, &ev.Series, &ev.Model, &ev.Lead, &ev.Origin, &ev.Metric, &prev, &state,
-			&value, &limit, &lo, &hi, &ev.WindowN, &keff, &ev.BaselineVersion); err != nil {
-			return nil, fmt.Errorf("reading drift events: %w", err)
-		}
-		ev.Previous, ev.State = scoring.State(prev), scoring.State(state)
+	var ev DriftEvent
+	var cause, metric, prev, state string
+	var value, limit, lo, hi, keff *float64
+	_, err = pgx.ForEachRow(rows, []any{&ev.Seq, &ev.Time, &ev.Series, &ev.Model, &ev.Lead, &ev.Origin, &cause, &metric, &prev, &state,
+		&value, &limit, &lo, &hi, &ev.WindowN, &keff, &ev.BaselineVersion}, func() error {
+		ev.Cause, ev.Metric, ev.Previous, ev.State = scoring.Cause(cause), scoring.Metric(metric), scoring.State(prev), scoring.State(state)
 		ev.Value, ev.Limit, ev.BandLower, ev.BandUpper, ev.KEff = orNaN(value), orNaN(limit), orNaN(lo), orNaN(hi), orNaN(keff)
 		out = append(out, ev)
+		return nil
+	})
+	if err != nil {
+		return nil, fmt.Errorf("reading drift events: %w", err)
 	}
-	return out, rows.Err()
+	return out, nil
 }
 
 // LastEventSeq is the sequence number of the newest committed event (0
@@ -722,139 +626,34 @@ func orNaN(p *float64) float64 {
 	return *p
 }
 
-// LeadView is what a baseline expects of one lead (Lead 0: the pooled
-// decision-lead quantity) for a live window of N origins.
-type LeadView struct {
-	Lead          int
-	K             int
-	KEff          float64
-	Expected      scoring.Metrics // every metric over the backtest pairs; zero for the pooled entry
-	MAE, RMSE, ME scoring.Band    // RMSE is zero for the pooled entry
-	Usable        bool
-	Reason        string
+// DriftBacklog is how many marks wait for evaluation and when the oldest
+// was written (zero when none waits).
+func (s *Store) DriftBacklog(ctx context.Context) (pending int64, oldest time.Time, err error) {
+	var t pgtype.Timestamptz
+	if err := s.pool.QueryRow(ctx, `SELECT count(*), min(created_at) FROM drift_marks`).Scan(&pending, &t); err != nil {
+		return 0, time.Time{}, fmt.Errorf("reading drift marks: %w", err)
+	}
+	return pending, t.Time, nil
 }
 
-func (lb *leadBaseline) view(lead, n int) LeadView {
-	mae, rmse, me := lb.band(n)
-	return LeadView{Lead: lead, K: lb.abs.K, KEff: lb.abs.KEff, Expected: lb.expected, MAE: mae, RMSE: rmse, ME: me,
-		Usable: lb.verdict.Usable, Reason: lb.verdict.Reason}
-}
+// markSQL inserts one data mark per series: $1 ids, $2 the first origin
+// whose pairs the write may have changed.
+const markSQL = `INSERT INTO drift_marks (series_id, from_origin, cause) SELECT u.id, u.t, 'data'
+	FROM unnest($1::bigint[], $2::timestamptz[]) AS u(id, t)`
 
-// BaselineView returns a baseline version's per-lead expectations, bands
-// and limits for a window of n origins, and the pooled entry (nil when no
-// backtest origin has every decision lead). version 0 is the active one.
-func (s *Store) BaselineView(ctx context.Context, key, model string, version, n int) (BaselineVersion, []LeadView, *LeadView, error) {
-	se, err := s.seriesByKey(ctx, key)
-	if err != nil {
-		return BaselineVersion{}, nil, nil, err
-	}
-	if n < 1 || n > s.limits.MaxWindow {
-		return BaselineVersion{}, nil, nil, invalid("window_n", "want 1 to %d origins", s.limits.MaxWindow)
-	}
-	b, err := s.baseline(ctx, s.pool, se, model, version)
-	if err != nil {
-		return BaselineVersion{}, nil, nil, err
-	}
-	if err := refreshShapeWarnings(ctx, s.pool, se, &b.BaselineVersion); err != nil {
-		return BaselineVersion{}, nil, nil, err
-	}
-	m := s.prepare(se, b)
-	var leads []LeadView
-	for _, l := range b.Leads {
-		leads = append(leads, m.leads[l.Lead].view(l.Lead, n))
-	}
-	var pooled *LeadView
-	if m.pooled != nil {
-		v := m.pooled.view(0, n)
-		pooled = &v
-	}
-	return b.BaselineVersion, leads, pooled, nil
-}
-
-// ActiveLeadViews is BaselineView of the active baseline keyed by lead,
-// for decorating live accuracy; nil when there is no baseline.
-func (s *Store) ActiveLeadViews(ctx context.Context, key, model string, ns map[int]int) (int, map[int]LeadView, error) {
-	se, err := s.seriesByKey(ctx, key)
-	if err != nil {
-		return 0, nil, err
-	}
-	m, err := s.activeBaseline(ctx, s.pool, se, model)
-	if err != nil || m == nil {
-		return 0, nil, err
-	}
-	out := map[int]LeadView{}
-	for h, n := range ns {
-		if lb := m.leads[h]; lb != nil && n >= 1 {
-			out[h] = lb.view(h, n)
+// markArgs are markSQL's arguments for actuals written at the given times
+// per series: an actual at time T is the target of origins T − H..T − 1
+// steps, so the first origin it can change is its series' horizon before
+// the earliest time.
+func markArgs(byID map[int64]*Series, times map[int64][]time.Time) []any {
+	ids, froms := make([]int64, 0, len(times)), make([]time.Time, 0, len(times))
+	for id, ts := range times {
+		if len(ts) == 0 {
+			continue
 		}
+		first := slices.MinFunc(ts, time.Time.Compare)
+		se := byID[id]
+		ids, froms = append(ids, id), append(froms, se.step.Add(first, -se.Horizon))
 	}
-	return m.version, out, nil
-}
-
-// ForecastFreshness is the newest production origin received for a
-// (series, model).
-type ForecastFreshness struct {
-	Series, Model string
-	LastOrigin    time.Time
-	ReceivedAt    time.Time
-	// OriginInterval is the usual gap between origins: the step times the
-	// active baseline's origin cadence, or the step when there is none.
-	OriginInterval time.Duration
-}
-
-// ActualFreshness is the newest actual received for a series.
-type ActualFreshness struct {
-	Series     string
-	LastTime   time.Time
-	ReceivedAt time.Time
-}
-
-// Freshness lists the newest origin per (series, model) and the newest
-// actual per series, ordered by series key (and model).
-func (s *Store) Freshness(ctx context.Context) ([]ForecastFreshness, []ActualFreshness, error) {
-	// The newest row per (series, model) and per series is one backward
-	// probe of the primary key each.
-	rows, err := s.pool.Query(ctx, `SELECT s.key, m.model, f.origin, f.received_at,
-			coalesce((SELECT b.origin_cadence_steps FROM baselines b WHERE b.series_id = m.series_id AND b.model = m.model
-				ORDER BY b.version DESC LIMIT 1), 1)
-		FROM series_models m JOIN series s ON s.id = m.series_id
-		CROSS JOIN LATERAL (SELECT origin, received_at FROM forecasts f WHERE f.series_id = m.series_id AND f.model = m.model
-			ORDER BY origin DESC LIMIT 1) f
-		ORDER BY s.key, m.model`)
-	if err != nil {
-		return nil, nil, fmt.Errorf("reading freshness: %w", err)
-	}
-	var fs []ForecastFreshness
-	for rows.Next() {
-		var f ForecastFreshness
-		var cadence int
-		if err := rows.Scan(&f.Series, &f.Model, &f.LastOrigin, &f.ReceivedAt, &cadence); err != nil {
-			rows.Close()
-			return nil, nil, fmt.Errorf("reading freshness: %w", err)
-		}
-		if se, err := s.seriesByKey(ctx, f.Series); err == nil {
-			f.OriginInterval = se.step.Add(f.LastOrigin, max(cadence, 1)).Sub(f.LastOrigin)
-		}
-		fs = append(fs, f)
-	}
-	rows.Close()
-	if err := rows.Err(); err != nil {
-		return nil, nil, err
-	}
-	rows, err = s.pool.Query(ctx, `SELECT s.key, a.time, a.received_at FROM series s
-		CROSS JOIN LATERAL (SELECT time, received_at FROM actuals a WHERE a.series_id = s.id ORDER BY time DESC LIMIT 1) a
-		ORDER BY s.key`)
-	if err != nil {
-		return nil, nil, fmt.Errorf("reading freshness: %w", err)
-	}
-	defer rows.Close()
-	var as []ActualFreshness
-	for rows.Next() {
-		var a ActualFreshness
-		if err := rows.Scan(&a.Series, &a.LastTime, &a.ReceivedAt); err != nil {
-			return nil, nil, fmt.Errorf("reading freshness: %w", err)
-		}
-		as = append(as, a)
-	}
-	return fs, as, rows.Err()
+	return []any{ids, froms}
 }

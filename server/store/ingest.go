@@ -708,6 +708,11 @@ func (s *Store) WriteActuals(ctx context.Context, as []Actual, firstIndex int) (
 				st.upd.ids, st.upd.times, st.upd.vals, st.upd.revs, now)
 		}
 		if b.Len() > 0 {
+			// What re-scores pairs must be re-judged: a mark per series,
+			// committed with the data.
+			b.Queue(markSQL, markArgs(byID, st.changed())...)
+		}
+		if b.Len() > 0 {
 			if err := tx.SendBatch(ctx, b).Close(); err != nil {
 				return fmt.Errorf("storing actuals: %w", err)
 			}
@@ -747,6 +752,17 @@ type settledActuals struct {
 	fresh    map[int64][]time.Time
 }
 
+// changed is the times the batch inserts or revises, by series.
+func (st *settledActuals) changed() map[int64][]time.Time {
+	out := map[int64][]time.Time{}
+	for _, r := range []actualRows{st.ins, st.upd} {
+		for i, id := range r.ids {
+			out[id] = append(out[id], r.times[i])
+		}
+	}
+	return out
+}
+
 func (r *actualRows) add(id int64, t time.Time, v float64, revs int32) {
 	r.ids, r.times, r.vals, r.revs = append(r.ids, id), append(r.times, t), append(r.vals, v), append(r.revs, revs)
 }
@@ -769,6 +785,7 @@ func tryNewActuals(ctx context.Context, tx pgx.Tx, ids []int64, st *settledActua
 	b.Queue("SAVEPOINT " + newActualsSavepoint)
 	b.Queue(insertActuals, st.ins.ids, st.ins.times, st.ins.vals, st.ins.revs, now)
 	b.Queue("RELEASE SAVEPOINT " + newActualsSavepoint)
+	b.Queue(markSQL, markArgs(byID, st.fresh)...)
 	q, args, count := completedQuery(byID, st.fresh)
 	b.Queue(q, args...)
 	br := tx.SendBatch(ctx, b)
@@ -792,6 +809,9 @@ func tryNewActuals(ctx context.Context, tx pgx.Tx, ids []int64, st *settledActua
 	}
 	if err == nil {
 		_, err = br.Exec() // release
+	}
+	if err == nil {
+		_, err = br.Exec() // drift marks
 	}
 	if err != nil {
 		br.Close()

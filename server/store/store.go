@@ -95,10 +95,6 @@ type Store struct {
 	series map[string]*Series
 	models map[modelKey]bool // (series, model) pairs known to be in series_models
 
-	// Prepared baseline versions; a version never changes once stored.
-	bmu       sync.Mutex
-	baselines map[baselineKey]*baselineModel
-
 	// actualsConflict is set when the last batch of actuals held a stored
 	// time: the next batch reads stored values first instead of trying an
 	// optimistic insert (see WriteActuals). A hint only; counts never depend
@@ -110,7 +106,7 @@ type Store struct {
 
 // New returns a Store over pool; the schema must be migrated (see Migrate).
 func New(pool *pgxpool.Pool, limits Limits) *Store {
-	return &Store{pool: pool, limits: limits.withDefaults(), series: make(map[string]*Series), models: make(map[modelKey]bool), baselines: make(map[baselineKey]*baselineModel)}
+	return &Store{pool: pool, limits: limits.withDefaults(), series: make(map[string]*Series), models: make(map[modelKey]bool)}
 }
 
 // Limits returns the limits in force.

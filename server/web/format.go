@@ -237,16 +237,16 @@ func val(p *float64) float64 {
 }
 
 // metricLabel names a drift metric for people.
-func metricLabel(m string) string {
+func metricLabel(m scoring.Metric) string {
 	switch m {
-	case "mae":
+	case scoring.MetricMAE:
 		return "MAE"
-	case "me":
+	case scoring.MetricME:
 		return "ME"
 	case "":
 		return "—"
 	}
-	return m
+	return string(m)
 }
 
 func leadLabel(h int) string {

@@ -133,7 +133,7 @@ func (h *handler) overview(ctx context.Context) (*overviewPage, error) {
 		r.Baseline = fmt.Sprintf("v%d", st.BaselineVersion)
 		if st.Lead == 0 {
 			r.State = viewState(st.State)
-			r.Since = stampOf(st.Since, locs[st.Series], now, true)
+			r.Since = stampOf(st.Onset, locs[st.Series], now, false)
 			r.rank = severity(st.State)
 			continue
 		}
@@ -253,7 +253,7 @@ func (h *handler) latestEvents(ctx context.Context, seriesKey, model string, n i
 		var ring []store.DriftEvent
 		total := 0
 		for after := int64(0); ; {
-			page, err := h.st.DriftEvents(ctx, seriesKey, model, since, after, 10000)
+			page, err := h.st.DriftEvents(ctx, store.EventFilter{Series: seriesKey, Model: model, Since: since, After: after})
 			if err != nil {
 				return nil, list, err
 			}

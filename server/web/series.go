@@ -17,7 +17,7 @@ import (
 )
 
 const (
-	windowN       = store.WindowN
+	windowN       = scoring.DriftWindow
 	originPoints  = 120 // origins on the origin chart
 	pairsPageSize = 50
 	seriesEvents  = 100 // drift events listed on a series page
@@ -184,7 +184,7 @@ func (h *handler) series(ctx context.Context, q url.Values) (*seriesPage, int, e
 	}
 	p.HasStates = len(states) > 0
 	if s0, ok := byLead[0]; ok {
-		p.State, p.Since, p.LastOrigin = viewState(s0.State), stampOf(s0.Since, loc, now, true), stampOf(s0.LastOrigin, loc, now, true)
+		p.State, p.Since, p.LastOrigin = viewState(s0.State), stampOf(s0.Onset, loc, now, false), stampOf(s0.LastOrigin, loc, now, true)
 		p.Pooled = pooledSettings(s0.Snapshot, dec)
 		if s0.BaselineVersion != active && active > 0 {
 			p.Notices = append(p.Notices, notice{Text: fmt.Sprintf("The drift states were judged against baseline v%d; v%d is active and is used from the next evaluation on.",
@@ -228,7 +228,7 @@ func (h *handler) series(ctx context.Context, q url.Values) (*seriesPage, int, e
 		}
 	} else {
 		if active > 0 {
-			_, views, _, err := h.st.BaselineView(ctx, key, model, 0, windowN)
+			_, views, _, err := h.ev.BaselineView(ctx, key, model, 0, windowN)
 			if err != nil {
 				return nil, 0, err
 			}
@@ -338,7 +338,7 @@ func leadRowOf(h int, byLead map[int]store.DriftStatus, decision, selected bool,
 		return r
 	}
 	sn := st.Snapshot
-	r.State, r.Since = viewState(st.State), stampOf(st.Since, loc, now, true)
+	r.State, r.Since = viewState(st.State), stampOf(st.Onset, loc, now, false)
 	if sn.WindowN > 0 {
 		r.N = strconv.Itoa(sn.WindowN)
 	}
@@ -400,50 +400,34 @@ func (h *handler) leadHistory(ctx context.Context, p *seriesPage, se store.Serie
 		p.OriginNote = fmt.Sprintf("Lead %d has no scored pairs yet.", p.Lead)
 		return nil
 	}
-	// Bands per window size, from the active baseline.
-	type bandOf struct {
-		b  scoring.Band
-		ok bool
-	}
-	bands := map[int]bandOf{}
-	band := func(n int) (scoring.Band, bool, error) {
-		if b, ok := bands[n]; ok {
-			return b.b, b.ok, nil
-		}
-		if active == 0 {
-			return scoring.Band{}, false, nil
-		}
-		_, views, err := h.st.ActiveLeadViews(ctx, se.Key, model, map[int]int{p.Lead: n})
-		if err != nil {
-			return scoring.Band{}, false, err
-		}
-		v, ok := views[p.Lead]
-		ok = ok && v.Usable && v.MAE.Usable()
-		if !ok && v.Reason != "" && p.OriginNote == "" {
-			p.OriginNote = "No band for this lead: " + v.Reason
-		}
-		bands[n] = bandOf{v.MAE, ok}
-		return v.MAE, ok, nil
-	}
-	start := max(0, len(pairs)-originPoints)
-	var pts []windowPoint
-	var sum float64
-	for i, pr := range pairs {
-		sum += math.Abs(pr.Actual - pr.Forecast)
-		if i >= windowN {
-			sum -= math.Abs(pairs[i-windowN].Actual - pairs[i-windowN].Forecast)
-		}
-		if i < start {
-			continue
-		}
-		n := min(i+1, windowN)
-		nan := math.NaN()
-		wp := windowPoint{Origin: pr.Origin, N: n, MAE: sum / float64(n), Expected: nan, Lower: nan, Upper: nan, Alarm: nan}
-		b, ok, err := band(n)
+	// The windows as the detector judges them, with the active baseline's
+	// band for each window's own n.
+	var lr *scoring.LeadReference
+	if active > 0 {
+		ref, _, err := h.ev.Reference(ctx, se.Key, model)
 		if err != nil {
 			return err
 		}
-		if ok {
+		if ref != nil {
+			lr = ref.Lead(p.Lead)
+		}
+		switch {
+		case lr == nil:
+			p.OriginNote = "No band for this lead: the backtest has no pairs for it."
+		case !lr.Verdict.Usable:
+			p.OriginNote = "No band for this lead: " + lr.Verdict.Reason
+		}
+	}
+	sp := make([]scoring.Pair, len(pairs))
+	for i, pr := range pairs {
+		sp[i] = scoring.Pair{Origin: pr.Origin, Lead: pr.Lead, Forecast: pr.Forecast, Actual: pr.Actual}
+	}
+	js := scoring.Windows(lr, windowN, sp)
+	var pts []windowPoint
+	for _, j := range js[max(0, len(js)-originPoints):] {
+		nan := math.NaN()
+		wp := windowPoint{Origin: j.Origin, N: j.N, MAE: j.MAE, Expected: nan, Lower: nan, Upper: nan, Alarm: nan}
+		if b := j.Bands.MAE; lr != nil && lr.Verdict.Usable && b.Metric != "" && b.Usable() {
 			wp.Expected, wp.Lower, wp.Upper, wp.Alarm = b.Expected, b.Lower, b.Upper, b.AlarmUpper
 		}
 		pts = append(pts, wp)

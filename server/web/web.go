@@ -26,6 +26,7 @@ import (
 	"strings"
 	"time"
 
+	"github.com/aftercast/aftercast/server/drift"
 	"github.com/aftercast/aftercast/server/store"
 )
 
@@ -51,6 +52,7 @@ func parsePage(file string) *template.Template {
 // handler serves the pages.
 type handler struct {
 	st  *store.Store
+	ev  *drift.Evaluator
 	log *slog.Logger
 	now func() time.Time
 }
@@ -59,11 +61,11 @@ type handler struct {
 // "/series?series=S&model=M" (one series and model), GET and HEAD only;
 // any other path is a 404 page. Links are relative, so the handler may
 // also be mounted under a prefix with http.StripPrefix.
-func New(st *store.Store, log *slog.Logger) http.Handler {
+func New(st *store.Store, ev *drift.Evaluator, log *slog.Logger) http.Handler {
 	if log == nil {
 		log = slog.New(slog.DiscardHandler)
 	}
-	return &handler{st: st, log: log, now: time.Now}
+	return &handler{st: st, ev: ev, log: log, now: time.Now}
 }
 
 func (h *handler) ServeHTTP(w http.ResponseWriter, r *http.Request) {

@@ -410,13 +410,13 @@ type LeadBaselineComparison struct {
 	// The lead's drift state as last evaluated by the drift detector for
 	// its own live window (which may differ from this selection).
 	State DriftState `protobuf:"varint,5,opt,name=state,proto3,enum=aftercast.v1.DriftState" json:"state,omitempty"`
-	// Expectation, 95% band and 99% alarm limit of MAE for window_n origins.
+	// Expectation, 95% band and alarm limit (p = 0.995) of MAE for window_n origins.
 	// Absent when the baseline cannot give them (see state).
 	Mae *MetricBand `protobuf:"bytes,6,opt,name=mae,proto3" json:"mae,omitempty"`
-	// Expectation, 95% band and 99% alarm limit of RMSE for window_n origins.
+	// Expectation, 95% band and alarm limit (p = 0.995) of RMSE for window_n origins.
 	// Absent when the baseline cannot give them.
 	Rmse *MetricBand `protobuf:"bytes,7,opt,name=rmse,proto3" json:"rmse,omitempty"`
-	// Expectation, 95% band and two-sided 99% alarm band of ME for window_n
+	// Expectation, 95% band and two-sided alarm band (p = 0.001, 0.999) of ME for window_n
 	// origins. Absent when the baseline cannot give them.
 	Me            *MetricBand `protobuf:"bytes,8,opt,name=me,proto3" json:"me,omitempty"`
 	unknownFields protoimpl.UnknownFields

@@ -809,13 +809,13 @@ type BaselineLead struct {
 	KEff float64 `protobuf:"fixed64,3,opt,name=k_eff,json=kEff,proto3" json:"k_eff,omitempty"`
 	// Every metric over the K backtest pairs: the expectation for live data.
 	Expected *AccuracyMetrics `protobuf:"bytes,4,opt,name=expected,proto3" json:"expected,omitempty"`
-	// MAE expectation, 95% band and one-sided 99% upper limit for a window of
+	// MAE expectation, 95% band and one-sided alarm limit (p = 0.995) for a window of
 	// window_n origins. Absent when K < 2 (no variance estimate).
 	Mae *MetricBand `protobuf:"bytes,5,opt,name=mae,proto3" json:"mae,omitempty"`
-	// RMSE expectation, 95% band and one-sided 99% upper limit for a window
+	// RMSE expectation, 95% band and one-sided alarm limit (p = 0.995) for a window
 	// of window_n origins. Absent when K < 2, and for the pooled entry.
 	Rmse *MetricBand `protobuf:"bytes,6,opt,name=rmse,proto3" json:"rmse,omitempty"`
-	// ME expectation, 95% band and two-sided 99% alarm band for a window of
+	// ME expectation, 95% band and two-sided alarm band (p = 0.001, 0.999) for a window of
 	// window_n origins. Absent when K < 2.
 	Me *MetricBand `protobuf:"bytes,7,opt,name=me,proto3" json:"me,omitempty"`
 	// True when the lead's baseline may judge drift: K ≥ 180 and K_eff ≥ 30.

@@ -22,6 +22,64 @@ const (
 	_ = protoimpl.EnforceVersion(protoimpl.MaxVersion - 20)
 )
 
+// DriftCause says why a drift event was announced (method.md §5).
+type DriftCause int32
+
+const (
+	// Not set.
+	DriftCause_DRIFT_CAUSE_UNSPECIFIED DriftCause = 0
+	// New origins were judged, past the last origin judged before.
+	DriftCause_DRIFT_CAUSE_DATA DriftCause = 1
+	// Origins judged before were re-judged: a revised or backfilled actual,
+	// or a scorable forecast filled in before the last origin judged.
+	DriftCause_DRIFT_CAUSE_REVISION DriftCause = 2
+	// The production period was re-judged against a new baseline version.
+	DriftCause_DRIFT_CAUSE_BASELINE DriftCause = 3
+)
+
+// Enum value maps for DriftCause.
+var (
+	DriftCause_name = map[int32]string{
+		0: "DRIFT_CAUSE_UNSPECIFIED",
+		1: "DRIFT_CAUSE_DATA",
+		2: "DRIFT_CAUSE_REVISION",
+		3: "DRIFT_CAUSE_BASELINE",
+	}
+	DriftCause_value = map[string]int32{
+		"DRIFT_CAUSE_UNSPECIFIED": 0,
+		"DRIFT_CAUSE_DATA":        1,
+		"DRIFT_CAUSE_REVISION":    2,
+		"DRIFT_CAUSE_BASELINE":    3,
+	}
+)
+
+func (x DriftCause) Enum() *DriftCause {
+	p := new(DriftCause)
+	*p = x
+	return p
+}
+
+func (x DriftCause) String() string {
+	return protoimpl.X.EnumStringOf(x.Descriptor(), protoreflect.EnumNumber(x))
+}
+
+func (DriftCause) Descriptor() protoreflect.EnumDescriptor {
+	return file_aftercast_v1_drift_proto_enumTypes[0].Descriptor()
+}
+
+func (DriftCause) Type() protoreflect.EnumType {
+	return &file_aftercast_v1_drift_proto_enumTypes[0]
+}
+
+func (x DriftCause) Number() protoreflect.EnumNumber {
+	return protoreflect.EnumNumber(x)
+}
+
+// Deprecated: Use DriftCause.Descriptor instead.
+func (DriftCause) EnumDescriptor() ([]byte, []int) {
+	return file_aftercast_v1_drift_proto_rawDescGZIP(), []int{0}
+}
+
 // DriftStatus is the current drift verdict on one lead, or on the pooled
 // decision leads, of one (series, model), with the values it was judged on.
 // Metric values are in the series' unit.
@@ -35,10 +93,12 @@ type DriftStatus struct {
 	// The metrics whose window value is outside its alarm limit at the last
 	// evaluation: the cause of DRIFT_STATE_DEGRADED. Empty otherwise.
 	BreachedMetrics []DriftMetric `protobuf:"varint,3,rep,packed,name=breached_metrics,json=breachedMetrics,proto3,enum=aftercast.v1.DriftMetric" json:"breached_metrics,omitempty"`
-	// When the current state was entered; unset when no state was entered
-	// yet.
+	// Deprecated: the wall-clock time the current state was announced, the
+	// same as noticed_time. When a state began is onset_origin_time.
+	//
+	// Deprecated: Marked as deprecated in aftercast/v1/drift.proto.
 	StateSinceTime *timestamppb.Timestamp `protobuf:"bytes,4,opt,name=state_since_time,json=stateSinceTime,proto3" json:"state_since_time,omitempty"`
-	// The origin whose scoring triggered the last evaluation.
+	// The last origin judged (data time); unset before the first evaluation.
 	LastOriginTime *timestamppb.Timestamp `protobuf:"bytes,5,opt,name=last_origin_time,json=lastOriginTime,proto3" json:"last_origin_time,omitempty"`
 	// Number of origins in the live window (at most the configured window,
 	// 30 by default).
@@ -53,7 +113,7 @@ type DriftStatus struct {
 	MaeBandLower *float64 `protobuf:"fixed64,9,opt,name=mae_band_lower,json=maeBandLower,proto3,oneof" json:"mae_band_lower,omitempty"`
 	// Upper bound of MAE's 95% band for window_n origins. Absent as above.
 	MaeBandUpper *float64 `protobuf:"fixed64,10,opt,name=mae_band_upper,json=maeBandUpper,proto3,oneof" json:"mae_band_upper,omitempty"`
-	// MAE's one-sided 99% upper alarm limit for window_n origins. Absent as
+	// MAE's one-sided alarm limit (p = 0.995) for window_n origins. Absent as
 	// above.
 	MaeAlarmLimit *float64 `protobuf:"fixed64,11,opt,name=mae_alarm_limit,json=maeAlarmLimit,proto3,oneof" json:"mae_alarm_limit,omitempty"`
 	// Window ME (bias; for the series level: mean over window origins of the
@@ -61,15 +121,39 @@ type DriftStatus struct {
 	Me *float64 `protobuf:"fixed64,12,opt,name=me,proto3,oneof" json:"me,omitempty"`
 	// ME the baseline expects. Absent without a baseline.
 	MeExpected *float64 `protobuf:"fixed64,13,opt,name=me_expected,json=meExpected,proto3,oneof" json:"me_expected,omitempty"`
-	// Lower bound of ME's two-sided 99% alarm band for window_n origins.
+	// Lower bound of ME's two-sided alarm band (p = 0.001) for window_n origins.
 	// Absent as for mae_band_lower.
 	MeAlarmLower *float64 `protobuf:"fixed64,14,opt,name=me_alarm_lower,json=meAlarmLower,proto3,oneof" json:"me_alarm_lower,omitempty"`
-	// Upper bound of ME's two-sided 99% alarm band for window_n origins.
+	// Upper bound of ME's two-sided alarm band (p = 0.999) for window_n origins.
 	// Absent as for mae_band_lower.
 	MeAlarmUpper *float64 `protobuf:"fixed64,15,opt,name=me_alarm_upper,json=meAlarmUpper,proto3,oneof" json:"me_alarm_upper,omitempty"`
 	// K_eff of |e| of the baseline for this lead (or of the pooled
 	// quantity). Absent without a baseline.
-	KEff          *float64 `protobuf:"fixed64,16,opt,name=k_eff,json=kEff,proto3,oneof" json:"k_eff,omitempty"`
+	KEff *float64 `protobuf:"fixed64,16,opt,name=k_eff,json=kEff,proto3,oneof" json:"k_eff,omitempty"`
+	// The origin at which the current state was entered (data time): the
+	// evaluation of that origin's window entered it. Unset for the state the
+	// production period started in.
+	OnsetOriginTime *timestamppb.Timestamp `protobuf:"bytes,17,opt,name=onset_origin_time,json=onsetOriginTime,proto3" json:"onset_origin_time,omitempty"`
+	// How many evaluations (scored origins) the current state has lasted,
+	// the one at the onset included; 0 when onset_origin_time is unset.
+	OriginsSinceOnset int32 `protobuf:"varint,18,opt,name=origins_since_onset,json=originsSinceOnset,proto3" json:"origins_since_onset,omitempty"`
+	// When the service announced the current state (wall clock): when it
+	// noticed, not when it happened.
+	NoticedTime *timestamppb.Timestamp `protobuf:"bytes,19,opt,name=noticed_time,json=noticedTime,proto3" json:"noticed_time,omitempty"`
+	// The metric whose window value entered the current state (for
+	// DRIFT_STATE_DEGRADED: which alarm); unspecified when no metric did.
+	OnsetMetric DriftMetric `protobuf:"varint,20,opt,name=onset_metric,json=onsetMetric,proto3,enum=aftercast.v1.DriftMetric" json:"onset_metric,omitempty"`
+	// That metric's window value at the onset, in the series' unit.
+	OnsetValue *float64 `protobuf:"fixed64,21,opt,name=onset_value,json=onsetValue,proto3,oneof" json:"onset_value,omitempty"`
+	// The limit it crossed at the onset, in the series' unit.
+	OnsetLimit *float64 `protobuf:"fixed64,22,opt,name=onset_limit,json=onsetLimit,proto3,oneof" json:"onset_limit,omitempty"`
+	// Lower bound of ME's 95% band for window_n origins.
+	MeBandLower *float64 `protobuf:"fixed64,23,opt,name=me_band_lower,json=meBandLower,proto3,oneof" json:"me_band_lower,omitempty"`
+	// Upper bound of ME's 95% band for window_n origins.
+	MeBandUpper *float64 `protobuf:"fixed64,24,opt,name=me_band_upper,json=meBandUpper,proto3,oneof" json:"me_band_upper,omitempty"`
+	// Why the baseline cannot judge this lead, for
+	// DRIFT_STATE_INSUFFICIENT_BASELINE; empty otherwise.
+	Reason        string `protobuf:"bytes,25,opt,name=reason,proto3" json:"reason,omitempty"`
 	unknownFields protoimpl.UnknownFields
 	sizeCache     protoimpl.SizeCache
 }
@@ -125,6 +209,7 @@ func (x *DriftStatus) GetBreachedMetrics() []DriftMetric {
 	return nil
 }
 
+// Deprecated: Marked as deprecated in aftercast/v1/drift.proto.
 func (x *DriftStatus) GetStateSinceTime() *timestamppb.Timestamp {
 	if x != nil {
 		return x.StateSinceTime
@@ -214,6 +299,69 @@ func (x *DriftStatus) GetKEff() float64 {
 		return *x.KEff
 	}
 	return 0
+}
+
+func (x *DriftStatus) GetOnsetOriginTime() *timestamppb.Timestamp {
+	if x != nil {
+		return x.OnsetOriginTime
+	}
+	return nil
+}
+
+func (x *DriftStatus) GetOriginsSinceOnset() int32 {
+	if x != nil {
+		return x.OriginsSinceOnset
+	}
+	return 0
+}
+
+func (x *DriftStatus) GetNoticedTime() *timestamppb.Timestamp {
+	if x != nil {
+		return x.NoticedTime
+	}
+	return nil
+}
+
+func (x *DriftStatus) GetOnsetMetric() DriftMetric {
+	if x != nil {
+		return x.OnsetMetric
+	}
+	return DriftMetric_DRIFT_METRIC_UNSPECIFIED
+}
+
+func (x *DriftStatus) GetOnsetValue() float64 {
+	if x != nil && x.OnsetValue != nil {
+		return *x.OnsetValue
+	}
+	return 0
+}
+
+func (x *DriftStatus) GetOnsetLimit() float64 {
+	if x != nil && x.OnsetLimit != nil {
+		return *x.OnsetLimit
+	}
+	return 0
+}
+
+func (x *DriftStatus) GetMeBandLower() float64 {
+	if x != nil && x.MeBandLower != nil {
+		return *x.MeBandLower
+	}
+	return 0
+}
+
+func (x *DriftStatus) GetMeBandUpper() float64 {
+	if x != nil && x.MeBandUpper != nil {
+		return *x.MeBandUpper
+	}
+	return 0
+}
+
+func (x *DriftStatus) GetReason() string {
+	if x != nil {
+		return x.Reason
+	}
+	return ""
 }
 
 // SeriesModelDrift is the drift picture of one (series, model).
@@ -310,14 +458,18 @@ func (x *SeriesModelDrift) GetLeadStatuses() []*DriftStatus {
 	return nil
 }
 
-// DriftEvent records one change of drift state, with the values that
-// caused it.
+// DriftEvent records one announced change of a drift state, with the values
+// that caused it. Events are announced in order and never rewritten: judging
+// new origins announces every transition among them (cause DATA); re-judging
+// origins judged before announces only the difference between the state
+// announced and the state the stored data now gives (cause REVISION or
+// BASELINE).
 type DriftEvent struct {
 	state protoimpl.MessageState `protogen:"open.v1"`
 	// Opaque token identifying the event, unique across the service. Pass it
 	// as WatchDriftEventsRequest.resume_token to continue after this event.
 	Token string `protobuf:"bytes,1,opt,name=token,proto3" json:"token,omitempty"`
-	// When the state change was committed.
+	// When the service recorded the event (wall clock).
 	EventTime *timestamppb.Timestamp `protobuf:"bytes,2,opt,name=event_time,json=eventTime,proto3" json:"event_time,omitempty"`
 	// Key of the series.
 	Series string `protobuf:"bytes,3,opt,name=series,proto3" json:"series,omitempty"`
@@ -326,7 +478,8 @@ type DriftEvent struct {
 	// The lead whose state changed; absent for a series-level (pooled
 	// decision-lead) change.
 	Lead *int32 `protobuf:"varint,5,opt,name=lead,proto3,oneof" json:"lead,omitempty"`
-	// The origin whose scoring triggered the evaluation.
+	// The onset: the origin at which the new state was entered (data time).
+	// Unset when the new state is the one the production period starts in.
 	OriginTime *timestamppb.Timestamp `protobuf:"bytes,6,opt,name=origin_time,json=originTime,proto3" json:"origin_time,omitempty"`
 	// The metric the decision was made on. DRIFT_METRIC_UNSPECIFIED when the
 	// change was not caused by a metric value (entering or leaving an
@@ -340,8 +493,8 @@ type DriftEvent struct {
 	// The metric's window value at this evaluation, in the series' unit.
 	// Absent when metric is unspecified.
 	Value *float64 `protobuf:"fixed64,10,opt,name=value,proto3,oneof" json:"value,omitempty"`
-	// The threshold that decided the change, in the series' unit: the 99%
-	// upper limit for MAE, or the ME 99% bound crossed, when entering
+	// The threshold that decided the change, in the series' unit: the alarm
+	// limit for MAE, or the ME alarm bound crossed, when entering
 	// DRIFT_STATE_DEGRADED; the lower 95% band bound when entering
 	// DRIFT_STATE_IMPROVED; the 95% band bound re-entered when returning to
 	// DRIFT_STATE_WITHIN. Absent when metric is unspecified.
@@ -356,7 +509,9 @@ type DriftEvent struct {
 	WindowN int32 `protobuf:"varint,14,opt,name=window_n,json=windowN,proto3" json:"window_n,omitempty"`
 	// K_eff of the baseline quantity behind the metric (|e| for MAE, e for
 	// ME). Absent without a baseline.
-	KEff          *float64 `protobuf:"fixed64,15,opt,name=k_eff,json=kEff,proto3,oneof" json:"k_eff,omitempty"`
+	KEff *float64 `protobuf:"fixed64,15,opt,name=k_eff,json=kEff,proto3,oneof" json:"k_eff,omitempty"`
+	// Why the change was announced.
+	Cause         DriftCause `protobuf:"varint,16,opt,name=cause,proto3,enum=aftercast.v1.DriftCause" json:"cause,omitempty"`
 	unknownFields protoimpl.UnknownFields
 	sizeCache     protoimpl.SizeCache
 }
@@ -496,6 +651,140 @@ func (x *DriftEvent) GetKEff() float64 {
 	return 0
 }
 
+func (x *DriftEvent) GetCause() DriftCause {
+	if x != nil {
+		return x.Cause
+	}
+	return DriftCause_DRIFT_CAUSE_UNSPECIFIED
+}
+
+// DriftTransition is one transition of a replayed state history.
+type DriftTransition struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// The lead; absent for the series-level state.
+	Lead *int32 `protobuf:"varint,1,opt,name=lead,proto3,oneof" json:"lead,omitempty"`
+	// The origin whose evaluation made the transition (data time).
+	OriginTime *timestamppb.Timestamp `protobuf:"bytes,2,opt,name=origin_time,json=originTime,proto3" json:"origin_time,omitempty"`
+	// State before.
+	PreviousState DriftState `protobuf:"varint,3,opt,name=previous_state,json=previousState,proto3,enum=aftercast.v1.DriftState" json:"previous_state,omitempty"`
+	// State after.
+	NewState DriftState `protobuf:"varint,4,opt,name=new_state,json=newState,proto3,enum=aftercast.v1.DriftState" json:"new_state,omitempty"`
+	// The metric that caused it; unspecified when no metric did.
+	Metric DriftMetric `protobuf:"varint,5,opt,name=metric,proto3,enum=aftercast.v1.DriftMetric" json:"metric,omitempty"`
+	// The metric's window value, in the series' unit.
+	Value *float64 `protobuf:"fixed64,6,opt,name=value,proto3,oneof" json:"value,omitempty"`
+	// The limit that decided it, in the series' unit.
+	Limit *float64 `protobuf:"fixed64,7,opt,name=limit,proto3,oneof" json:"limit,omitempty"`
+	// Origins in the window judged.
+	WindowN int32 `protobuf:"varint,8,opt,name=window_n,json=windowN,proto3" json:"window_n,omitempty"`
+	// K_eff of the baseline quantity behind the metric.
+	KEff *float64 `protobuf:"fixed64,9,opt,name=k_eff,json=kEff,proto3,oneof" json:"k_eff,omitempty"`
+	// Why the baseline cannot judge, for DRIFT_STATE_INSUFFICIENT_BASELINE.
+	Reason        string `protobuf:"bytes,10,opt,name=reason,proto3" json:"reason,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *DriftTransition) Reset() {
+	*x = DriftTransition{}
+	mi := &file_aftercast_v1_drift_proto_msgTypes[3]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *DriftTransition) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*DriftTransition) ProtoMessage() {}
+
+func (x *DriftTransition) ProtoReflect() protoreflect.Message {
+	mi := &file_aftercast_v1_drift_proto_msgTypes[3]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use DriftTransition.ProtoReflect.Descriptor instead.
+func (*DriftTransition) Descriptor() ([]byte, []int) {
+	return file_aftercast_v1_drift_proto_rawDescGZIP(), []int{3}
+}
+
+func (x *DriftTransition) GetLead() int32 {
+	if x != nil && x.Lead != nil {
+		return *x.Lead
+	}
+	return 0
+}
+
+func (x *DriftTransition) GetOriginTime() *timestamppb.Timestamp {
+	if x != nil {
+		return x.OriginTime
+	}
+	return nil
+}
+
+func (x *DriftTransition) GetPreviousState() DriftState {
+	if x != nil {
+		return x.PreviousState
+	}
+	return DriftState_DRIFT_STATE_UNSPECIFIED
+}
+
+func (x *DriftTransition) GetNewState() DriftState {
+	if x != nil {
+		return x.NewState
+	}
+	return DriftState_DRIFT_STATE_UNSPECIFIED
+}
+
+func (x *DriftTransition) GetMetric() DriftMetric {
+	if x != nil {
+		return x.Metric
+	}
+	return DriftMetric_DRIFT_METRIC_UNSPECIFIED
+}
+
+func (x *DriftTransition) GetValue() float64 {
+	if x != nil && x.Value != nil {
+		return *x.Value
+	}
+	return 0
+}
+
+func (x *DriftTransition) GetLimit() float64 {
+	if x != nil && x.Limit != nil {
+		return *x.Limit
+	}
+	return 0
+}
+
+func (x *DriftTransition) GetWindowN() int32 {
+	if x != nil {
+		return x.WindowN
+	}
+	return 0
+}
+
+func (x *DriftTransition) GetKEff() float64 {
+	if x != nil && x.KEff != nil {
+		return *x.KEff
+	}
+	return 0
+}
+
+func (x *DriftTransition) GetReason() string {
+	if x != nil {
+		return x.Reason
+	}
+	return ""
+}
+
 // ListDriftStatesRequest is the request of DriftService.ListDriftStates.
 type ListDriftStatesRequest struct {
 	state protoimpl.MessageState `protogen:"open.v1"`
@@ -516,7 +805,7 @@ type ListDriftStatesRequest struct {
 
 func (x *ListDriftStatesRequest) Reset() {
 	*x = ListDriftStatesRequest{}
-	mi := &file_aftercast_v1_drift_proto_msgTypes[3]
+	mi := &file_aftercast_v1_drift_proto_msgTypes[4]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -528,7 +817,7 @@ func (x *ListDriftStatesRequest) String() string {
 func (*ListDriftStatesRequest) ProtoMessage() {}
 
 func (x *ListDriftStatesRequest) ProtoReflect() protoreflect.Message {
-	mi := &file_aftercast_v1_drift_proto_msgTypes[3]
+	mi := &file_aftercast_v1_drift_proto_msgTypes[4]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -541,7 +830,7 @@ func (x *ListDriftStatesRequest) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use ListDriftStatesRequest.ProtoReflect.Descriptor instead.
 func (*ListDriftStatesRequest) Descriptor() ([]byte, []int) {
-	return file_aftercast_v1_drift_proto_rawDescGZIP(), []int{3}
+	return file_aftercast_v1_drift_proto_rawDescGZIP(), []int{4}
 }
 
 func (x *ListDriftStatesRequest) GetSeries() string {
@@ -579,13 +868,23 @@ type ListDriftStatesResponse struct {
 	States []*SeriesModelDrift `protobuf:"bytes,1,rep,name=states,proto3" json:"states,omitempty"`
 	// Token for the next page; empty when this is the last page.
 	NextPageToken string `protobuf:"bytes,2,opt,name=next_page_token,json=nextPageToken,proto3" json:"next_page_token,omitempty"`
-	unknownFields protoimpl.UnknownFields
-	sizeCache     protoimpl.SizeCache
+	// Marks of re-judgement the evaluator has not drained yet, over the
+	// whole service: while non-zero, some states may not reflect the newest
+	// data yet.
+	PendingEvaluations int64 `protobuf:"varint,3,opt,name=pending_evaluations,json=pendingEvaluations,proto3" json:"pending_evaluations,omitempty"`
+	// How many pages the (series, model) entries selected (all pages of
+	// this listing) are expected to raise by chance per week if every one
+	// is healthy: the sum of origins per week over the mean in-control run
+	// length at the defaults (docs/calibration.md). A guide to how much a
+	// single page means, not a forecast.
+	ExpectedChancePagesPerWeek float64 `protobuf:"fixed64,4,opt,name=expected_chance_pages_per_week,json=expectedChancePagesPerWeek,proto3" json:"expected_chance_pages_per_week,omitempty"`
+	unknownFields              protoimpl.UnknownFields
+	sizeCache                  protoimpl.SizeCache
 }
 
 func (x *ListDriftStatesResponse) Reset() {
 	*x = ListDriftStatesResponse{}
-	mi := &file_aftercast_v1_drift_proto_msgTypes[4]
+	mi := &file_aftercast_v1_drift_proto_msgTypes[5]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -597,7 +896,7 @@ func (x *ListDriftStatesResponse) String() string {
 func (*ListDriftStatesResponse) ProtoMessage() {}
 
 func (x *ListDriftStatesResponse) ProtoReflect() protoreflect.Message {
-	mi := &file_aftercast_v1_drift_proto_msgTypes[4]
+	mi := &file_aftercast_v1_drift_proto_msgTypes[5]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -610,7 +909,7 @@ func (x *ListDriftStatesResponse) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use ListDriftStatesResponse.ProtoReflect.Descriptor instead.
 func (*ListDriftStatesResponse) Descriptor() ([]byte, []int) {
-	return file_aftercast_v1_drift_proto_rawDescGZIP(), []int{4}
+	return file_aftercast_v1_drift_proto_rawDescGZIP(), []int{5}
 }
 
 func (x *ListDriftStatesResponse) GetStates() []*SeriesModelDrift {
@@ -627,6 +926,140 @@ func (x *ListDriftStatesResponse) GetNextPageToken() string {
 	return ""
 }
 
+func (x *ListDriftStatesResponse) GetPendingEvaluations() int64 {
+	if x != nil {
+		return x.PendingEvaluations
+	}
+	return 0
+}
+
+func (x *ListDriftStatesResponse) GetExpectedChancePagesPerWeek() float64 {
+	if x != nil {
+		return x.ExpectedChancePagesPerWeek
+	}
+	return 0
+}
+
+// GetDriftHistoryRequest is the request of DriftService.GetDriftHistory.
+type GetDriftHistoryRequest struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// Key of the series.
+	Series string `protobuf:"bytes,1,opt,name=series,proto3" json:"series,omitempty"`
+	// The model.
+	Model string `protobuf:"bytes,2,opt,name=model,proto3" json:"model,omitempty"`
+	// Only this lead's transitions; 0 = only the series level; unset = all.
+	Lead          *int32 `protobuf:"varint,3,opt,name=lead,proto3,oneof" json:"lead,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *GetDriftHistoryRequest) Reset() {
+	*x = GetDriftHistoryRequest{}
+	mi := &file_aftercast_v1_drift_proto_msgTypes[6]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *GetDriftHistoryRequest) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*GetDriftHistoryRequest) ProtoMessage() {}
+
+func (x *GetDriftHistoryRequest) ProtoReflect() protoreflect.Message {
+	mi := &file_aftercast_v1_drift_proto_msgTypes[6]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use GetDriftHistoryRequest.ProtoReflect.Descriptor instead.
+func (*GetDriftHistoryRequest) Descriptor() ([]byte, []int) {
+	return file_aftercast_v1_drift_proto_rawDescGZIP(), []int{6}
+}
+
+func (x *GetDriftHistoryRequest) GetSeries() string {
+	if x != nil {
+		return x.Series
+	}
+	return ""
+}
+
+func (x *GetDriftHistoryRequest) GetModel() string {
+	if x != nil {
+		return x.Model
+	}
+	return ""
+}
+
+func (x *GetDriftHistoryRequest) GetLead() int32 {
+	if x != nil && x.Lead != nil {
+		return *x.Lead
+	}
+	return 0
+}
+
+// GetDriftHistoryResponse is the response of DriftService.GetDriftHistory.
+type GetDriftHistoryResponse struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// The baseline version replayed against (the active one).
+	BaselineVersion int32 `protobuf:"varint,1,opt,name=baseline_version,json=baselineVersion,proto3" json:"baseline_version,omitempty"`
+	// Every transition, in origin order (the series level before the leads
+	// within one origin, leads ascending).
+	Transitions   []*DriftTransition `protobuf:"bytes,2,rep,name=transitions,proto3" json:"transitions,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *GetDriftHistoryResponse) Reset() {
+	*x = GetDriftHistoryResponse{}
+	mi := &file_aftercast_v1_drift_proto_msgTypes[7]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *GetDriftHistoryResponse) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*GetDriftHistoryResponse) ProtoMessage() {}
+
+func (x *GetDriftHistoryResponse) ProtoReflect() protoreflect.Message {
+	mi := &file_aftercast_v1_drift_proto_msgTypes[7]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use GetDriftHistoryResponse.ProtoReflect.Descriptor instead.
+func (*GetDriftHistoryResponse) Descriptor() ([]byte, []int) {
+	return file_aftercast_v1_drift_proto_rawDescGZIP(), []int{7}
+}
+
+func (x *GetDriftHistoryResponse) GetBaselineVersion() int32 {
+	if x != nil {
+		return x.BaselineVersion
+	}
+	return 0
+}
+
+func (x *GetDriftHistoryResponse) GetTransitions() []*DriftTransition {
+	if x != nil {
+		return x.Transitions
+	}
+	return nil
+}
+
 // ListDriftEventsRequest is the request of DriftService.ListDriftEvents.
 type ListDriftEventsRequest struct {
 	state protoimpl.MessageState `protogen:"open.v1"`
@@ -634,21 +1067,27 @@ type ListDriftEventsRequest struct {
 	Series string `protobuf:"bytes,1,opt,name=series,proto3" json:"series,omitempty"`
 	// Only events of this model; empty = all models.
 	Model string `protobuf:"bytes,2,opt,name=model,proto3" json:"model,omitempty"`
-	// Only events with event_time at or after this time; unset = all.
+	// Only events recorded (event_time) at or after this time; unset = all.
 	SinceTime *timestamppb.Timestamp `protobuf:"bytes,3,opt,name=since_time,json=sinceTime,proto3" json:"since_time,omitempty"`
 	// Maximum number of events to return. 0 means the server default (100);
 	// values above 1000 are treated as 1000. Negative is INVALID_ARGUMENT.
 	PageSize int32 `protobuf:"varint,4,opt,name=page_size,json=pageSize,proto3" json:"page_size,omitempty"`
 	// next_page_token of the previous page; empty for the first page. The
 	// other request fields must equal those of the first page's request.
-	PageToken     string `protobuf:"bytes,5,opt,name=page_token,json=pageToken,proto3" json:"page_token,omitempty"`
+	PageToken string `protobuf:"bytes,5,opt,name=page_token,json=pageToken,proto3" json:"page_token,omitempty"`
+	// Only events whose onset origin (origin_time) is at or after this time;
+	// unset = no lower bound.
+	OriginFromTime *timestamppb.Timestamp `protobuf:"bytes,6,opt,name=origin_from_time,json=originFromTime,proto3" json:"origin_from_time,omitempty"`
+	// Only events whose onset origin is before this time; unset = no upper
+	// bound.
+	OriginToTime  *timestamppb.Timestamp `protobuf:"bytes,7,opt,name=origin_to_time,json=originToTime,proto3" json:"origin_to_time,omitempty"`
 	unknownFields protoimpl.UnknownFields
 	sizeCache     protoimpl.SizeCache
 }
 
 func (x *ListDriftEventsRequest) Reset() {
 	*x = ListDriftEventsRequest{}
-	mi := &file_aftercast_v1_drift_proto_msgTypes[5]
+	mi := &file_aftercast_v1_drift_proto_msgTypes[8]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -660,7 +1099,7 @@ func (x *ListDriftEventsRequest) String() string {
 func (*ListDriftEventsRequest) ProtoMessage() {}
 
 func (x *ListDriftEventsRequest) ProtoReflect() protoreflect.Message {
-	mi := &file_aftercast_v1_drift_proto_msgTypes[5]
+	mi := &file_aftercast_v1_drift_proto_msgTypes[8]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -673,7 +1112,7 @@ func (x *ListDriftEventsRequest) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use ListDriftEventsRequest.ProtoReflect.Descriptor instead.
 func (*ListDriftEventsRequest) Descriptor() ([]byte, []int) {
-	return file_aftercast_v1_drift_proto_rawDescGZIP(), []int{5}
+	return file_aftercast_v1_drift_proto_rawDescGZIP(), []int{8}
 }
 
 func (x *ListDriftEventsRequest) GetSeries() string {
@@ -711,6 +1150,20 @@ func (x *ListDriftEventsRequest) GetPageToken() string {
 	return ""
 }
 
+func (x *ListDriftEventsRequest) GetOriginFromTime() *timestamppb.Timestamp {
+	if x != nil {
+		return x.OriginFromTime
+	}
+	return nil
+}
+
+func (x *ListDriftEventsRequest) GetOriginToTime() *timestamppb.Timestamp {
+	if x != nil {
+		return x.OriginToTime
+	}
+	return nil
+}
+
 // ListDriftEventsResponse is the response of DriftService.ListDriftEvents.
 type ListDriftEventsResponse struct {
 	state protoimpl.MessageState `protogen:"open.v1"`
@@ -724,7 +1177,7 @@ type ListDriftEventsResponse struct {
 
 func (x *ListDriftEventsResponse) Reset() {
 	*x = ListDriftEventsResponse{}
-	mi := &file_aftercast_v1_drift_proto_msgTypes[6]
+	mi := &file_aftercast_v1_drift_proto_msgTypes[9]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -736,7 +1189,7 @@ func (x *ListDriftEventsResponse) String() string {
 func (*ListDriftEventsResponse) ProtoMessage() {}
 
 func (x *ListDriftEventsResponse) ProtoReflect() protoreflect.Message {
-	mi := &file_aftercast_v1_drift_proto_msgTypes[6]
+	mi := &file_aftercast_v1_drift_proto_msgTypes[9]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -749,7 +1202,7 @@ func (x *ListDriftEventsResponse) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use ListDriftEventsResponse.ProtoReflect.Descriptor instead.
 func (*ListDriftEventsResponse) Descriptor() ([]byte, []int) {
-	return file_aftercast_v1_drift_proto_rawDescGZIP(), []int{6}
+	return file_aftercast_v1_drift_proto_rawDescGZIP(), []int{9}
 }
 
 func (x *ListDriftEventsResponse) GetEvents() []*DriftEvent {
@@ -783,7 +1236,7 @@ type WatchDriftEventsRequest struct {
 
 func (x *WatchDriftEventsRequest) Reset() {
 	*x = WatchDriftEventsRequest{}
-	mi := &file_aftercast_v1_drift_proto_msgTypes[7]
+	mi := &file_aftercast_v1_drift_proto_msgTypes[10]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -795,7 +1248,7 @@ func (x *WatchDriftEventsRequest) String() string {
 func (*WatchDriftEventsRequest) ProtoMessage() {}
 
 func (x *WatchDriftEventsRequest) ProtoReflect() protoreflect.Message {
-	mi := &file_aftercast_v1_drift_proto_msgTypes[7]
+	mi := &file_aftercast_v1_drift_proto_msgTypes[10]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -808,7 +1261,7 @@ func (x *WatchDriftEventsRequest) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use WatchDriftEventsRequest.ProtoReflect.Descriptor instead.
 func (*WatchDriftEventsRequest) Descriptor() ([]byte, []int) {
-	return file_aftercast_v1_drift_proto_rawDescGZIP(), []int{7}
+	return file_aftercast_v1_drift_proto_rawDescGZIP(), []int{10}
 }
 
 func (x *WatchDriftEventsRequest) GetSeries() string {
@@ -844,7 +1297,7 @@ type WatchDriftEventsResponse struct {
 
 func (x *WatchDriftEventsResponse) Reset() {
 	*x = WatchDriftEventsResponse{}
-	mi := &file_aftercast_v1_drift_proto_msgTypes[8]
+	mi := &file_aftercast_v1_drift_proto_msgTypes[11]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -856,7 +1309,7 @@ func (x *WatchDriftEventsResponse) String() string {
 func (*WatchDriftEventsResponse) ProtoMessage() {}
 
 func (x *WatchDriftEventsResponse) ProtoReflect() protoreflect.Message {
-	mi := &file_aftercast_v1_drift_proto_msgTypes[8]
+	mi := &file_aftercast_v1_drift_proto_msgTypes[11]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -869,7 +1322,7 @@ func (x *WatchDriftEventsResponse) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use WatchDriftEventsResponse.ProtoReflect.Descriptor instead.
 func (*WatchDriftEventsResponse) Descriptor() ([]byte, []int) {
-	return file_aftercast_v1_drift_proto_rawDescGZIP(), []int{8}
+	return file_aftercast_v1_drift_proto_rawDescGZIP(), []int{11}
 }
 
 func (x *WatchDriftEventsResponse) GetEvent() *DriftEvent {
@@ -883,12 +1336,13 @@ var File_aftercast_v1_drift_proto protoreflect.FileDescriptor
 
 const file_aftercast_v1_drift_proto_rawDesc = "" +
 	"\n" +
-	"\x18aftercast/v1/drift.proto\x12\faftercast.v1\x1a\x1aaftercast/v1/metrics.proto\x1a\x1fgoogle/protobuf/timestamp.proto\"\xd3\x06\n" +
+	"\x18aftercast/v1/drift.proto\x12\faftercast.v1\x1a\x1aaftercast/v1/metrics.proto\x1a\x1fgoogle/protobuf/timestamp.proto\"\xc6\n" +
+	"\n" +
 	"\vDriftStatus\x12\x17\n" +
 	"\x04lead\x18\x01 \x01(\x05H\x00R\x04lead\x88\x01\x01\x12.\n" +
 	"\x05state\x18\x02 \x01(\x0e2\x18.aftercast.v1.DriftStateR\x05state\x12D\n" +
-	"\x10breached_metrics\x18\x03 \x03(\x0e2\x19.aftercast.v1.DriftMetricR\x0fbreachedMetrics\x12D\n" +
-	"\x10state_since_time\x18\x04 \x01(\v2\x1a.google.protobuf.TimestampR\x0estateSinceTime\x12D\n" +
+	"\x10breached_metrics\x18\x03 \x03(\x0e2\x19.aftercast.v1.DriftMetricR\x0fbreachedMetrics\x12H\n" +
+	"\x10state_since_time\x18\x04 \x01(\v2\x1a.google.protobuf.TimestampB\x02\x18\x01R\x0estateSinceTime\x12D\n" +
 	"\x10last_origin_time\x18\x05 \x01(\v2\x1a.google.protobuf.TimestampR\x0elastOriginTime\x12\x19\n" +
 	"\bwindow_n\x18\x06 \x01(\x05R\awindowN\x12\x15\n" +
 	"\x03mae\x18\a \x01(\x01H\x01R\x03mae\x88\x01\x01\x12&\n" +
@@ -903,7 +1357,18 @@ const file_aftercast_v1_drift_proto_rawDesc = "" +
 	"\x0eme_alarm_lower\x18\x0e \x01(\x01H\bR\fmeAlarmLower\x88\x01\x01\x12)\n" +
 	"\x0eme_alarm_upper\x18\x0f \x01(\x01H\tR\fmeAlarmUpper\x88\x01\x01\x12\x18\n" +
 	"\x05k_eff\x18\x10 \x01(\x01H\n" +
-	"R\x04kEff\x88\x01\x01B\a\n" +
+	"R\x04kEff\x88\x01\x01\x12F\n" +
+	"\x11onset_origin_time\x18\x11 \x01(\v2\x1a.google.protobuf.TimestampR\x0fonsetOriginTime\x12.\n" +
+	"\x13origins_since_onset\x18\x12 \x01(\x05R\x11originsSinceOnset\x12=\n" +
+	"\fnoticed_time\x18\x13 \x01(\v2\x1a.google.protobuf.TimestampR\vnoticedTime\x12<\n" +
+	"\fonset_metric\x18\x14 \x01(\x0e2\x19.aftercast.v1.DriftMetricR\vonsetMetric\x12$\n" +
+	"\vonset_value\x18\x15 \x01(\x01H\vR\n" +
+	"onsetValue\x88\x01\x01\x12$\n" +
+	"\vonset_limit\x18\x16 \x01(\x01H\fR\n" +
+	"onsetLimit\x88\x01\x01\x12'\n" +
+	"\rme_band_lower\x18\x17 \x01(\x01H\rR\vmeBandLower\x88\x01\x01\x12'\n" +
+	"\rme_band_upper\x18\x18 \x01(\x01H\x0eR\vmeBandUpper\x88\x01\x01\x12\x16\n" +
+	"\x06reason\x18\x19 \x01(\tR\x06reasonB\a\n" +
 	"\x05_leadB\x06\n" +
 	"\x04_maeB\x0f\n" +
 	"\r_mae_expectedB\x11\n" +
@@ -914,14 +1379,18 @@ const file_aftercast_v1_drift_proto_rawDesc = "" +
 	"\f_me_expectedB\x11\n" +
 	"\x0f_me_alarm_lowerB\x11\n" +
 	"\x0f_me_alarm_upperB\b\n" +
-	"\x06_k_eff\"\x92\x02\n" +
+	"\x06_k_effB\x0e\n" +
+	"\f_onset_valueB\x0e\n" +
+	"\f_onset_limitB\x10\n" +
+	"\x0e_me_band_lowerB\x10\n" +
+	"\x0e_me_band_upper\"\x92\x02\n" +
 	"\x10SeriesModelDrift\x12\x16\n" +
 	"\x06series\x18\x01 \x01(\tR\x06series\x12\x14\n" +
 	"\x05model\x18\x02 \x01(\tR\x05model\x12)\n" +
 	"\x10baseline_version\x18\x03 \x01(\x05R\x0fbaselineVersion\x12%\n" +
 	"\x0edecision_leads\x18\x04 \x03(\x05R\rdecisionLeads\x12>\n" +
 	"\rseries_status\x18\x05 \x01(\v2\x19.aftercast.v1.DriftStatusR\fseriesStatus\x12>\n" +
-	"\rlead_statuses\x18\x06 \x03(\v2\x19.aftercast.v1.DriftStatusR\fleadStatuses\"\x84\x05\n" +
+	"\rlead_statuses\x18\x06 \x03(\v2\x19.aftercast.v1.DriftStatusR\fleadStatuses\"\xb4\x05\n" +
 	"\n" +
 	"DriftEvent\x12\x14\n" +
 	"\x05token\x18\x01 \x01(\tR\x05token\x129\n" +
@@ -943,22 +1412,50 @@ const file_aftercast_v1_drift_proto_rawDesc = "" +
 	"\n" +
 	"band_upper\x18\r \x01(\x01H\x04R\tbandUpper\x88\x01\x01\x12\x19\n" +
 	"\bwindow_n\x18\x0e \x01(\x05R\awindowN\x12\x18\n" +
-	"\x05k_eff\x18\x0f \x01(\x01H\x05R\x04kEff\x88\x01\x01B\a\n" +
+	"\x05k_eff\x18\x0f \x01(\x01H\x05R\x04kEff\x88\x01\x01\x12.\n" +
+	"\x05cause\x18\x10 \x01(\x0e2\x18.aftercast.v1.DriftCauseR\x05causeB\a\n" +
 	"\x05_leadB\b\n" +
 	"\x06_valueB\b\n" +
 	"\x06_limitB\r\n" +
 	"\v_band_lowerB\r\n" +
 	"\v_band_upperB\b\n" +
+	"\x06_k_eff\"\xbc\x03\n" +
+	"\x0fDriftTransition\x12\x17\n" +
+	"\x04lead\x18\x01 \x01(\x05H\x00R\x04lead\x88\x01\x01\x12;\n" +
+	"\vorigin_time\x18\x02 \x01(\v2\x1a.google.protobuf.TimestampR\n" +
+	"originTime\x12?\n" +
+	"\x0eprevious_state\x18\x03 \x01(\x0e2\x18.aftercast.v1.DriftStateR\rpreviousState\x125\n" +
+	"\tnew_state\x18\x04 \x01(\x0e2\x18.aftercast.v1.DriftStateR\bnewState\x121\n" +
+	"\x06metric\x18\x05 \x01(\x0e2\x19.aftercast.v1.DriftMetricR\x06metric\x12\x19\n" +
+	"\x05value\x18\x06 \x01(\x01H\x01R\x05value\x88\x01\x01\x12\x19\n" +
+	"\x05limit\x18\a \x01(\x01H\x02R\x05limit\x88\x01\x01\x12\x19\n" +
+	"\bwindow_n\x18\b \x01(\x05R\awindowN\x12\x18\n" +
+	"\x05k_eff\x18\t \x01(\x01H\x03R\x04kEff\x88\x01\x01\x12\x16\n" +
+	"\x06reason\x18\n" +
+	" \x01(\tR\x06reasonB\a\n" +
+	"\x05_leadB\b\n" +
+	"\x06_valueB\b\n" +
+	"\x06_limitB\b\n" +
 	"\x06_k_eff\"\x82\x01\n" +
 	"\x16ListDriftStatesRequest\x12\x16\n" +
 	"\x06series\x18\x01 \x01(\tR\x06series\x12\x14\n" +
 	"\x05model\x18\x02 \x01(\tR\x05model\x12\x1b\n" +
 	"\tpage_size\x18\x03 \x01(\x05R\bpageSize\x12\x1d\n" +
 	"\n" +
-	"page_token\x18\x04 \x01(\tR\tpageToken\"y\n" +
+	"page_token\x18\x04 \x01(\tR\tpageToken\"\xee\x01\n" +
 	"\x17ListDriftStatesResponse\x126\n" +
 	"\x06states\x18\x01 \x03(\v2\x1e.aftercast.v1.SeriesModelDriftR\x06states\x12&\n" +
-	"\x0fnext_page_token\x18\x02 \x01(\tR\rnextPageToken\"\xbd\x01\n" +
+	"\x0fnext_page_token\x18\x02 \x01(\tR\rnextPageToken\x12/\n" +
+	"\x13pending_evaluations\x18\x03 \x01(\x03R\x12pendingEvaluations\x12B\n" +
+	"\x1eexpected_chance_pages_per_week\x18\x04 \x01(\x01R\x1aexpectedChancePagesPerWeek\"h\n" +
+	"\x16GetDriftHistoryRequest\x12\x16\n" +
+	"\x06series\x18\x01 \x01(\tR\x06series\x12\x14\n" +
+	"\x05model\x18\x02 \x01(\tR\x05model\x12\x17\n" +
+	"\x04lead\x18\x03 \x01(\x05H\x00R\x04lead\x88\x01\x01B\a\n" +
+	"\x05_lead\"\x85\x01\n" +
+	"\x17GetDriftHistoryResponse\x12)\n" +
+	"\x10baseline_version\x18\x01 \x01(\x05R\x0fbaselineVersion\x12?\n" +
+	"\vtransitions\x18\x02 \x03(\v2\x1d.aftercast.v1.DriftTransitionR\vtransitions\"\xc5\x02\n" +
 	"\x16ListDriftEventsRequest\x12\x16\n" +
 	"\x06series\x18\x01 \x01(\tR\x06series\x12\x14\n" +
 	"\x05model\x18\x02 \x01(\tR\x05model\x129\n" +
@@ -966,7 +1463,9 @@ const file_aftercast_v1_drift_proto_rawDesc = "" +
 	"since_time\x18\x03 \x01(\v2\x1a.google.protobuf.TimestampR\tsinceTime\x12\x1b\n" +
 	"\tpage_size\x18\x04 \x01(\x05R\bpageSize\x12\x1d\n" +
 	"\n" +
-	"page_token\x18\x05 \x01(\tR\tpageToken\"s\n" +
+	"page_token\x18\x05 \x01(\tR\tpageToken\x12D\n" +
+	"\x10origin_from_time\x18\x06 \x01(\v2\x1a.google.protobuf.TimestampR\x0eoriginFromTime\x12@\n" +
+	"\x0eorigin_to_time\x18\a \x01(\v2\x1a.google.protobuf.TimestampR\foriginToTime\"s\n" +
 	"\x17ListDriftEventsResponse\x120\n" +
 	"\x06events\x18\x01 \x03(\v2\x18.aftercast.v1.DriftEventR\x06events\x12&\n" +
 	"\x0fnext_page_token\x18\x02 \x01(\tR\rnextPageToken\"j\n" +
@@ -975,11 +1474,18 @@ const file_aftercast_v1_drift_proto_rawDesc = "" +
 	"\x05model\x18\x02 \x01(\tR\x05model\x12!\n" +
 	"\fresume_token\x18\x03 \x01(\tR\vresumeToken\"J\n" +
 	"\x18WatchDriftEventsResponse\x12.\n" +
-	"\x05event\x18\x01 \x01(\v2\x18.aftercast.v1.DriftEventR\x05event2\xb3\x02\n" +
+	"\x05event\x18\x01 \x01(\v2\x18.aftercast.v1.DriftEventR\x05event*s\n" +
+	"\n" +
+	"DriftCause\x12\x1b\n" +
+	"\x17DRIFT_CAUSE_UNSPECIFIED\x10\x00\x12\x14\n" +
+	"\x10DRIFT_CAUSE_DATA\x10\x01\x12\x18\n" +
+	"\x14DRIFT_CAUSE_REVISION\x10\x02\x12\x18\n" +
+	"\x14DRIFT_CAUSE_BASELINE\x10\x032\x93\x03\n" +
 	"\fDriftService\x12^\n" +
 	"\x0fListDriftStates\x12$.aftercast.v1.ListDriftStatesRequest\x1a%.aftercast.v1.ListDriftStatesResponse\x12^\n" +
 	"\x0fListDriftEvents\x12$.aftercast.v1.ListDriftEventsRequest\x1a%.aftercast.v1.ListDriftEventsResponse\x12c\n" +
-	"\x10WatchDriftEvents\x12%.aftercast.v1.WatchDriftEventsRequest\x1a&.aftercast.v1.WatchDriftEventsResponse0\x01B=Z;github.com/aftercast/aftercast/api/aftercast/v1;aftercastv1b\x06proto3"
+	"\x10WatchDriftEvents\x12%.aftercast.v1.WatchDriftEventsRequest\x1a&.aftercast.v1.WatchDriftEventsResponse0\x01\x12^\n" +
+	"\x0fGetDriftHistory\x12$.aftercast.v1.GetDriftHistoryRequest\x1a%.aftercast.v1.GetDriftHistoryResponseB=Z;github.com/aftercast/aftercast/api/aftercast/v1;aftercastv1b\x06proto3"
 
 var (
 	file_aftercast_v1_drift_proto_rawDescOnce sync.Once
@@ -993,48 +1499,66 @@ func file_aftercast_v1_drift_proto_rawDescGZIP() []byte {
 	return file_aftercast_v1_drift_proto_rawDescData
 }
 
-var file_aftercast_v1_drift_proto_msgTypes = make([]protoimpl.MessageInfo, 9)
+var file_aftercast_v1_drift_proto_enumTypes = make([]protoimpl.EnumInfo, 1)
+var file_aftercast_v1_drift_proto_msgTypes = make([]protoimpl.MessageInfo, 12)
 var file_aftercast_v1_drift_proto_goTypes = []any{
-	(*DriftStatus)(nil),              // 0: aftercast.v1.DriftStatus
-	(*SeriesModelDrift)(nil),         // 1: aftercast.v1.SeriesModelDrift
-	(*DriftEvent)(nil),               // 2: aftercast.v1.DriftEvent
-	(*ListDriftStatesRequest)(nil),   // 3: aftercast.v1.ListDriftStatesRequest
-	(*ListDriftStatesResponse)(nil),  // 4: aftercast.v1.ListDriftStatesResponse
-	(*ListDriftEventsRequest)(nil),   // 5: aftercast.v1.ListDriftEventsRequest
-	(*ListDriftEventsResponse)(nil),  // 6: aftercast.v1.ListDriftEventsResponse
-	(*WatchDriftEventsRequest)(nil),  // 7: aftercast.v1.WatchDriftEventsRequest
-	(*WatchDriftEventsResponse)(nil), // 8: aftercast.v1.WatchDriftEventsResponse
-	(DriftState)(0),                  // 9: aftercast.v1.DriftState
-	(DriftMetric)(0),                 // 10: aftercast.v1.DriftMetric
-	(*timestamppb.Timestamp)(nil),    // 11: google.protobuf.Timestamp
+	(DriftCause)(0),                  // 0: aftercast.v1.DriftCause
+	(*DriftStatus)(nil),              // 1: aftercast.v1.DriftStatus
+	(*SeriesModelDrift)(nil),         // 2: aftercast.v1.SeriesModelDrift
+	(*DriftEvent)(nil),               // 3: aftercast.v1.DriftEvent
+	(*DriftTransition)(nil),          // 4: aftercast.v1.DriftTransition
+	(*ListDriftStatesRequest)(nil),   // 5: aftercast.v1.ListDriftStatesRequest
+	(*ListDriftStatesResponse)(nil),  // 6: aftercast.v1.ListDriftStatesResponse
+	(*GetDriftHistoryRequest)(nil),   // 7: aftercast.v1.GetDriftHistoryRequest
+	(*GetDriftHistoryResponse)(nil),  // 8: aftercast.v1.GetDriftHistoryResponse
+	(*ListDriftEventsRequest)(nil),   // 9: aftercast.v1.ListDriftEventsRequest
+	(*ListDriftEventsResponse)(nil),  // 10: aftercast.v1.ListDriftEventsResponse
+	(*WatchDriftEventsRequest)(nil),  // 11: aftercast.v1.WatchDriftEventsRequest
+	(*WatchDriftEventsResponse)(nil), // 12: aftercast.v1.WatchDriftEventsResponse
+	(DriftState)(0),                  // 13: aftercast.v1.DriftState
+	(DriftMetric)(0),                 // 14: aftercast.v1.DriftMetric
+	(*timestamppb.Timestamp)(nil),    // 15: google.protobuf.Timestamp
 }
 var file_aftercast_v1_drift_proto_depIdxs = []int32{
-	9,  // 0: aftercast.v1.DriftStatus.state:type_name -> aftercast.v1.DriftState
-	10, // 1: aftercast.v1.DriftStatus.breached_metrics:type_name -> aftercast.v1.DriftMetric
-	11, // 2: aftercast.v1.DriftStatus.state_since_time:type_name -> google.protobuf.Timestamp
-	11, // 3: aftercast.v1.DriftStatus.last_origin_time:type_name -> google.protobuf.Timestamp
-	0,  // 4: aftercast.v1.SeriesModelDrift.series_status:type_name -> aftercast.v1.DriftStatus
-	0,  // 5: aftercast.v1.SeriesModelDrift.lead_statuses:type_name -> aftercast.v1.DriftStatus
-	11, // 6: aftercast.v1.DriftEvent.event_time:type_name -> google.protobuf.Timestamp
-	11, // 7: aftercast.v1.DriftEvent.origin_time:type_name -> google.protobuf.Timestamp
-	10, // 8: aftercast.v1.DriftEvent.metric:type_name -> aftercast.v1.DriftMetric
-	9,  // 9: aftercast.v1.DriftEvent.previous_state:type_name -> aftercast.v1.DriftState
-	9,  // 10: aftercast.v1.DriftEvent.new_state:type_name -> aftercast.v1.DriftState
-	1,  // 11: aftercast.v1.ListDriftStatesResponse.states:type_name -> aftercast.v1.SeriesModelDrift
-	11, // 12: aftercast.v1.ListDriftEventsRequest.since_time:type_name -> google.protobuf.Timestamp
-	2,  // 13: aftercast.v1.ListDriftEventsResponse.events:type_name -> aftercast.v1.DriftEvent
-	2,  // 14: aftercast.v1.WatchDriftEventsResponse.event:type_name -> aftercast.v1.DriftEvent
-	3,  // 15: aftercast.v1.DriftService.ListDriftStates:input_type -> aftercast.v1.ListDriftStatesRequest
-	5,  // 16: aftercast.v1.DriftService.ListDriftEvents:input_type -> aftercast.v1.ListDriftEventsRequest
-	7,  // 17: aftercast.v1.DriftService.WatchDriftEvents:input_type -> aftercast.v1.WatchDriftEventsRequest
-	4,  // 18: aftercast.v1.DriftService.ListDriftStates:output_type -> aftercast.v1.ListDriftStatesResponse
-	6,  // 19: aftercast.v1.DriftService.ListDriftEvents:output_type -> aftercast.v1.ListDriftEventsResponse
-	8,  // 20: aftercast.v1.DriftService.WatchDriftEvents:output_type -> aftercast.v1.WatchDriftEventsResponse
-	18, // [18:21] is the sub-list for method output_type
-	15, // [15:18] is the sub-list for method input_type
-	15, // [15:15] is the sub-list for extension type_name
-	15, // [15:15] is the sub-list for extension extendee
-	0,  // [0:15] is the sub-list for field type_name
+	13, // 0: aftercast.v1.DriftStatus.state:type_name -> aftercast.v1.DriftState
+	14, // 1: aftercast.v1.DriftStatus.breached_metrics:type_name -> aftercast.v1.DriftMetric
+	15, // 2: aftercast.v1.DriftStatus.state_since_time:type_name -> google.protobuf.Timestamp
+	15, // 3: aftercast.v1.DriftStatus.last_origin_time:type_name -> google.protobuf.Timestamp
+	15, // 4: aftercast.v1.DriftStatus.onset_origin_time:type_name -> google.protobuf.Timestamp
+	15, // 5: aftercast.v1.DriftStatus.noticed_time:type_name -> google.protobuf.Timestamp
+	14, // 6: aftercast.v1.DriftStatus.onset_metric:type_name -> aftercast.v1.DriftMetric
+	1,  // 7: aftercast.v1.SeriesModelDrift.series_status:type_name -> aftercast.v1.DriftStatus
+	1,  // 8: aftercast.v1.SeriesModelDrift.lead_statuses:type_name -> aftercast.v1.DriftStatus
+	15, // 9: aftercast.v1.DriftEvent.event_time:type_name -> google.protobuf.Timestamp
+	15, // 10: aftercast.v1.DriftEvent.origin_time:type_name -> google.protobuf.Timestamp
+	14, // 11: aftercast.v1.DriftEvent.metric:type_name -> aftercast.v1.DriftMetric
+	13, // 12: aftercast.v1.DriftEvent.previous_state:type_name -> aftercast.v1.DriftState
+	13, // 13: aftercast.v1.DriftEvent.new_state:type_name -> aftercast.v1.DriftState
+	0,  // 14: aftercast.v1.DriftEvent.cause:type_name -> aftercast.v1.DriftCause
+	15, // 15: aftercast.v1.DriftTransition.origin_time:type_name -> google.protobuf.Timestamp
+	13, // 16: aftercast.v1.DriftTransition.previous_state:type_name -> aftercast.v1.DriftState
+	13, // 17: aftercast.v1.DriftTransition.new_state:type_name -> aftercast.v1.DriftState
+	14, // 18: aftercast.v1.DriftTransition.metric:type_name -> aftercast.v1.DriftMetric
+	2,  // 19: aftercast.v1.ListDriftStatesResponse.states:type_name -> aftercast.v1.SeriesModelDrift
+	4,  // 20: aftercast.v1.GetDriftHistoryResponse.transitions:type_name -> aftercast.v1.DriftTransition
+	15, // 21: aftercast.v1.ListDriftEventsRequest.since_time:type_name -> google.protobuf.Timestamp
+	15, // 22: aftercast.v1.ListDriftEventsRequest.origin_from_time:type_name -> google.protobuf.Timestamp
+	15, // 23: aftercast.v1.ListDriftEventsRequest.origin_to_time:type_name -> google.protobuf.Timestamp
+	3,  // 24: aftercast.v1.ListDriftEventsResponse.events:type_name -> aftercast.v1.DriftEvent
+	3,  // 25: aftercast.v1.WatchDriftEventsResponse.event:type_name -> aftercast.v1.DriftEvent
+	5,  // 26: aftercast.v1.DriftService.ListDriftStates:input_type -> aftercast.v1.ListDriftStatesRequest
+	9,  // 27: aftercast.v1.DriftService.ListDriftEvents:input_type -> aftercast.v1.ListDriftEventsRequest
+	11, // 28: aftercast.v1.DriftService.WatchDriftEvents:input_type -> aftercast.v1.WatchDriftEventsRequest
+	7,  // 29: aftercast.v1.DriftService.GetDriftHistory:input_type -> aftercast.v1.GetDriftHistoryRequest
+	6,  // 30: aftercast.v1.DriftService.ListDriftStates:output_type -> aftercast.v1.ListDriftStatesResponse
+	10, // 31: aftercast.v1.DriftService.ListDriftEvents:output_type -> aftercast.v1.ListDriftEventsResponse
+	12, // 32: aftercast.v1.DriftService.WatchDriftEvents:output_type -> aftercast.v1.WatchDriftEventsResponse
+	8,  // 33: aftercast.v1.DriftService.GetDriftHistory:output_type -> aftercast.v1.GetDriftHistoryResponse
+	30, // [30:34] is the sub-list for method output_type
+	26, // [26:30] is the sub-list for method input_type
+	26, // [26:26] is the sub-list for extension type_name
+	26, // [26:26] is the sub-list for extension extendee
+	0,  // [0:26] is the sub-list for field type_name
 }
 
 func init() { file_aftercast_v1_drift_proto_init() }
@@ -1045,18 +1569,21 @@ func file_aftercast_v1_drift_proto_init() {
 	file_aftercast_v1_metrics_proto_init()
 	file_aftercast_v1_drift_proto_msgTypes[0].OneofWrappers = []any{}
 	file_aftercast_v1_drift_proto_msgTypes[2].OneofWrappers = []any{}
+	file_aftercast_v1_drift_proto_msgTypes[3].OneofWrappers = []any{}
+	file_aftercast_v1_drift_proto_msgTypes[6].OneofWrappers = []any{}
 	type x struct{}
 	out := protoimpl.TypeBuilder{
 		File: protoimpl.DescBuilder{
 			GoPackagePath: reflect.TypeOf(x{}).PkgPath(),
 			RawDescriptor: unsafe.Slice(unsafe.StringData(file_aftercast_v1_drift_proto_rawDesc), len(file_aftercast_v1_drift_proto_rawDesc)),
-			NumEnums:      0,
-			NumMessages:   9,
+			NumEnums:      1,
+			NumMessages:   12,
 			NumExtensions: 0,
 			NumServices:   1,
 		},
 		GoTypes:           file_aftercast_v1_drift_proto_goTypes,
 		DependencyIndexes: file_aftercast_v1_drift_proto_depIdxs,
+		EnumInfos:         file_aftercast_v1_drift_proto_enumTypes,
 		MessageInfos:      file_aftercast_v1_drift_proto_msgTypes,
 	}.Build()
 	File_aftercast_v1_drift_proto = out.File

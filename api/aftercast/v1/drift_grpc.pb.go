@@ -22,6 +22,7 @@ const (
 	DriftService_ListDriftStates_FullMethodName  = "/aftercast.v1.DriftService/ListDriftStates"
 	DriftService_ListDriftEvents_FullMethodName  = "/aftercast.v1.DriftService/ListDriftEvents"
 	DriftService_WatchDriftEvents_FullMethodName = "/aftercast.v1.DriftService/WatchDriftEvents"
+	DriftService_GetDriftHistory_FullMethodName  = "/aftercast.v1.DriftService/GetDriftHistory"
 )
 
 // DriftServiceClient is the client API for DriftService service.
@@ -31,10 +32,15 @@ const (
 // DriftService reports drift: whether live accuracy of a (series, model)
 // still matches its active baseline (method.md §5).
 //
-// States are re-evaluated whenever a new origin is scored for a lead. The
-// series-level state, the one meant to page people, is judged on a pooled
-// quantity over the series' decision leads; per-lead states are for
-// diagnosis. Every change of state is stored as a DriftEvent.
+// Drift is a function of the stored data: the detector is fed one
+// evaluation per scored origin, in origin order, over the production period
+// (the origins after the baseline's last backtest origin). A push commits
+// its data with a mark of what must be re-judged and is acknowledged; the
+// service's evaluator replays the affected origins shortly after (see
+// ListDriftStatesResponse.pending_evaluations). The series-level state, the
+// one meant to page people, is judged on a pooled quantity over the series'
+// decision leads; per-lead states are for diagnosis. Every announced change
+// of a current state is stored as a DriftEvent.
 type DriftServiceClient interface {
 	// ListDriftStates pages through the current drift states, one entry per
 	// (series, model) with live pairs, ordered by series, then model.
@@ -53,6 +59,11 @@ type DriftServiceClient interface {
 	// that records each processed event's token and reconnects with the last
 	// one misses nothing. INVALID_ARGUMENT for a malformed token.
 	WatchDriftEvents(ctx context.Context, in *WatchDriftEventsRequest, opts ...grpc.CallOption) (grpc.ServerStreamingClient[WatchDriftEventsResponse], error)
+	// GetDriftHistory replays the stored production period of a (series,
+	// model) against its active baseline and returns every state transition,
+	// in origin order: the history whose end the current states are. Nothing
+	// is stored or announced. NOT_FOUND without a baseline.
+	GetDriftHistory(ctx context.Context, in *GetDriftHistoryRequest, opts ...grpc.CallOption) (*GetDriftHistoryResponse, error)
 }
 
 type driftServiceClient struct {
@@ -102,6 +113,16 @@ func (c *driftServiceClient) WatchDriftEvents(ctx context.Context, in *WatchDrif
 // This type alias is provided for backwards compatibility with existing code that references the prior non-generic stream type by name.
 type DriftService_WatchDriftEventsClient = grpc.ServerStreamingClient[WatchDriftEventsResponse]
 
+func (c *driftServiceClient) GetDriftHistory(ctx context.Context, in *GetDriftHistoryRequest, opts ...grpc.CallOption) (*GetDriftHistoryResponse, error) {
+	cOpts := append([]grpc.CallOption{grpc.StaticMethod()}, opts...)
+	out := new(GetDriftHistoryResponse)
+	err := c.cc.Invoke(ctx, DriftService_GetDriftHistory_FullMethodName, in, out, cOpts...)
+	if err != nil {
+		return nil, err
+	}
+	return out, nil
+}
+
 // DriftServiceServer is the server API for DriftService service.
 // All implementations must embed UnimplementedDriftServiceServer
 // for forward compatibility.
@@ -109,10 +130,15 @@ type DriftService_WatchDriftEventsClient = grpc.ServerStreamingClient[WatchDrift
 // DriftService reports drift: whether live accuracy of a (series, model)
 // still matches its active baseline (method.md §5).
 //
-// States are re-evaluated whenever a new origin is scored for a lead. The
-// series-level state, the one meant to page people, is judged on a pooled
-// quantity over the series' decision leads; per-lead states are for
-// diagnosis. Every change of state is stored as a DriftEvent.
+// Drift is a function of the stored data: the detector is fed one
+// evaluation per scored origin, in origin order, over the production period
+// (the origins after the baseline's last backtest origin). A push commits
+// its data with a mark of what must be re-judged and is acknowledged; the
+// service's evaluator replays the affected origins shortly after (see
+// ListDriftStatesResponse.pending_evaluations). The series-level state, the
+// one meant to page people, is judged on a pooled quantity over the series'
+// decision leads; per-lead states are for diagnosis. Every announced change
+// of a current state is stored as a DriftEvent.
 type DriftServiceServer interface {
 	// ListDriftStates pages through the current drift states, one entry per
 	// (series, model) with live pairs, ordered by series, then model.
@@ -131,6 +157,11 @@ type DriftServiceServer interface {
 	// that records each processed event's token and reconnects with the last
 	// one misses nothing. INVALID_ARGUMENT for a malformed token.
 	WatchDriftEvents(*WatchDriftEventsRequest, grpc.ServerStreamingServer[WatchDriftEventsResponse]) error
+	// GetDriftHistory replays the stored production period of a (series,
+	// model) against its active baseline and returns every state transition,
+	// in origin order: the history whose end the current states are. Nothing
+	// is stored or announced. NOT_FOUND without a baseline.
+	GetDriftHistory(context.Context, *GetDriftHistoryRequest) (*GetDriftHistoryResponse, error)
 	mustEmbedUnimplementedDriftServiceServer()
 }
 
@@ -149,6 +180,9 @@ func (UnimplementedDriftServiceServer) ListDriftEvents(context.Context, *ListDri
 }
 func (UnimplementedDriftServiceServer) WatchDriftEvents(*WatchDriftEventsRequest, grpc.ServerStreamingServer[WatchDriftEventsResponse]) error {
 	return status.Error(codes.Unimplemented, "method WatchDriftEvents not implemented")
+}
+func (UnimplementedDriftServiceServer) GetDriftHistory(context.Context, *GetDriftHistoryRequest) (*GetDriftHistoryResponse, error) {
+	return nil, status.Error(codes.Unimplemented, "method GetDriftHistory not implemented")
 }
 func (UnimplementedDriftServiceServer) mustEmbedUnimplementedDriftServiceServer() {}
 func (UnimplementedDriftServiceServer) testEmbeddedByValue()                      {}
@@ -218,6 +252,24 @@ func _DriftService_WatchDriftEvents_Handler(srv interface{}, stream grpc.ServerS
 // This type alias is provided for backwards compatibility with existing code that references the prior non-generic stream type by name.
 type DriftService_WatchDriftEventsServer = grpc.ServerStreamingServer[WatchDriftEventsResponse]
 
+func _DriftService_GetDriftHistory_Handler(srv interface{}, ctx context.Context, dec func(interface{}) error, interceptor grpc.UnaryServerInterceptor) (interface{}, error) {
+	in := new(GetDriftHistoryRequest)
+	if err := dec(in); err != nil {
+		return nil, err
+	}
+	if interceptor == nil {
+		return srv.(DriftServiceServer).GetDriftHistory(ctx, in)
+	}
+	info := &grpc.UnaryServerInfo{
+		Server:     srv,
+		FullMethod: DriftService_GetDriftHistory_FullMethodName,
+	}
+	handler := func(ctx context.Context, req interface{}) (interface{}, error) {
+		return srv.(DriftServiceServer).GetDriftHistory(ctx, req.(*GetDriftHistoryRequest))
+	}
+	return interceptor(ctx, in, info, handler)
+}
+
 // DriftService_ServiceDesc is the grpc.ServiceDesc for DriftService service.
 // It's only intended for direct use with grpc.RegisterService,
 // and not to be introspected or modified (even as a copy)
@@ -232,6 +284,10 @@ var DriftService_ServiceDesc = grpc.ServiceDesc{
 		{
 			MethodName: "ListDriftEvents",
 			Handler:    _DriftService_ListDriftEvents_Handler,
+		},
+		{
+			MethodName: "GetDriftHistory",
+			Handler:    _DriftService_GetDriftHistory_Handler,
 		},
 	},
 	Streams: []grpc.StreamDesc{

@@ -30,8 +30,8 @@ const (
 	DriftState_DRIFT_STATE_UNSPECIFIED DriftState = 0
 	// The live metrics lie within what the baseline expects.
 	DriftState_DRIFT_STATE_WITHIN DriftState = 1
-	// Accuracy is worse than the baseline allows: window MAE above its 99%
-	// upper limit, or window ME outside its 99% band.
+	// Accuracy is worse than the baseline allows: window MAE above its alarm
+	// limit, or window ME outside its alarm band.
 	DriftState_DRIFT_STATE_DEGRADED DriftState = 2
 	// Window MAE is below the lower bound of its 95% band. Informational: it
 	// often means the backtest was pessimistic or the actuals feed changed.
@@ -294,11 +294,11 @@ type MetricBand struct {
 	BandLower float64 `protobuf:"fixed64,2,opt,name=band_lower,json=bandLower,proto3" json:"band_lower,omitempty"`
 	// Upper bound of the central 95% prediction band (p = 0.975).
 	BandUpper float64 `protobuf:"fixed64,3,opt,name=band_upper,json=bandUpper,proto3" json:"band_upper,omitempty"`
-	// Lower 99% alarm limit (p = 0.005). Set for ME only, whose alarm band is
+	// Lower alarm limit (p = 0.001). Set for ME only, whose alarm band is
 	// two-sided; absent for MAE and RMSE, whose alarm is one-sided (upper).
 	AlarmLower *float64 `protobuf:"fixed64,4,opt,name=alarm_lower,json=alarmLower,proto3,oneof" json:"alarm_lower,omitempty"`
-	// Upper 99% alarm limit: p = 0.99 (one-sided) for MAE and RMSE, p = 0.995
-	// (upper side of the two-sided 99% band) for ME.
+	// Upper alarm limit: p = 0.995 (one-sided) for MAE and RMSE, p = 0.999
+	// (upper side of the two-sided alarm band) for ME.
 	AlarmUpper float64 `protobuf:"fixed64,5,opt,name=alarm_upper,json=alarmUpper,proto3" json:"alarm_upper,omitempty"`
 	// Effective number of independent backtest origins for this metric's
 	// per-origin quantity (|e| for MAE, e² for RMSE, e for ME): K / f_K.
