@@ -90,7 +90,7 @@ type Replayed struct {
 	Start       Checkpoint   // the checkpoint it started from, initialised when it was the initial one
 	History     []Change     // every transition, in origin order (leads ascending, 0 first, within an origin)
 	Status      []Status     // every lead, 0 (the series) first, then 1..H
-	Checkpoints []Checkpoint // at every CheckpointEvery-th origin evaluated, then the final state last
+	Checkpoints []Checkpoint // at every CheckpointEvery-th origin evaluated, and the final state last (once)
 	Judgements  []Judgement  // only with ReplayOptions.Judge
 	Evaluations int          // evaluations made
 }
@@ -159,7 +159,9 @@ func Replay(ref *Reference, from Checkpoint, pairs []Pair, opt ReplayOptions) (R
 	if err != nil {
 		return Replayed{}, err
 	}
-	rp.out.Checkpoints = append(rp.out.Checkpoints, rp.checkpoint())
+	if cps := rp.out.Checkpoints; len(cps) == 0 || cps[len(cps)-1].Seq != rp.cp.Seq {
+		rp.out.Checkpoints = append(rp.out.Checkpoints, rp.checkpoint())
+	}
 	rp.out.Status = rp.status()
 	return rp.out, nil
 }

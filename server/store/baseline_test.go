@@ -110,12 +110,12 @@ func TestShapeWarningsFollowProduction(t *testing.T) {
 		t.Fatal(err)
 	}
 	kinds := func() map[string]bool {
-		v, _, _, err := s.BaselineView(ctx, "c", "m", 0, 30)
+		b, err := s.GetBaseline(ctx, "c", "m", 0)
 		if err != nil {
 			t.Fatal(err)
 		}
 		out := map[string]bool{}
-		for _, w := range v.Warnings {
+		for _, w := range b.Warnings {
 			out[w.Kind] = true
 		}
 		return out
