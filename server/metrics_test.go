@@ -337,7 +337,7 @@ aftercast_pairs_scored_total %d
 			t.Error(err)
 		}
 		// State changes: as many as the stored drift events, by level and state.
-		evs, err := srv.Store().DriftEvents(ctx, "", "", time.Time{}, 0, 10000)
+		evs, err := srv.Store().DriftEvents(ctx, store.EventFilter{})
 		if err != nil {
 			t.Fatal(err)
 		}

@@ -13,13 +13,16 @@ import (
 	"google.golang.org/protobuf/types/known/timestamppb"
 
 	aftercastv1 "github.com/aftercast/aftercast/api/aftercast/v1"
+	"github.com/aftercast/aftercast/server"
 	"github.com/aftercast/aftercast/server/store"
 	"github.com/aftercast/aftercast/server/store/storetest"
 )
 
 // pushDays writes days of daily forecasts (leads 1..leads, hourly step) and
-// their actuals, with errors scaled by scale, then evaluates drift.
-func pushDays(t *testing.T, ctx context.Context, st *store.Store, key string, from, days, leads int, scale float64, r *rand.Rand) {
+// their actuals, with errors scaled by scale, then drains the drift
+// evaluator.
+func pushDays(t *testing.T, ctx context.Context, srv *server.Server, key string, from, days, leads int, scale float64, r *rand.Rand) {
+	st := srv.Store()
 	t.Helper()
 	for k := from; k < from+days; k++ {
 		o := t0.Add(time.Duration(k) * 24 * time.Hour)
@@ -36,7 +39,7 @@ func pushDays(t *testing.T, ctx context.Context, st *store.Store, key string, fr
 			t.Fatal(err)
 		}
 	}
-	if _, err := st.EvaluateDrift(ctx, []string{key}); err != nil {
+	if err := srv.Drift().Drain(ctx); err != nil {
 		t.Fatal(err)
 	}
 }
@@ -63,7 +66,7 @@ func TestWatchDriftEventsResumes(t *testing.T) {
 	if _, err := st.ImportBaseline(ctx, "m", rows, nil); err != nil {
 		t.Fatal(err)
 	}
-	pushDays(t, ctx, st, "w", 0, 20, leads, 1, r) // events so far: leaving insufficient_data
+	pushDays(t, ctx, srv, "w", 0, 20, leads, 1, r) // events so far: leaving insufficient_data
 	conn := dialT(t, srv.GRPCAddr())
 	drift := aftercastv1.NewDriftServiceClient(conn)
 	before, err := drift.ListDriftEvents(ctx, &aftercastv1.ListDriftEventsRequest{PageSize: 1000})
@@ -77,7 +80,7 @@ func TestWatchDriftEventsResumes(t *testing.T) {
 		t.Fatal(err)
 	}
 	time.Sleep(700 * time.Millisecond)             // let the watch take its starting point
-	pushDays(t, ctx, st, "w", 20, 30, leads, 3, r) // errors ×3: degraded events follow
+	pushDays(t, ctx, srv, "w", 20, 30, leads, 3, r) // errors ×3: degraded events follow
 	first, err := watch.Recv()
 	if err != nil {
 		t.Fatal(err)
@@ -122,7 +125,8 @@ func dialT(t *testing.T, addr string) *grpc.ClientConn {
 }
 
 // A stream of actuals that fails midway keeps the batches it committed, and
-// those are judged at once: drift does not wait for the next push.
+// the server's evaluator judges them off the request path without waiting
+// for the next push.
 func TestFailedActualsStreamStillJudgesWhatItCommitted(t *testing.T) {
 	t.Parallel()
 	srv, c := start(t, storetest.URL(t))
@@ -169,12 +173,22 @@ func TestFailedActualsStreamStillJudgesWhatItCommitted(t *testing.T) {
 	if _, err := stream.CloseAndRecv(); status.Code(err) != codes.InvalidArgument {
 		t.Fatalf("oversized batch: %v, want InvalidArgument", err)
 	}
-	states, err := st.DriftStates(ctx, "f", "")
-	if err != nil {
-		t.Fatal(err)
-	}
-	if len(states) == 0 {
-		t.Fatal("no drift state after a failed stream: the committed actuals were not judged")
+	var states []store.DriftStatus
+	for deadline := time.Now().Add(20 * time.Second); ; {
+		pending, _, err := st.DriftBacklog(ctx)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if states, err = st.DriftStates(ctx, "f", ""); err != nil {
+			t.Fatal(err)
+		}
+		if pending == 0 && len(states) > 0 && states[0].LastOrigin.Equal(t0.Add(9*24*time.Hour)) {
+			break
+		}
+		if time.Now().After(deadline) {
+			t.Fatalf("20 s after a failed stream: %d marks pending, %d states: the committed actuals were not judged", pending, len(states))
+		}
+		time.Sleep(50 * time.Millisecond)
 	}
 	last := t0.Add(9 * 24 * time.Hour)
 	for _, s := range states {
