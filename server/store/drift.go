@@ -10,6 +10,7 @@ import (
 
 	"github.com/jackc/pgx/v5"
 	"github.com/jackc/pgx/v5/pgtype"
+	"github.com/jackc/pgx/v5/pgxpool"
 
 	"github.com/aftercast/aftercast/scoring"
 )
@@ -115,63 +116,80 @@ type ClaimedSeries struct {
 	States    map[string][]DriftStatus // by model
 }
 
-// DriftClaim holds series claimed for evaluation: a transaction that holds
-// each claimed series' evaluation lock until Commit or Release, so that
-// replicas never judge one series at the same time. Pushes take other locks
-// and are never held up by it.
+// DriftClaim holds series claimed for evaluation. Each claimed series'
+// evaluation lock is held by the claim's connection until Commit or
+// Release, so that replicas never judge one series at the same time; pushes
+// take other locks and are never held up by it. Everything the claim reads
+// comes from one snapshot taken after the locks: the marks it claims and
+// the data they were written with are seen together, and data committed
+// later is left, with its marks, to the next claim.
 type DriftClaim struct {
+	conn   *pgxpool.Conn
 	tx     pgx.Tx
+	locked []int64
 	Series []*ClaimedSeries
 	marks  []int64
 	ids    map[string]int64 // series key → id
 }
 
 // lockClassDrift is the first key of the per-series evaluation locks
-// (pg_try_advisory_xact_lock(class, series id)); "afdr".
+// (pg_try_advisory_lock(class, series id)); "afdr".
 const lockClassDrift = 0x61666472
 
 // ClaimDrift claims up to limit series with marks that no other evaluator
 // holds, oldest marks first, and reads their marks, baselines and states.
 // It returns nil when there is nothing to claim.
 func (s *Store) ClaimDrift(ctx context.Context, limit int) (*DriftClaim, error) {
-	tx, err := s.pool.Begin(ctx)
+	conn, err := s.pool.Acquire(ctx)
 	if err != nil {
-		return nil, fmt.Errorf("starting transaction: %w", err)
+		return nil, fmt.Errorf("acquiring a connection: %w", err)
 	}
-	c := &DriftClaim{tx: tx, ids: map[string]int64{}}
+	c := &DriftClaim{conn: conn, ids: map[string]int64{}}
 	ok := false
 	defer func() {
 		if !ok {
 			c.Release(ctx)
 		}
 	}()
-	rows, err := tx.Query(ctx, `WITH c AS MATERIALIZED (
+	// Session locks, taken before the transaction: its snapshot then
+	// includes whatever the previous holder of a lock committed.
+	rows, err := conn.Query(ctx, `WITH c AS MATERIALIZED (
 			SELECT series_id, min(id) AS first FROM drift_marks GROUP BY series_id ORDER BY first LIMIT $1),
-		l AS MATERIALIZED (SELECT series_id, first, pg_try_advisory_xact_lock($2, series_id::int) AS got FROM c)
-		SELECT s.key FROM l JOIN series s ON s.id = l.series_id WHERE l.got ORDER BY l.first`, limit, lockClassDrift)
+		l AS MATERIALIZED (SELECT series_id, first, pg_try_advisory_lock($2, series_id::int) AS got FROM c)
+		SELECT series_id FROM l WHERE got ORDER BY first`, limit, lockClassDrift)
 	if err != nil {
 		return nil, fmt.Errorf("claiming drift marks: %w", err)
 	}
-	keys, err := pgx.CollectRows(rows, pgx.RowTo[string])
-	if err != nil {
+	if c.locked, err = pgx.CollectRows(rows, pgx.RowTo[int64]); err != nil {
 		return nil, fmt.Errorf("claiming drift marks: %w", err)
 	}
-	if len(keys) == 0 {
+	if len(c.locked) == 0 {
 		return nil, nil
 	}
+	if c.tx, err = conn.BeginTx(ctx, pgx.TxOptions{IsoLevel: pgx.RepeatableRead}); err != nil {
+		return nil, fmt.Errorf("starting transaction: %w", err)
+	}
 	byID := map[int64]*ClaimedSeries{}
-	ids := make([]int64, 0, len(keys))
-	for _, k := range keys {
-		se, err := s.seriesByKey(ctx, k)
+	rows, err = c.tx.Query(ctx, `SELECT id, key FROM series WHERE id = ANY($1)`, c.locked)
+	if err != nil {
+		return nil, fmt.Errorf("claiming drift marks: %w", err)
+	}
+	keys := map[int64]string{}
+	var id int64
+	var key string
+	if _, err := pgx.ForEachRow(rows, []any{&id, &key}, func() error { keys[id] = key; return nil }); err != nil {
+		return nil, fmt.Errorf("claiming drift marks: %w", err)
+	}
+	for _, id := range c.locked {
+		se, err := s.seriesByKey(ctx, keys[id])
 		if err != nil {
 			return nil, err
 		}
 		cs := &ClaimedSeries{Series: se, States: map[string][]DriftStatus{}}
 		c.Series = append(c.Series, cs)
 		byID[se.ID], c.ids[se.Key] = cs, se.ID
-		ids = append(ids, se.ID)
 	}
-	if err := c.readClaimed(ctx, ids, byID); err != nil {
+	if err := c.readClaimed(ctx, c.locked, byID); err != nil {
 		return nil, err
 	}
 	ok = true
@@ -216,9 +234,24 @@ func (c *DriftClaim) readClaimed(ctx context.Context, ids []int64, byID map[int6
 	return nil
 }
 
-// Release gives the claim up: its marks stay for the next evaluation.
+// Release gives the claim up: uncommitted, its marks stay for the next
+// evaluation. It is safe to call more than once.
 func (c *DriftClaim) Release(ctx context.Context) {
-	_ = c.tx.Rollback(context.WithoutCancel(ctx))
+	if c.conn == nil {
+		return
+	}
+	ctx = context.WithoutCancel(ctx)
+	if c.tx != nil {
+		_ = c.tx.Rollback(ctx)
+	}
+	if len(c.locked) > 0 {
+		if _, err := c.conn.Exec(ctx, `SELECT pg_advisory_unlock($1, id::int) FROM unnest($2::bigint[]) AS id`, lockClassDrift, c.locked); err != nil {
+			// A session that cannot unlock is closed: that releases its locks.
+			_ = c.conn.Conn().Close(ctx)
+		}
+	}
+	c.conn.Release()
+	c.conn = nil
 }
 
 // CheckpointQuery asks for the newest checkpoint of a (series, model) and
@@ -303,7 +336,7 @@ func scoredPairs(ctx context.Context, q querier, qs []PairsQuery) ([][]scoring.P
 	var f storedForecast
 	var vals []pgtype.Float8
 	if _, err := pgx.ForEachRow(rows, []any{&i, &f.origin, &vals, &f.late}, func() error {
-		f.vals = fromFloat8(vals)
+		f.origin, f.vals = f.origin.UTC(), fromFloat8(vals)
 		vecs[i] = append(vecs[i], f)
 		f = storedForecast{}
 		return nil
@@ -629,8 +662,18 @@ func orNaN(p *float64) float64 {
 // DriftBacklog is how many marks wait for evaluation and when the oldest
 // was written (zero when none waits).
 func (s *Store) DriftBacklog(ctx context.Context) (pending int64, oldest time.Time, err error) {
+	return s.backlog(ctx, `SELECT count(*), min(created_at) FROM drift_marks`)
+}
+
+// SeriesBacklog is DriftBacklog of one series.
+func (s *Store) SeriesBacklog(ctx context.Context, key string) (pending int64, oldest time.Time, err error) {
+	return s.backlog(ctx, `SELECT count(*), min(m.created_at) FROM drift_marks m JOIN series s ON s.id = m.series_id WHERE s.key = $1`, key)
+}
+
+func (s *Store) backlog(ctx context.Context, sql string, args ...any) (int64, time.Time, error) {
+	var pending int64
 	var t pgtype.Timestamptz
-	if err := s.pool.QueryRow(ctx, `SELECT count(*), min(created_at) FROM drift_marks`).Scan(&pending, &t); err != nil {
+	if err := s.pool.QueryRow(ctx, sql, args...).Scan(&pending, &t); err != nil {
 		return 0, time.Time{}, fmt.Errorf("reading drift marks: %w", err)
 	}
 	return pending, t.Time, nil
