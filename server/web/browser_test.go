@@ -87,6 +87,9 @@ func TestBrowser(t *testing.T) {
 			regexp.MustCompile(`(?s)<svg id="origin-chart"[^>]*>.*<path class="band" d="M`),
 			regexp.MustCompile(`<li><span class="state improved" data-state="improved">.*improved</span> <span class="leads">1-3</span></li>`),
 			regexp.MustCompile(`(?s)<table id="events">.*<tbody>\s*<tr>`),
+			// The state's onset in data time; the wall clock only as noticed.
+			regexp.MustCompile(`<dt>state</dt><dd><span class="state degraded"[^>]*>.*</span> <span class="muted">since the <time datetime="[^"]+">\d\d:\d\d UTC origin of \d+ \w+( \d{4})?</time>, \d+ origins ago</span></dd>`),
+			regexp.MustCompile(`<dt>noticed at</dt><dd><time datetime="[^"]+">`),
 		} {
 			if !want.MatchString(dom) {
 				t.Errorf("rendered DOM lacks %s", want)
@@ -94,6 +97,10 @@ func TestBrowser(t *testing.T) {
 		}
 		if strings.Contains(dom, "<script") {
 			t.Error("the page carries a script")
+		}
+		dom = string(runChromium(t, bin, "--dump-dom", f.srv.URL+"/"))
+		if !regexp.MustCompile(`If every series is healthy, about <b>[0-9.]+</b> pages a week are expected by chance`).MatchString(dom) {
+			t.Error("the rendered overview does not give the chance pages a week")
 		}
 	})
 

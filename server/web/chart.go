@@ -275,13 +275,13 @@ type leadPoint struct {
 }
 
 // leadChart draws MAE per lead: live line with state markers, the
-// expectation dashed, the 95% band filled, the 99% alarm limit thin and
+// expectation dashed, the 95% band filled, the MAE alarm limit thin and
 // dotted, the decision leads shaded.
 func leadChart(id string, pts []leadPoint, horizon int, decision []int, allDecision bool, unit, step string, windowNote string) *chart {
 	f := frame{w: 960, h: 340, left: 70, top: 30, right: 18, bottom: 50}
 	c := newChart(id, "Windowed MAE per lead step against the backtest band",
 		fmt.Sprintf("For each lead 1 to %d: the MAE of the live window (%s) as a solid line with a marker per lead whose shape tells its state; "+
-			"the backtest expectation as a dashed line, its 95%% band as a shaded area and the 99%% alarm limit as a dotted line. "+
+			"the backtest expectation as a dashed line, its 95%% band as a shaded area and the MAE alarm limit (p = 0.995) as a dotted line. "+
 			"Decision leads %s are shaded.", horizon, windowNote, compactLeads(decision)), f)
 	x := linear{0.5, float64(horizon) + 0.5, f.left, f.left + f.plotW()}
 	hi := 0.0
@@ -360,7 +360,7 @@ func (c *chart) legendOf(live, band string) []legendItem {
 		l = append(l, legendItem{Kind: "fill", Class: "band", Label: band})
 	}
 	if len(c.Alarm) > 0 {
-		l = append(l, legendItem{Kind: "line", Class: "alarm", Label: "99% alarm limit"})
+		l = append(l, legendItem{Kind: "line", Class: "alarm", Label: "alarm limit"})
 	}
 	return l
 }
@@ -433,8 +433,8 @@ func originChart(id string, lead int, pts []windowPoint, marks []eventMark, unit
 	f := frame{w: 960, h: 300, left: 70, top: 16, right: 18, bottom: 50}
 	c := newChart(id, fmt.Sprintf("Windowed MAE of lead %d over the last %d origins", lead, len(pts)),
 		fmt.Sprintf("For each of the last %d origins: the MAE of lead %d over the window of up to %d origins ending there (solid line), "+
-			"the backtest expectation (dashed), the 95%% band for that window size (shaded) and the 99%% alarm limit (dotted). "+
-			"Vertical marks are state changes of this lead.", len(pts), lead, windowN), f)
+			"the backtest expectation (dashed), the 95%% band for that window size (shaded) and the MAE alarm limit (p = 0.995, dotted). "+
+			"Vertical marks are state changes of this lead, at their onset origins.", len(pts), lead, windowN), f)
 	if len(pts) == 0 {
 		return c
 	}

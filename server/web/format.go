@@ -9,6 +9,7 @@ import (
 	"time"
 
 	"github.com/aftercast/aftercast/scoring"
+	"github.com/aftercast/aftercast/server/store"
 )
 
 // stateView is a drift state as the pages show it: always as words, with
@@ -254,4 +255,161 @@ func leadLabel(h int) string {
 		return "series"
 	}
 	return "lead " + strconv.Itoa(h)
+}
+
+// onsetView says when a state began, in data time: the origin at which the
+// replay entered it (method.md §5), how many judged origins ago that was
+// and what entered it. The wall clock appears only as when aftercast
+// noticed.
+type onsetView struct {
+	Origin     stamp  // the onset origin; not Valid for the state the production period started in
+	OriginText string // "05:00 UTC origin of 14 Oct"
+	Lasted     string // ", 12 origins ago"
+	Entered    string // "on ME: −3.1 below the alarm band's lower end −2.4"; empty without a metric
+	Noticed    stamp  // when aftercast announced the state (wall clock, UTC, to the minute)
+}
+
+// Text is the onset as one line, for a chart's tooltip: "since the 05:00
+// UTC origin of 14 Oct, 12 origins ago; on MAE: 2.3 above the alarm limit
+// 1.9".
+func (v onsetView) Text() string {
+	s := "since the start of production"
+	if v.Origin.Valid {
+		s = "since the " + v.OriginText + v.Lasted
+	}
+	if v.Entered != "" {
+		s += "; " + v.Entered
+	}
+	return s
+}
+
+func onsetOf(st store.DriftStatus, loc *time.Location, now time.Time) onsetView {
+	if loc == nil {
+		loc = time.UTC
+	}
+	// Wall-clock times are in UTC, as the server clock in the page
+	// header, and to the minute.
+	v := onsetView{Origin: stampOf(st.Onset, loc, now, false), Noticed: stampOf(st.Noticed.Truncate(time.Minute), time.UTC, now, true)}
+	if v.Origin.Valid {
+		v.OriginText = originText(st.Onset, loc, now)
+		// OriginsSinceOnset counts the evaluations after the onset's own
+		// (scoring.LeadState.EvaluationsSinceOnset: Evals − OnsetEval), so
+		// it is how many judged origins ago the onset was.
+		switch k := st.Snapshot.OriginsSinceOnset; k {
+		case 0:
+			v.Lasted = ", the latest origin judged"
+		case 1:
+			v.Lasted = ", 1 origin ago"
+		default:
+			v.Lasted = fmt.Sprintf(", %d origins ago", k)
+		}
+	}
+	sn := st.Snapshot
+	if sn.EnteredMetric != "" && sn.EnteredValue != nil && sn.EnteredLimit != nil {
+		v.Entered = enteredText(st.State, sn.EnteredMetric, *sn.EnteredValue, *sn.EnteredLimit)
+	}
+	return v
+}
+
+// originText names an origin in its series' zone as people say it: "05:00
+// UTC origin of 14 Oct", with the year when it is not the current one.
+func originText(t time.Time, loc *time.Location, now time.Time) string {
+	t = t.In(loc)
+	clock := "15:04"
+	if t.Second() != 0 || t.Nanosecond() != 0 {
+		clock = "15:04:05"
+	}
+	day := "2 Jan"
+	if t.Year() != now.In(loc).Year() {
+		day = "2 Jan 2006"
+	}
+	return t.Format(clock) + " " + t.Format("MST") + " origin of " + t.Format(day)
+}
+
+// enteredText says what entered a state: the metric, its window value and
+// the limit it crossed, "on ME: −3.1 below the alarm band's lower end −2.4".
+func enteredText(s scoring.State, m scoring.Metric, value, limit float64) string {
+	return "on " + metricLabel(m) + ": " + num(value) + " " + relation(s, m, value, limit) + " " + num(limit)
+}
+
+// relation says how the value that entered state s stands to the limit it
+// crossed. Degraded is entered beyond an alarm level (method.md §4); the
+// other states at a bound of the 95% band, which bound the stored records
+// do not always say (an event re-judged names the state announced before,
+// not the one the replay left), so neither does the text.
+func relation(s scoring.State, m scoring.Metric, value, limit float64) string {
+	switch {
+	case s == scoring.StateDegraded && m == scoring.MetricMAE:
+		return "above the alarm limit"
+	case s == scoring.StateDegraded && value < limit:
+		return "below the alarm band's lower end"
+	case s == scoring.StateDegraded:
+		return "above the alarm band's upper end"
+	case m == scoring.MetricME || s == scoring.StateWithin:
+		// Only leaving degraded names ME: back within its 95% band.
+		return "back within the 95% bound"
+	case s == scoring.StateImproved:
+		return "below the 95% bound"
+	}
+	return "against"
+}
+
+// causeLabel words an event's cause for people.
+func causeLabel(c scoring.Cause) (label, title string) {
+	switch c {
+	case scoring.CauseData:
+		return "new data", "origins judged for the first time"
+	case scoring.CauseRevision:
+		return "revision", "origins judged before, judged again on revised or filled-in data"
+	case scoring.CauseBaseline:
+		return "new baseline", "the production period judged again against a new baseline"
+	case "":
+		return "—", ""
+	}
+	return string(c), ""
+}
+
+// chanceView is the fleet's expected chance pages (method.md §5): what a
+// page is worth before anyone trusts one.
+type chanceView struct {
+	Rows      int    // (series, model) that can page: forecasts and a baseline not judged insufficient
+	PerWeek   string // "0.4"
+	Every     string // "one every 3.8 weeks"; empty at one a week or more
+	RunLength int    // scoring.ChanceRunLength
+}
+
+// chanceOf sums scoring.ChancePagesPerWeek over the origin intervals of the
+// rows that can page.
+func chanceOf(intervals []time.Duration) chanceView {
+	v := chanceView{RunLength: scoring.ChanceRunLength}
+	var sum float64
+	for _, d := range intervals {
+		if p := scoring.ChancePagesPerWeek(d); p > 0 {
+			sum += p
+			v.Rows++
+		}
+	}
+	if sum == 0 {
+		return v
+	}
+	v.PerWeek = sig2(sum)
+	if weeks := 1 / sum; weeks > 1 {
+		if years := weeks * 7 / 365.25; years >= 1 {
+			v.Every = "one every " + sig2(years) + " years"
+		} else {
+			v.Every = "one every " + sig2(weeks) + " weeks"
+		}
+	}
+	return v
+}
+
+// sig2 prints a positive x to two significant digits (whole numbers from
+// 10 on), without trailing zeros: 0.015, 0.4, 1.5, 12.
+func sig2(x float64) string {
+	d := max(0, 1-int(math.Floor(math.Log10(x))))
+	s := strconv.FormatFloat(x, 'f', d, 64)
+	if strings.Contains(s, ".") {
+		s = strings.TrimRight(strings.TrimRight(s, "0"), ".")
+	}
+	return s
 }

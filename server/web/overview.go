@@ -22,6 +22,7 @@ type overviewPage struct {
 	layout
 	Rows   []overviewRow
 	Counts []stateCount // how many rows are in each state, worst first
+	Chance chanceView
 	Events eventList
 }
 
@@ -31,7 +32,7 @@ type overviewRow struct {
 	Series, Model string
 	Link          string // relative URL of the series page; empty without a model
 	State         stateView
-	Since         stamp
+	Onset         onsetView
 	Drifted       []leadGroup // leads not within, by state
 	LeadsJudged   int         // leads with a state
 	LastOrigin    stamp
@@ -39,6 +40,7 @@ type overviewRow struct {
 	LastActual    stamp
 	Baseline      string // "v3", "none", …
 	rank          int
+	state         scoring.State // series level, as stored; "" without one
 	lastOrigin    time.Time
 	interval      time.Duration
 }
@@ -66,17 +68,19 @@ type eventList struct {
 
 // eventRow is one drift event as the pages print it.
 type eventRow struct {
-	ShowSeries    bool // in a list of every series: name it
-	Time          stamp
+	ShowSeries    bool  // in a list of every series: name it
+	Recorded      stamp // when aftercast announced it (wall clock, UTC, to the minute)
 	Series, Model string
 	Link          string
 	Lead          string // "lead 27" or "series"
-	Origin        stamp
+	Origin        stamp  // onset: the origin at which the new state was entered (data time)
+	Cause         string // "new data", "revision", "new baseline"
+	CauseTitle    string // the cause explained
 	Metric        string
 	Previous      stateView
 	State         stateView
-	Value, Limit  string // "—" when the change had no metric
-	Relation      string // how Value stands to Limit: "above 99% limit"; empty without a metric
+	Value, Limit  string // "—" when the change had no metric; Limit may be a band "−2.4 – 2.2"
+	Relation      string // how Value stands to Limit: "above the alarm limit"; empty without a metric
 	WindowN       int
 }
 
@@ -132,8 +136,8 @@ func (h *handler) overview(ctx context.Context) (*overviewPage, error) {
 		r, k := row(st.Series, st.Model), key{st.Series, st.Model}
 		r.Baseline = fmt.Sprintf("v%d", st.BaselineVersion)
 		if st.Lead == 0 {
-			r.State = viewState(st.State)
-			r.Since = stampOf(st.Onset, locs[st.Series], now, false)
+			r.State, r.state = viewState(st.State), st.State
+			r.Onset = onsetOf(st, locs[st.Series], now)
 			r.rank = severity(st.State)
 			continue
 		}
@@ -189,7 +193,11 @@ func (h *handler) overview(ctx context.Context) (*overviewPage, error) {
 			rows[key{se.Key, ""}] = r
 		}
 	}
+	var intervals []time.Duration // of the rows that can page
 	for k, r := range rows {
+		if r.Baseline != "none" && r.Baseline != "—" && r.state != scoring.StateInsufficientBaseline {
+			intervals = append(intervals, r.interval)
+		}
 		if a, ok := lastActual[k.series]; ok {
 			r.LastActual = stampOf(a.LastTime, locs[k.series], now, true)
 		}
@@ -200,6 +208,7 @@ func (h *handler) overview(ctx context.Context) (*overviewPage, error) {
 		}
 		p.Rows = append(p.Rows, *r)
 	}
+	p.Chance = chanceOf(intervals)
 	slices.SortFunc(p.Rows, func(a, b overviewRow) int {
 		return cmp.Or(cmp.Compare(a.rank, b.rank), cmp.Compare(a.Series, b.Series), cmp.Compare(a.Model, b.Model))
 	})
@@ -230,8 +239,8 @@ func (h *handler) overview(ctx context.Context) (*overviewPage, error) {
 // eventsShown is how many events a list shows unfolded.
 const eventsShown = 12
 
-// eventWindows are how far back latestEvents looks, widening until it has
-// enough events.
+// eventWindows are how far back in record time latestEvents looks,
+// widening until it has enough events.
 var eventWindows = []struct {
 	d    time.Duration
 	text string
@@ -288,25 +297,19 @@ func (h *handler) latestEvents(ctx context.Context, seriesKey, model string, n i
 }
 
 func viewEvent(ev store.DriftEvent, loc *time.Location, now time.Time) eventRow {
-	r := eventRow{Time: stampOf(ev.Time, loc, now, true), Series: ev.Series, Model: ev.Model,
+	r := eventRow{Recorded: stampOf(ev.Time.Truncate(time.Minute), time.UTC, now, true), Series: ev.Series, Model: ev.Model,
 		Link: seriesLink(ev.Series, ev.Model, nil), Lead: leadLabel(ev.Lead), Origin: stampOf(ev.Origin, loc, now, false),
 		Metric: metricLabel(ev.Metric), Previous: viewState(ev.Previous), State: viewState(ev.State),
 		Value: num(ev.Value), Limit: num(ev.Limit), WindowN: ev.WindowN}
+	r.Cause, r.CauseTitle = causeLabel(ev.Cause)
 	if ev.Lead > 0 {
 		r.Link = seriesLink(ev.Series, ev.Model, url.Values{"lead": {fmt.Sprint(ev.Lead)}})
 	}
 	if defined(ev.Value) && defined(ev.Limit) {
-		switch {
-		case ev.State == scoring.StateDegraded && ev.Value > ev.Limit:
-			r.Relation = "above 99% limit"
-		case ev.State == scoring.StateDegraded:
-			r.Relation = "below 99% limit"
-		case ev.State == scoring.StateImproved:
-			r.Relation = "below 95% band"
-		case ev.Previous == scoring.StateDegraded:
-			r.Relation = "back inside 95% band"
-		default:
-			r.Relation = "back above 95% band"
+		r.Relation = relation(ev.State, ev.Metric, ev.Value, ev.Limit)
+		// An event keeps the whole ME alarm band it was judged against.
+		if ev.State == scoring.StateDegraded && ev.Metric == scoring.MetricME && defined(ev.BandLower) && defined(ev.BandUpper) {
+			r.Relation, r.Limit = "outside the alarm band", num(ev.BandLower)+" – "+num(ev.BandUpper)
 		}
 	}
 	return r

@@ -11,6 +11,7 @@ import (
 	"testing"
 	"time"
 
+	"github.com/aftercast/aftercast/server/drift"
 	"github.com/aftercast/aftercast/server/store"
 	"github.com/aftercast/aftercast/server/store/storetest"
 	"github.com/aftercast/aftercast/server/web"
@@ -23,9 +24,10 @@ func TestMain(m *testing.M) { os.Exit(storetest.Main(m)) }
 const (
 	driftKey   = "north/heat" // degrades on decision leads 13-24, improves on 1-3
 	driftModel = "gbm-v3"
-	calmKey    = "south/cool" // in control
+	calmKey    = "south/cool" // in control; its time zone is America/New_York
 	calmModel  = "ets:v1/a.b-c"
-	rawKey     = "east/wind" // forecasts and actuals, no baseline
+	thinKey    = "north/thin" // a backtest too short for a band: insufficient_baseline
+	rawKey     = "east/wind"  // forecasts and actuals, no baseline
 	rawModel   = "naive"
 	waitKey    = "west/solar" // a baseline, but drift not evaluated yet
 	emptyKey   = "empty/series"
@@ -38,14 +40,15 @@ const (
 type fixture struct {
 	st  *store.Store
 	srv *httptest.Server
-	// last is the newest production origin; day is the origin spacing.
+	// last is the newest production origin.
 	last time.Time
 }
 
 // newFixture builds the scenario: hourly series with daily origins, a
-// 365-origin backtest per baselined series whose error spread grows with
-// the lead, and 150 production origins ending yesterday, pushed and
-// evaluated in chunks as the service would.
+// 365-origin backtest per baselined series (100 for thinKey) whose error
+// spread grows with the lead, and up to 150 production origins ending
+// yesterday, pushed in chunks, with the evaluator drained after each as
+// the service would.
 func newFixture(t *testing.T) *fixture {
 	t.Helper()
 	st := storetest.Store(t)
@@ -55,10 +58,14 @@ func newFixture(t *testing.T) *fixture {
 	const prod = 150
 	first := today.AddDate(0, 0, -prod)
 	f := &fixture{st: st, last: first.AddDate(0, 0, prod-1)}
+	// The evaluator is drained after each chunk of the series whose drift
+	// is judged; the others keep their marks pending.
+	ev := drift.New(st, drift.Config{Logger: storetest.Logger(t)})
 
 	for _, se := range []store.Series{
 		{Key: driftKey, Step: "1h", Horizon: 24, Season: 24, Unit: "MW", DecisionLeads: []int{13, 14, 15, 16, 17, 18, 19, 20, 21, 22, 23, 24}},
-		{Key: calmKey, Step: "1h", Horizon: 24, Unit: "MW"},
+		{Key: calmKey, Step: "1h", Horizon: 24, Unit: "MW", TimeZone: "America/New_York"},
+		{Key: thinKey, Step: "1h", Horizon: 6, Unit: "MW"},
 		{Key: rawKey, Step: "1h", Horizon: 6, Unit: "m/s" + evil},
 		{Key: waitKey, Step: "1h", Horizon: 6, Unit: "kW"},
 		{Key: emptyKey, Step: "1d", Horizon: 7, TimeZone: "Europe/Copenhagen"},
@@ -77,13 +84,13 @@ func newFixture(t *testing.T) *fixture {
 		key, model string
 		horizon    int
 		seed       uint64
-		baseline   bool
+		baseline   int // backtest origins; 0: none
 		prod       int
 		evaluate   bool
 		change     func(k, h int, e float64) float64 // production origin k, lead h
 	}
 	plans := []plan{
-		{driftKey, driftModel, 24, 1, true, prod, true, func(k, h int, e float64) float64 {
+		{driftKey, driftModel, 24, 1, 365, prod, true, func(k, h int, e float64) float64 {
 			switch {
 			case k >= 100 && h >= 13:
 				return 1.9 * e
@@ -92,17 +99,19 @@ func newFixture(t *testing.T) *fixture {
 			}
 			return e
 		}},
-		{calmKey, calmModel, 24, 2, true, prod, true, nil},
-		{rawKey, rawModel, 6, 3, false, 40, false, nil},
-		{waitKey, driftModel, 6, 4, true, 40, false, nil},
-		{waitKey, candidateModel, 6, 5, true, 0, false, nil},
+		{calmKey, calmModel, 24, 2, 365, prod, true, nil},
+		{thinKey, driftModel, 6, 6, 100, 40, true, nil},
+		// Not evaluated: these come after the last drain.
+		{rawKey, rawModel, 6, 3, 0, 40, false, nil},
+		{waitKey, driftModel, 6, 4, 365, 40, false, nil},
+		{waitKey, candidateModel, 6, 5, 365, 0, false, nil},
 	}
 	for _, p := range plans {
 		r := rand.New(rand.NewPCG(p.seed, 7))
-		if p.baseline {
+		if p.baseline > 0 {
 			var rows []store.BacktestRow
-			for k := range 365 {
-				o := first.AddDate(0, 0, k-365)
+			for k := range p.baseline {
+				o := first.AddDate(0, 0, k-p.baseline)
 				for h := 1; h <= p.horizon; h++ {
 					tg := o.Add(time.Duration(h) * time.Hour)
 					y := level(tg)
@@ -143,13 +152,13 @@ func newFixture(t *testing.T) *fixture {
 				t.Fatal(err)
 			}
 			if p.evaluate {
-				if _, err := st.EvaluateDrift(ctx, []string{p.key}); err != nil {
+				if err := ev.Drain(ctx); err != nil {
 					t.Fatal(err)
 				}
 			}
 		}
 	}
-	f.srv = httptest.NewServer(web.New(st, storetest.Logger(t)))
+	f.srv = httptest.NewServer(web.New(st, ev, storetest.Logger(t)))
 	t.Cleanup(f.srv.Close)
 	return f
 }

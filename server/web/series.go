@@ -31,7 +31,7 @@ type seriesPage struct {
 	Self          string // this page without lead or filters
 
 	State       stateView // series level (pooled decision leads)
-	Since       stamp
+	Onset       onsetView
 	LastOrigin  stamp
 	Pooled      []setting // the series-level window against its band
 	Drifted     []leadGroup
@@ -76,7 +76,7 @@ type leadRow struct {
 	Decision bool
 	Selected bool
 	State    stateView
-	Since    stamp
+	Onset    onsetView
 	N        string
 	MAE      string
 	Expected string
@@ -84,6 +84,7 @@ type leadRow struct {
 	Alarm    string
 	ME       string
 	MEBand   string
+	MEAlarm  string
 	Note     string
 }
 
@@ -184,7 +185,7 @@ func (h *handler) series(ctx context.Context, q url.Values) (*seriesPage, int, e
 	}
 	p.HasStates = len(states) > 0
 	if s0, ok := byLead[0]; ok {
-		p.State, p.Since, p.LastOrigin = viewState(s0.State), stampOf(s0.Onset, loc, now, false), stampOf(s0.LastOrigin, loc, now, true)
+		p.State, p.Onset, p.LastOrigin = viewState(s0.State), onsetOf(s0, loc, now), stampOf(s0.LastOrigin, loc, now, true)
 		p.Pooled = pooledSettings(s0.Snapshot, dec)
 		if s0.BaselineVersion != active && active > 0 {
 			p.Notices = append(p.Notices, notice{Text: fmt.Sprintf("The drift states were judged against baseline v%d; v%d is active and is used from the next evaluation on.",
@@ -216,7 +217,7 @@ func (h *handler) series(ctx context.Context, q url.Values) (*seriesPage, int, e
 			pt := &pts[h-1]
 			pt.HasState, pt.State = true, st.State
 			pt.MAE, pt.Expected, pt.Lower, pt.Upper, pt.Alarm = val(sn.MAE), val(sn.MAEExpected), val(sn.MAEBandLower), val(sn.MAEBandUpper), val(sn.MAEAlarmLimit)
-			pt.Title = leadTitle(h, slices.Contains(dec, h), st)
+			pt.Title = leadTitle(h, slices.Contains(dec, h), st, loc, now)
 			if st.State != scoring.StateWithin {
 				groups[st.State] = append(groups[st.State], h)
 			}
@@ -305,20 +306,20 @@ func defaultLead(byLead map[int]store.DriftStatus, dec []int) (int, string) {
 		}
 	}
 	if best > 0 {
-		return best, fmt.Sprintf("Lead %d is shown: of the degraded leads, its window MAE stands highest against its 99%% limit (%.2f×).", best, ratio)
+		return best, fmt.Sprintf("Lead %d is shown: of the degraded leads, its window MAE stands highest against its alarm limit (%.2f×).", best, ratio)
 	}
 	return dec[0], fmt.Sprintf("Lead %d is shown: the first decision lead.", dec[0])
 }
 
-func leadTitle(h int, decision bool, st store.DriftStatus) string {
+func leadTitle(h int, decision bool, st store.DriftStatus, loc *time.Location, now time.Time) string {
 	sn := st.Snapshot
 	s := fmt.Sprintf("lead %d", h)
 	if decision {
 		s += " (decision lead)"
 	}
-	s += ": " + viewState(st.State).Label
+	s += ": " + viewState(st.State).Label + " " + onsetOf(st, loc, now).Text()
 	if sn.MAE != nil {
-		s += fmt.Sprintf("; window MAE %s over %d origins; expected %s, 95%% band %s to %s, 99%% limit %s",
+		s += fmt.Sprintf("; window MAE %s over %d origins; expected %s, 95%% band %s to %s, alarm limit %s",
 			numPtr(sn.MAE), sn.WindowN, numPtr(sn.MAEExpected), numPtr(sn.MAEBandLower), numPtr(sn.MAEBandUpper), numPtr(sn.MAEAlarmLimit))
 	}
 	if sn.Reason != "" {
@@ -331,28 +332,33 @@ func leadRowOf(h int, byLead map[int]store.DriftStatus, decision, selected bool,
 	extra := filterValues(q)
 	extra.Set("lead", strconv.Itoa(h))
 	r := leadRow{Lead: h, Link: seriesLink(key, model, extra) + "#lead-history", Decision: decision, Selected: selected,
-		N: "—", MAE: "—", Expected: "—", Band: "—", Alarm: "—", ME: "—", MEBand: "—"}
+		N: "—", MAE: "—", Expected: "—", Band: "—", Alarm: "—", ME: "—", MEBand: "—", MEAlarm: "—"}
 	st, ok := byLead[h]
 	if !ok {
 		r.State = noState("no state")
 		return r
 	}
 	sn := st.Snapshot
-	r.State, r.Since = viewState(st.State), stampOf(st.Onset, loc, now, false)
+	r.State, r.Onset = viewState(st.State), onsetOf(st, loc, now)
 	if sn.WindowN > 0 {
 		r.N = strconv.Itoa(sn.WindowN)
 	}
 	r.MAE, r.Expected, r.Alarm = numPtr(sn.MAE), numPtr(sn.MAEExpected), numPtr(sn.MAEAlarmLimit)
 	r.Band = rangeOf(sn.MAEBandLower, sn.MAEBandUpper)
-	r.ME, r.MEBand = numPtr(sn.ME), rangeOf(sn.MEBandLower, sn.MEBandUpper)
-	r.Note = sn.Reason
-	if len(sn.Breached) > 0 {
-		var ms []string
-		for _, m := range sn.Breached {
-			ms = append(ms, metricLabel(m))
-		}
-		r.Note = strings.TrimPrefix(r.Note+"; "+strings.Join(ms, " and ")+" beyond the 99% limit", "; ")
+	r.ME, r.MEBand, r.MEAlarm = numPtr(sn.ME), rangeOf(sn.MEBandLower, sn.MEBandUpper), rangeOf(sn.MEAlarmLower, sn.MEAlarmUpper)
+	var notes []string
+	if sn.Reason != "" {
+		notes = append(notes, sn.Reason)
 	}
+	for _, m := range sn.Breached {
+		switch m {
+		case scoring.MetricME:
+			notes = append(notes, "latest window: ME outside its alarm band")
+		default:
+			notes = append(notes, "latest window: "+metricLabel(m)+" above its alarm limit")
+		}
+	}
+	r.Note = strings.Join(notes, "; ")
 	return r
 }
 
@@ -366,8 +372,8 @@ func pooledSettings(sn store.Snapshot, dec []int) []setting {
 	return []setting{
 		{"pooled over", "decision leads " + compactLeads(dec)},
 		{"window", fmt.Sprintf("last %d origins", sn.WindowN)},
-		{"MAE", fmt.Sprintf("%s (expected %s, 95%% band %s, 99%% limit %s)", numPtr(sn.MAE), numPtr(sn.MAEExpected), rangeOf(sn.MAEBandLower, sn.MAEBandUpper), numPtr(sn.MAEAlarmLimit))},
-		{"ME (bias)", fmt.Sprintf("%s (expected %s, 95%% band %s, 99%% band %s)", numPtr(sn.ME), numPtr(sn.MEExpected), rangeOf(sn.MEBandLower, sn.MEBandUpper), rangeOf(sn.MEAlarmLower, sn.MEAlarmUpper))},
+		{"MAE", fmt.Sprintf("%s (expected %s, 95%% band %s, alarm limit %s)", numPtr(sn.MAE), numPtr(sn.MAEExpected), rangeOf(sn.MAEBandLower, sn.MAEBandUpper), numPtr(sn.MAEAlarmLimit))},
+		{"ME (bias)", fmt.Sprintf("%s (expected %s, 95%% band %s, alarm band %s)", numPtr(sn.ME), numPtr(sn.MEExpected), rangeOf(sn.MEBandLower, sn.MEBandUpper), rangeOf(sn.MEAlarmLower, sn.MEAlarmUpper))},
 	}
 }
 
@@ -439,7 +445,7 @@ func (h *handler) leadHistory(ctx context.Context, p *seriesPage, se store.Serie
 	for _, ev := range events {
 		if ev.Lead == p.Lead {
 			marks = append(marks, eventMark{Origin: ev.Origin, State: ev.State,
-				Title: fmt.Sprintf("%s: %s → %s (%s)", stampOf(ev.Origin, loc, time.Time{}, false).Text, viewState(ev.Previous).Label, viewState(ev.State).Label, metricLabel(ev.Metric))})
+				Title: fmt.Sprintf("onset origin %s: %s → %s (%s)", stampOf(ev.Origin, loc, time.Time{}, false).Text, viewState(ev.Previous).Label, viewState(ev.State).Label, metricLabel(ev.Metric))})
 		}
 	}
 	p.OriginChart = originChart("origin-chart", p.Lead, pts, marks, se.Unit, loc)

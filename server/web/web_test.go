@@ -2,7 +2,9 @@ package web_test
 
 import (
 	"context"
+	"fmt"
 	"html"
+	"math"
 	"net/http"
 	"net/url"
 	"regexp"
@@ -11,6 +13,9 @@ import (
 	"strings"
 	"testing"
 	"time"
+
+	"github.com/aftercast/aftercast/scoring"
+	"github.com/aftercast/aftercast/server/store"
 )
 
 // evil is markup a person could type into a query parameter or a series
@@ -139,6 +144,42 @@ func nextLink(body string) string {
 	return html.UnescapeString(m[1])
 }
 
+// statuses reads the stored drift states of (key, model) by lead.
+func statuses(t *testing.T, st *store.Store, key, model string) map[int]store.DriftStatus {
+	t.Helper()
+	ctx, cancel := context.WithTimeout(context.Background(), 10*time.Second)
+	defer cancel()
+	sts, err := st.DriftStates(ctx, key, model)
+	if err != nil {
+		t.Fatal(err)
+	}
+	out := map[int]store.DriftStatus{}
+	for _, s := range sts {
+		out[s.Lead] = s
+	}
+	return out
+}
+
+// sinceText is how the pages say when a state began: at its onset origin,
+// in loc, with the judged origins since (origins are daily and every one
+// is scored in the fixture, so that count is the days from onset to the
+// last origin judged).
+func sinceText(st store.DriftStatus, loc *time.Location) string {
+	o := st.Onset.In(loc)
+	day := o.Format("2 Jan")
+	if o.Year() != time.Now().In(loc).Year() {
+		day = o.Format("2 Jan 2006")
+	}
+	return fmt.Sprintf(`since the <time datetime="%s">%s origin of %s</time>, %d origins ago`,
+		o.Format(time.RFC3339), o.Format("15:04 MST"), day, int(st.LastOrigin.Sub(st.Onset)/(24*time.Hour)))
+}
+
+// noticedText is how the pages give the wall-clock time a state was
+// announced: in UTC, whatever the series' zone.
+func noticedText(st store.DriftStatus) string {
+	return `noticed at <time datetime="` + st.Noticed.UTC().Truncate(time.Minute).Format(time.RFC3339) + `">` + printed(st.Noticed) + "</time>"
+}
+
 func TestPages(t *testing.T) {
 	t.Parallel()
 	f := newFixture(t)
@@ -177,9 +218,112 @@ func TestPages(t *testing.T) {
 		if !regexp.MustCompile(`(?s)<table id="events">.*<tbody>\s*<tr>`).MatchString(body) {
 			t.Error("no drift events listed on the overview")
 		}
+		if strings.Contains(body, "99%") {
+			t.Error("the overview still speaks of 99% limits")
+		}
 		// The model name with : / . - survives the round trip through a link.
 		if status, body := f.get(t, seriesPath(calmKey, calmModel)); status != http.StatusOK || !strings.Contains(body, "· "+calmModel+" ") {
 			t.Errorf("series page of model %q: status %d", calmModel, status)
+		}
+	})
+
+	t.Run("states in data time", func(t *testing.T) {
+		t.Parallel()
+		_, body := f.get(t, "")
+		ny, err := time.LoadLocation("America/New_York")
+		if err != nil {
+			t.Fatal(err)
+		}
+		for _, c := range []struct {
+			key, model string
+			loc        *time.Location
+		}{{driftKey, driftModel, time.UTC}, {calmKey, calmModel, ny}} {
+			s0 := statuses(t, f.st, c.key, c.model)[0]
+			if s0.Onset.IsZero() || !s0.LastOrigin.After(s0.Onset) {
+				t.Fatalf("%s: series state %s, onset %v, last origin %v: the fixture should have a state entered during production", c.key, s0.State, s0.Onset, s0.LastOrigin)
+			}
+			row := overviewRow(t, body, c.key, c.model)
+			if want := sinceText(s0, c.loc); !strings.Contains(row, want) {
+				t.Errorf("%s: overview row lacks %q: %s", c.key, want, row)
+			}
+			if want := noticedText(s0); !strings.Contains(row, want) {
+				t.Errorf("%s: overview row lacks %q: %s", c.key, want, row)
+			}
+		}
+		// The drifting series entered degraded on a metric: say which and
+		// against what.
+		s0 := statuses(t, f.st, driftKey, driftModel)[0]
+		row := overviewRow(t, body, driftKey, driftModel)
+		var want string
+		switch s0.Snapshot.EnteredMetric {
+		case scoring.MetricMAE:
+			want = "on MAE: " + regexp.QuoteMeta(fmtNum(*s0.Snapshot.EnteredValue)) + " above the alarm limit " + regexp.QuoteMeta(fmtNum(*s0.Snapshot.EnteredLimit))
+		case scoring.MetricME:
+			want = "on ME: " + regexp.QuoteMeta(fmtNum(*s0.Snapshot.EnteredValue)) + " (below|above) the alarm band's (lower|upper) end " + regexp.QuoteMeta(fmtNum(*s0.Snapshot.EnteredLimit))
+		default:
+			t.Fatalf("degraded series entered on metric %q", s0.Snapshot.EnteredMetric)
+		}
+		if !regexp.MustCompile(want).MatchString(row) {
+			t.Errorf("overview row does not say what entered degraded (%s): %s", want, row)
+		}
+		// The state the production period started in has no onset.
+		thin := statuses(t, f.st, thinKey, driftModel)[0]
+		if thin.State != scoring.StateInsufficientBaseline || !thin.Onset.IsZero() {
+			t.Fatalf("thin series: state %s, onset %v; want insufficient_baseline from the start", thin.State, thin.Onset)
+		}
+		if row := overviewRow(t, body, thinKey, driftModel); !strings.Contains(row, "since the start of production") || strings.Contains(row, "origin of") {
+			t.Errorf("a state held from the start of production: %s", row)
+		}
+
+		// The series page and its lead table say the same.
+		_, body = f.get(t, seriesPath(driftKey, driftModel))
+		i := strings.Index(body, `<h2 id="series-state">`)
+		card := body[i : i+strings.Index(body[i:], "</section>")]
+		for _, want := range []string{sinceText(s0, time.UTC), "<dt>entered</dt><dd>on " + string(metricName(s0.Snapshot.EnteredMetric)) + ": ", "<dt>noticed at</dt>"} {
+			if !strings.Contains(card, want) {
+				t.Errorf("series state card lacks %q: %s", want, card)
+			}
+		}
+		st := statuses(t, f.st, driftKey, driftModel)
+		i = strings.Index(body, `<table id="leads">`)
+		tbl := body[i : i+strings.Index(body[i:], "</table>")]
+		for _, h := range []int{2, 6, 20} {
+			j := strings.Index(tbl, `#lead-history">`+strconv.Itoa(h)+`</a>`)
+			if j < 0 {
+				t.Fatalf("lead table has no lead %d", h)
+			}
+			row := tbl[j : j+strings.Index(tbl[j:], "</tr>")]
+			want := "since the start of production"
+			if !st[h].Onset.IsZero() {
+				want = sinceText(st[h], time.UTC)
+			}
+			if !strings.Contains(row, want) || !strings.Contains(row, noticedText(st[h])) {
+				t.Errorf("lead %d (%s, onset %v): row lacks %q or when it was noticed: %s", h, st[h].State, st[h].Onset, want, row)
+			}
+		}
+	})
+
+	t.Run("chance pages", func(t *testing.T) {
+		t.Parallel()
+		_, body := f.get(t, "")
+		i := strings.Index(body, `<div class="notice info" id="chance">`)
+		if i < 0 {
+			t.Fatal("the overview does not say how many pages chance alone gives")
+		}
+		note := body[i : i+strings.Index(body[i:], "</div>")]
+		// Three (series, model) can page, all with daily origins: the
+		// drifting and the calm series and the one not evaluated yet. Not
+		// the one without a baseline, nor the model without forecasts, nor
+		// the series whose baseline is insufficient (that would make 4:
+		// 0.020). 3 · 7 / 1391 = 0.0151 a week, one every 66 weeks.
+		if got := 3 * scoring.ChancePagesPerWeek(24*time.Hour); math.Abs(got-0.0151) > 0.0001 {
+			t.Fatalf("3 daily series page %v times a week by chance", got)
+		}
+		for _, want := range []string{"about <b>0.015</b> pages a week", "the 3 series and models that can page", "one every 1.3 years",
+			"pages about once per 1391 origins", "not a verdict", "must be set by the team that owns the decision"} {
+			if !strings.Contains(note, want) {
+				t.Errorf("chance note lacks %q: %s", want, note)
+			}
 		}
 	})
 
@@ -218,6 +362,14 @@ func TestPages(t *testing.T) {
 		if !strings.Contains(body, `<svg id="pairs-chart"`) || !strings.Contains(body, `<path class="actual"`) {
 			t.Error("no actuals chart")
 		}
+		if strings.Contains(body, "99%") {
+			t.Error("the series page still speaks of 99% limits")
+		}
+		for _, want := range []string{"alarm limit", "<th class=\"num\">ME alarm band</th>"} {
+			if !strings.Contains(body, want) {
+				t.Errorf("series page lacks %q", want)
+			}
+		}
 		// The chosen lead is a degraded one, and another can be asked for.
 		m := regexp.MustCompile(`<h2 id="lead-history-h">Lead (\d+) over time</h2>`).FindStringSubmatch(body)
 		if m == nil {
@@ -244,10 +396,33 @@ func TestPages(t *testing.T) {
 		if rows < 1 {
 			t.Fatal("events table is empty")
 		}
-		for _, want := range []string{"series", `<span class="state degraded" data-state="degraded">`, "above 99% limit"} {
+		for _, want := range []string{"series", `<span class="state degraded" data-state="degraded">`, "above the alarm limit",
+			"<th>Onset origin</th>", "<th>Cause</th>", "<th>Recorded</th>"} {
 			if !strings.Contains(tbl, want) {
 				t.Errorf("events lack %q", want)
 			}
+		}
+		// Newest first: the first row is the last event stored, with its
+		// onset origin, its cause and the time it was recorded. The fixture
+		// only pushed new data in origin order.
+		ctx, cancel := context.WithTimeout(context.Background(), 10*time.Second)
+		defer cancel()
+		evs, err := f.st.DriftEvents(ctx, store.EventFilter{Series: driftKey, Model: driftModel})
+		if err != nil || len(evs) == 0 {
+			t.Fatalf("stored events: %d, %v", len(evs), err)
+		}
+		last := evs[len(evs)-1]
+		i = strings.Index(tbl, "<tbody>")
+		first := tbl[i : i+strings.Index(tbl[i:], "</tr>")]
+		for _, want := range []string{`<td class="nowrap"><time datetime="` + last.Origin.UTC().Format(time.RFC3339) + `">` + printed(last.Origin) + `</time>`,
+			`<td class="nowrap" title="origins judged for the first time">new data</td>`,
+			`<time datetime="` + last.Time.UTC().Truncate(time.Minute).Format(time.RFC3339) + `">` + printed(last.Time) + `</time>`} {
+			if !strings.Contains(first, want) {
+				t.Errorf("newest event row lacks %q: %s", want, first)
+			}
+		}
+		if n := strings.Count(tbl, ">new data</td>"); n != rows {
+			t.Errorf("%d of %d events caused by new data; the fixture only pushed new data", n, rows)
 		}
 		// The calm series' page lists only its own events.
 		_, body = f.get(t, seriesPath(calmKey, calmModel))
@@ -449,3 +624,13 @@ func TestPages(t *testing.T) {
 		}
 	})
 }
+
+// fmtNum is how the pages print a metric value: four significant digits
+// and a true minus sign.
+func fmtNum(x float64) string {
+	d := 3 - int(math.Floor(math.Log10(math.Abs(x))))
+	s := strconv.FormatFloat(x, 'f', max(0, min(d, 6)), 64)
+	return strings.Replace(s, "-", "−", 1)
+}
+
+func metricName(m scoring.Metric) string { return strings.ToUpper(string(m)) }
