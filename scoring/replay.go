@@ -32,8 +32,9 @@ type LeadState struct {
 // State is the lead's current state.
 func (s LeadState) State() State { return s.Detector.state() }
 
-// EvaluationsSinceOnset is how many evaluations the current state has
-// lasted, the one that entered it included ("degraded for 12 origins").
+// EvaluationsSinceOnset is how many evaluations were made after the one
+// that entered the current state: 0 when the last evaluation entered it
+// ("degraded since the 05:00 origin, 12 origins ago").
 func (s LeadState) EvaluationsSinceOnset() int { return s.Evals - s.OnsetEval }
 
 // Checkpoint is a point a replay can resume from: the state of every lead

@@ -3,6 +3,7 @@ package server_test
 import (
 	"context"
 	"fmt"
+	"math/rand/v2"
 	"os"
 	"strings"
 	"testing"
@@ -121,31 +122,93 @@ func BenchmarkGRPCForecastIngest(b *testing.B) {
 		int(points), first.Round(time.Millisecond), again.Round(time.Millisecond), peakRSS(), rssBefore)
 }
 
-// BenchmarkGRPCActuals pushes actuals end to end — gRPC stream, commit,
-// pairs counted, drift re-evaluated, acknowledgement — for 1,000 daily
-// series with H = 2 (each actual meets 2 forecasts), 100 days each, in
-// messages of 5,000 (the CLI's default), then pushes the same again (all
-// duplicates). Reports actuals/s for both.
+// BenchmarkGRPCActuals pushes actuals end to end — gRPC stream, commit
+// with the drift marks, pairs counted, acknowledgement — for 1,000 daily
+// series with H = 2 (each actual meets 2 forecasts) and a baseline each,
+// 100 days, in messages of 5,000 (the CLI's default), with the server's
+// drift evaluator running; then pushes the same again (all duplicates).
+// In the same run it writes the same shape through the store alone (no
+// gRPC) into another 1,000 series: the store-level figure the gRPC one is
+// compared with. Reports actuals/s for all three, their ratio, and how
+// long after the last acknowledgement the evaluator had judged everything
+// (pending marks drained).
 func BenchmarkGRPCActuals(b *testing.B) {
 	const series, days, horizon, batch = 1000, 100, 2, 5000
 	srv, c := start(b, storetest.URL(b))
 	ctx := context.Background()
 	st := srv.Store()
 	day := 24 * time.Hour
-	var vs []store.ForecastVector
-	for i := range series {
-		key := fmt.Sprintf("d%04d", i)
-		if _, _, err := st.CreateSeries(ctx, store.Series{Key: key, Step: "1d", Horizon: horizon}); err != nil {
-			b.Fatal(err)
+	r := rand.New(rand.NewPCG(1, 2))
+	// Series d* are pushed through gRPC, s* through the store alone.
+	var vs, directVs []store.ForecastVector
+	var rows, directRows []store.BacktestRow
+	for _, prefix := range []string{"d", "s"} {
+		for i := range series {
+			key := fmt.Sprintf("%s%04d", prefix, i)
+			rs, fs := &rows, &vs
+			if prefix == "s" {
+				rs, fs = &directRows, &directVs
+			} else if _, _, err := st.CreateSeries(ctx, store.Series{Key: key, Step: "1d", Horizon: horizon}); err != nil {
+				b.Fatal(err)
+			}
+			for k := -200; k < 0; k++ {
+				o := t0.Add(time.Duration(k) * day)
+				for h := 1; h <= horizon; h++ {
+					*rs = append(*rs, store.BacktestRow{Series: key, Origin: o, Target: o.Add(time.Duration(h) * day), Actual: 100, Forecast: 100 - r.NormFloat64()})
+				}
+			}
+			for k := 0; k < days; k++ {
+				*fs = append(*fs, store.ForecastVector{Series: key, Model: "m", Origin: t0.Add(time.Duration(k) * day),
+					Values: []float64{100 - r.NormFloat64(), 100 - r.NormFloat64()}})
+			}
 		}
-		for k := -horizon; k < days; k++ {
-			vs = append(vs, store.ForecastVector{Series: key, Model: "m", Origin: t0.Add(time.Duration(k) * day), Values: []float64{100, 101}})
-		}
+	}
+	if _, err := st.ImportBaseline(ctx, "m", rows, nil); err != nil {
+		b.Fatal(err)
 	}
 	for lo := 0; lo < len(vs); lo += batch {
 		if _, err := st.WriteForecasts(ctx, vs[lo:min(lo+batch, len(vs))], lo); err != nil {
 			b.Fatal(err)
 		}
+	}
+	// The baselines judged and prepared, as in a running service.
+	if err := srv.Drift().Drain(ctx); err != nil {
+		b.Fatal(err)
+	}
+	actuals := func(prefix string) []*aftercastv1.Actual {
+		var out []*aftercastv1.Actual
+		for k := range days + 1 {
+			for i := range series {
+				out = append(out, &aftercastv1.Actual{Series: fmt.Sprintf("%s%04d", prefix, i), Time: ts(time.Duration(k) * day), Value: 100})
+			}
+		}
+		return out
+	}
+	// The store-level figure: the same writes into another database of the
+	// same content, which no evaluator works on.
+	direct := store.New(storetest.Pool(b), store.Limits{})
+	for i := range series {
+		if _, _, err := direct.CreateSeries(ctx, store.Series{Key: fmt.Sprintf("s%04d", i), Step: "1d", Horizon: horizon}); err != nil {
+			b.Fatal(err)
+		}
+	}
+	if _, err := direct.ImportBaseline(ctx, "m", directRows, nil); err != nil {
+		b.Fatal(err)
+	}
+	for lo := 0; lo < len(directVs); lo += batch {
+		if _, err := direct.WriteForecasts(ctx, directVs[lo:min(lo+batch, len(directVs))], lo); err != nil {
+			b.Fatal(err)
+		}
+	}
+	storeLevel := func() time.Duration {
+		as := toStore(actuals("s"))
+		start := time.Now()
+		for lo := 0; lo < len(as); lo += batch {
+			if _, err := direct.WriteActuals(ctx, as[lo:min(lo+batch, len(as))], lo); err != nil {
+				b.Fatal(err)
+			}
+		}
+		return time.Since(start)
 	}
 	push := func() (time.Duration, *aftercastv1.ActualPushSummary) {
 		start := time.Now()
@@ -156,10 +219,8 @@ func BenchmarkGRPCActuals(b *testing.B) {
 		out := messages(b, batch, func(m []*aftercastv1.Actual) error {
 			return stream.Send(&aftercastv1.StreamActualsRequest{Actuals: m})
 		})
-		for k := range days {
-			for i := range series {
-				out.add(&aftercastv1.Actual{Series: fmt.Sprintf("d%04d", i), Time: ts(time.Duration(k) * day), Value: float64(90 + i%20)})
-			}
+		for _, a := range actuals("d") {
+			out.add(a)
 		}
 		out.flush()
 		resp, err := stream.CloseAndRecv()
@@ -168,21 +229,50 @@ func BenchmarkGRPCActuals(b *testing.B) {
 		}
 		return time.Since(start), resp.GetSummary()
 	}
+	// drained waits until the evaluator has judged every mark.
+	drained := func() time.Duration {
+		start := time.Now()
+		for {
+			n, _, err := st.DriftBacklog(ctx)
+			if err != nil {
+				b.Fatal(err)
+			}
+			if n == 0 {
+				return time.Since(start)
+			}
+			time.Sleep(10 * time.Millisecond)
+		}
+	}
 	b.ResetTimer()
-	var first, again time.Duration
+	var directTime, first, again, lag time.Duration
 	for b.Loop() {
+		directTime = storeLevel()
 		var sum *aftercastv1.ActualPushSummary
 		first, sum = push()
-		if sum.GetAccepted() != series*days {
+		lag = drained()
+		if sum.GetAccepted() != series*(days+1) {
 			b.Fatalf("summary %v", sum)
 		}
 		again, sum = push()
-		if sum.GetDuplicate() != series*days {
+		if sum.GetDuplicate() != series*(days+1) {
 			b.Fatalf("re-push summary %v", sum)
 		}
 	}
-	n := float64(series * days)
+	n := float64(series * (days + 1))
+	b.ReportMetric(n/directTime.Seconds(), "store-actuals/s")
 	b.ReportMetric(n/first.Seconds(), "actuals/s")
+	b.ReportMetric(directTime.Seconds()/first.Seconds(), "ratio")
+	b.ReportMetric(lag.Seconds(), "drain-after-s")
 	b.ReportMetric(n/again.Seconds(), "repush-actuals/s")
-	b.Logf("%d actuals: first push %v, identical re-push %v", int(n), first.Round(time.Millisecond), again.Round(time.Millisecond))
+	b.Logf("%d actuals: store level %v; through gRPC %v (%.0f%% of the store's rate), judged %v after the last acknowledgement; identical re-push %v",
+		int(n), directTime.Round(time.Millisecond), first.Round(time.Millisecond), 100*directTime.Seconds()/first.Seconds(),
+		lag.Round(time.Millisecond), again.Round(time.Millisecond))
+}
+
+func toStore(as []*aftercastv1.Actual) []store.Actual {
+	out := make([]store.Actual, len(as))
+	for i, a := range as {
+		out[i] = store.Actual{Series: a.GetSeries(), Time: a.GetTime().AsTime(), Value: a.GetValue()}
+	}
+	return out
 }

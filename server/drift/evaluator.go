@@ -27,6 +27,8 @@ const (
 	defaultWorkers     = 2
 	defaultClaim       = 200 // series per claim: one transaction, a few round trips
 	defaultPoll        = time.Second
+	defaultQuiet       = 250 * time.Millisecond
+	defaultMaxDelay    = 2 * time.Second
 	defaultCacheSize   = 1024 // prepared baselines kept
 	checkpointEvery    = scoring.DriftWindow
 	checkpointsKept    = 24 // of the every-n ones, besides the newest
@@ -39,8 +41,13 @@ type Config struct {
 	// Workers is how many claims this process evaluates at once; 2.
 	Workers int
 	// Poll is how often idle workers look for marks written by other
-	// replicas (local writes wake them at once); 1 s.
+	// replicas; 1 s.
 	Poll time.Duration
+	// Quiet is how long workers woken by local writes wait for the writes
+	// to pause before judging, so that a burst of pushes is judged once
+	// rather than after every message; 250 ms. MaxDelay bounds that wait
+	// under a steady stream of writes; 2 s. A negative Quiet judges at once.
+	Quiet, MaxDelay time.Duration
 	// CacheSize bounds the prepared baselines kept; 1024.
 	CacheSize int
 	// OnEvents is called with the events of every committed evaluation.
@@ -54,6 +61,7 @@ type Evaluator struct {
 	refs  *refCache
 	wake  chan struct{}
 	stale atomic.Int64 // replays restarted from the beginning: a checkpoint no longer matched the data
+	evals atomic.Int64 // detector evaluations made
 
 	// startHook, when set, moves the replay start the evaluator computed:
 	// tests use it to show that a wrong start is caught.
@@ -70,6 +78,12 @@ func New(st *store.Store, cfg Config) *Evaluator {
 	}
 	if cfg.Poll <= 0 {
 		cfg.Poll = defaultPoll
+	}
+	if cfg.Quiet == 0 {
+		cfg.Quiet = defaultQuiet
+	}
+	if cfg.MaxDelay <= 0 {
+		cfg.MaxDelay = defaultMaxDelay
 	}
 	if cfg.CacheSize <= 0 {
 		cfg.CacheSize = defaultCacheSize
@@ -89,6 +103,10 @@ func (e *Evaluator) Wake() {
 // the stored data and started over from the beginning of the production
 // period. Non-zero means a replay start was computed wrongly: a bug.
 func (e *Evaluator) StaleCheckpoints() int64 { return e.stale.Load() }
+
+// Evaluations counts the detector evaluations this evaluator made (one per
+// lead, and one for the series, per origin replayed).
+func (e *Evaluator) Evaluations() int64 { return e.evals.Load() }
 
 // Run evaluates marks until ctx is done.
 func (e *Evaluator) Run(ctx context.Context) {
@@ -125,7 +143,34 @@ func (e *Evaluator) work(ctx context.Context) {
 		case <-ctx.Done():
 			return
 		case <-e.wake:
+			if !e.settle(ctx) {
+				return
+			}
 		case <-tick.C:
+		}
+	}
+}
+
+// settle waits until local writes pause for Quiet, at most MaxDelay; false
+// when ctx ends first.
+func (e *Evaluator) settle(ctx context.Context) bool {
+	if e.cfg.Quiet < 0 {
+		return true
+	}
+	limit := time.NewTimer(e.cfg.MaxDelay)
+	defer limit.Stop()
+	quiet := time.NewTimer(e.cfg.Quiet)
+	defer quiet.Stop()
+	for {
+		select {
+		case <-ctx.Done():
+			return false
+		case <-limit.C:
+			return true
+		case <-quiet.C:
+			return true
+		case <-e.wake:
+			quiet.Reset(e.cfg.Quiet)
 		}
 	}
 }
@@ -305,6 +350,7 @@ func (j *job) pairsFrom() time.Time {
 func (e *Evaluator) replay(ctx context.Context, c *store.DriftClaim, j *job) (scoring.Replayed, error) {
 	opt := scoring.ReplayOptions{CheckpointEvery: checkpointEvery}
 	res, err := scoring.Replay(j.ref, j.cp, j.pairs, opt)
+	e.evals.Add(int64(res.Evaluations))
 	if err == nil || j.cp.Leads == nil {
 		return res, err
 	}
@@ -317,7 +363,9 @@ func (e *Evaluator) replay(ctx context.Context, c *store.DriftClaim, j *job) (sc
 		return res, err
 	}
 	j.pairs = pairs[0]
-	return scoring.Replay(j.ref, j.cp, j.pairs, opt)
+	res, err = scoring.Replay(j.ref, j.cp, j.pairs, opt)
+	e.evals.Add(int64(res.Evaluations))
+	return res, err
 }
 
 // write adds what a job's replay found to w: every lead's state, the

@@ -52,8 +52,9 @@ type Snapshot struct {
 	EnteredMetric scoring.Metric `json:"entered_metric,omitempty"`
 	EnteredValue  *float64       `json:"entered_value,omitempty"`
 	EnteredLimit  *float64       `json:"entered_limit,omitempty"`
-	// OriginsSinceOnset counts the evaluations the state has lasted, the
-	// one that entered it included; 0 for the state the period started in.
+	// OriginsSinceOnset counts the evaluations after the one that entered
+	// the state (0 when the last one did, and for the state the period
+	// started in).
 	OriginsSinceOnset int `json:"origins_since_onset,omitempty"`
 }
 
@@ -514,31 +515,49 @@ func (c *DriftClaim) queueStates(b *pgx.Batch, sts []DriftStatus, now time.Time)
 }
 
 func (c *DriftClaim) queueCheckpoints(b *pgx.Batch, ws []CheckpointWrite) error {
+	if len(ws) == 0 {
+		return nil
+	}
+	var (
+		ids, newIDs           []int64
+		models, newModels     []string
+		afters, origins       []time.Time
+		versions, newVersions []int
+		seqs                  []int
+		raws                  [][]byte
+		every, keep           = max(ws[0].Every, 1), ws[0].Keep
+	)
 	for _, w := range ws {
-		b.Queue(`DELETE FROM drift_checkpoints WHERE series_id = $1 AND model = $2 AND (origin > $3 OR baseline_version <> $4)`,
-			w.Series.ID, w.Model, orMin(w.After), w.Version)
-		if len(w.New) == 0 {
-			continue
-		}
-		origins, seqs, raws := make([]time.Time, len(w.New)), make([]int, len(w.New)), make([][]byte, len(w.New))
-		for i, cp := range w.New {
+		ids, models, afters, versions = append(ids, w.Series.ID), append(models, w.Model), append(afters, orMin(w.After)), append(versions, w.Version)
+		for _, cp := range w.New {
 			raw, err := json.Marshal(cp)
 			if err != nil {
 				return err
 			}
-			origins[i], seqs[i], raws[i] = cp.Origin, cp.Seq, raw
+			newIDs, newModels, newVersions = append(newIDs, w.Series.ID), append(newModels, w.Model), append(newVersions, w.Version)
+			origins, seqs, raws = append(origins, cp.Origin), append(seqs, cp.Seq), append(raws, raw)
 		}
+	}
+	b.Queue(`DELETE FROM drift_checkpoints d USING unnest($1::bigint[], $2::text[], $3::timestamptz[], $4::int[]) AS k(series_id, model, after, version)
+		WHERE d.series_id = k.series_id AND d.model = k.model AND (d.origin > k.after OR d.baseline_version <> k.version)`,
+		ids, models, afters, versions)
+	if len(raws) > 0 {
 		b.Queue(`INSERT INTO drift_checkpoints (series_id, model, origin, baseline_version, seq, checkpoint)
-			SELECT $1, $2, u.origin, $3, u.seq, u.cp FROM unnest($4::timestamptz[], $5::int[], $6::jsonb[]) AS u(origin, seq, cp)
+			SELECT * FROM unnest($1::bigint[], $2::text[], $3::timestamptz[], $4::int[], $5::int[], $6::jsonb[])
 			ON CONFLICT (series_id, model, origin) DO UPDATE SET baseline_version = excluded.baseline_version,
 				seq = excluded.seq, checkpoint = excluded.checkpoint`,
-			w.Series.ID, w.Model, w.Version, origins, seqs, raws)
-		b.Queue(`DELETE FROM drift_checkpoints d WHERE d.series_id = $1 AND d.model = $2
-			AND d.origin < (SELECT max(origin) FROM drift_checkpoints x WHERE x.series_id = $1 AND x.model = $2)
-			AND (d.seq % $3 <> 0 OR d.origin <= coalesce((SELECT origin FROM drift_checkpoints x
-				WHERE x.series_id = $1 AND x.model = $2 AND x.seq % $3 = 0 ORDER BY origin DESC OFFSET $4 LIMIT 1), '-infinity'))`,
-			w.Series.ID, w.Model, max(w.Every, 1), w.Keep)
+			newIDs, newModels, origins, newVersions, seqs, raws)
 	}
+	// Keep the newest checkpoint and the newest keep of those whose seq is
+	// a multiple of every.
+	b.Queue(`DELETE FROM drift_checkpoints d USING (
+			SELECT series_id, model, origin FROM (
+				SELECT c.series_id, c.model, c.origin, c.seq % $3 = 0 AS grid,
+					row_number() OVER (PARTITION BY c.series_id, c.model ORDER BY c.origin DESC) AS newest,
+					row_number() OVER (PARTITION BY c.series_id, c.model, c.seq % $3 = 0 ORDER BY c.origin DESC) AS rank
+				FROM drift_checkpoints c JOIN unnest($1::bigint[], $2::text[]) AS k(series_id, model) USING (series_id, model)) x
+			WHERE newest > 1 AND (NOT grid OR rank > $4)) z
+		WHERE d.series_id = z.series_id AND d.model = z.model AND d.origin = z.origin`, ids, models, every, keep)
 	return nil
 }
 

@@ -134,8 +134,9 @@ type DriftStatus struct {
 	// evaluation of that origin's window entered it. Unset for the state the
 	// production period started in.
 	OnsetOriginTime *timestamppb.Timestamp `protobuf:"bytes,17,opt,name=onset_origin_time,json=onsetOriginTime,proto3" json:"onset_origin_time,omitempty"`
-	// How many evaluations (scored origins) the current state has lasted,
-	// the one at the onset included; 0 when onset_origin_time is unset.
+	// How many evaluations (scored origins) were made after the onset one:
+	// "12 origins ago". 0 when the last evaluation entered the state, and
+	// when onset_origin_time is unset.
 	OriginsSinceOnset int32 `protobuf:"varint,18,opt,name=origins_since_onset,json=originsSinceOnset,proto3" json:"origins_since_onset,omitempty"`
 	// When the service announced the current state (wall clock): when it
 	// noticed, not when it happened.
