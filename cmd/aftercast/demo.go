@@ -39,7 +39,7 @@ const demoBatch = 1000
 func runDemo(args []string, stdout, stderr io.Writer) error {
 	fs := newFlags("demo", "", stderr)
 	once := fs.Bool("once", false, "print the report and exit, instead of serving until interrupted")
-	format := fs.String("format", "table", "report: table, or json (exactly what `aftercast drift --format json` prints)")
+	format := fs.String("format", "table", "report: table, or json (exactly what 'aftercast drift --format json' prints once every push is judged)")
 	listen := fs.String("listen", "", "gRPC address to serve on (default 127.0.0.1:7410; with --once a free port)")
 	metricsListen := fs.String("metrics-listen", "", "HTTP address for the status page, /metrics and health (default 127.0.0.1:7411; with --once a free port; - for none)")
 	speed := fs.Float64("speed", 0, "production days streamed per second of wall time; 0 streams them as fast as the service takes them")
@@ -134,10 +134,13 @@ func runDemo(args []string, stdout, stderr io.Writer) error {
 		return err
 	}
 	states, events, err := p.results(ctx)
+	if ctx.Err() != nil {
+		return errors.New("interrupted")
+	}
 	if err != nil {
 		return err
 	}
-	fmt.Fprintf(stderr, "aftercast demo: %d production days streamed; report after %.1fs\n", demo.ProductionDays, time.Since(began).Seconds())
+	fmt.Fprintf(stderr, "aftercast demo: %d production days streamed and judged; report after %.1fs\n", demo.ProductionDays, time.Since(began).Seconds())
 	if *format == "json" {
 		err = driftreport.WriteJSON(stdout, driftreport.ToStates(states))
 	} else {
@@ -321,12 +324,17 @@ func (p *producer) stream(ctx context.Context, speed float64) error {
 	return nil
 }
 
-// results reads back every drift state and event.
-func (p *producer) results(ctx context.Context) ([]*aftercastv1.SeriesModelDrift, []*aftercastv1.DriftEvent, error) {
+// results waits until the service has judged everything streamed, then
+// reads back every drift state and event.
+func (p *producer) results(ctx context.Context) (driftreport.Listing, []*aftercastv1.DriftEvent, error) {
 	drift := aftercastv1.NewDriftServiceClient(p.conn)
+	fmt.Fprintln(p.stderr, "aftercast demo: everything streamed; waiting for the service to judge it ...")
+	if err := waitSettled(ctx, p.cf, drift, demoSettleTimeout, demoSettlePoll); err != nil {
+		return driftreport.Listing{}, nil, err
+	}
 	states, err := listDriftStates(ctx, p.cf, drift, "", "")
 	if err != nil {
-		return nil, nil, err
+		return states, nil, err
 	}
 	var events []*aftercastv1.DriftEvent
 	err = listEvents(ctx, p.cf, drift, eventFilter{}, func(e *aftercastv1.DriftEvent) error {
@@ -334,9 +342,44 @@ func (p *producer) results(ctx context.Context) ([]*aftercastv1.SeriesModelDrift
 		return nil
 	})
 	if err != nil {
-		return nil, nil, p.cf.rpcError(err, "")
+		return states, nil, p.cf.rpcError(err, "")
 	}
 	return states, events, nil
+}
+
+// The demo waits at most demoSettleTimeout for the service to judge what
+// was streamed, asking every demoSettlePoll.
+const (
+	demoSettleTimeout = 2 * time.Minute
+	demoSettlePoll    = 100 * time.Millisecond
+)
+
+// waitSettled waits until the service has no drift evaluation pending
+// (every push acknowledged so far is judged), asking every poll, for at
+// most timeout.
+func waitSettled(ctx context.Context, cf *clientFlags, drift aftercastv1.DriftServiceClient, timeout, poll time.Duration) error {
+	deadline := time.Now().Add(timeout)
+	for {
+		cctx, cancel := context.WithTimeout(ctx, cf.timeout)
+		resp, err := drift.ListDriftStates(cctx, &aftercastv1.ListDriftStatesRequest{PageSize: 1})
+		cancel()
+		if err != nil {
+			return fmt.Errorf("waiting for drift evaluation: %w", cf.rpcError(err, ""))
+		}
+		pending := resp.GetPendingEvaluations()
+		if pending == 0 {
+			return nil
+		}
+		if !time.Now().Add(poll).Before(deadline) {
+			return fmt.Errorf("drift evaluation did not finish within %v of the last push: %d evaluations still pending "+
+				"(the service's evaluator is behind or stuck; its log may say why)", timeout, pending)
+		}
+		select {
+		case <-ctx.Done():
+			return ctx.Err()
+		case <-time.After(poll):
+		}
+	}
 }
 
 // demoProgress shows the streaming on stderr: a line rewritten in place on

@@ -30,10 +30,10 @@ func commands() []command {
 		{"accuracy", "per-lead accuracy of a series and model (client)", runAccuracy},
 		{"pairs", "export the scored pairs of a series and model (client)", runPairs},
 		{"baseline", "import a backtest as a baseline, or show one (client)", runBaseline},
-		{"drift", "current drift states, series-level first (client)", runDrift},
-		{"events", "drift events, or follow them as they happen (client)", runEvents},
+		{"drift", "current drift states with their onsets, or (drift history) the replayed transitions (client)", runDrift},
+		{"events", "drift events with their onsets and causes, or follow them as they happen (client)", runEvents},
 		{"evaluate", "score a CSV of forecasts and actuals offline, per lead", runEvaluate},
-		{"demo", "run the service on invented district-heating data and report its drift verdicts", runDemo},
+		{"demo", "run the service on invented district-heating data and report the drift states it finds", runDemo},
 	}
 }
 

@@ -3,7 +3,6 @@ package demo
 import (
 	"flag"
 	"fmt"
-	"math"
 	"slices"
 	"strings"
 	"testing"
@@ -13,11 +12,12 @@ import (
 )
 
 // The service judges drift; these tests judge the scenario offline with
-// the same pure functions of package scoring, the same way the service's
-// store does (method.md §4–5: per lead and pooled over the decision leads,
-// windows of the last 30 origins, one evaluation per origin in order), so
-// that the story the demo tells can be checked without a database, and
-// seeds surveyed quickly. The demo itself reads the service's verdicts.
+// the very functions of package scoring the service's evaluator calls
+// (scoring.NewReference prepares the baseline, scoring.Replay feeds the
+// detectors one evaluation per production origin in origin order, per lead
+// and pooled over the decision leads, method.md §4–5), so that the story
+// the demo tells can be checked without a database, and seeds surveyed
+// quickly. The demo itself reads the states the service judged.
 
 // offlineEvent is one state change found offline.
 type offlineEvent struct {
@@ -25,10 +25,10 @@ type offlineEvent struct {
 	day    int // production day of the origin
 	from   scoring.State
 	to     scoring.State
-	metric string
+	metric scoring.Metric
 }
 
-// offlineResult is the offline verdict on one substation.
+// offlineResult is what the offline replay finds for one substation.
 type offlineResult struct {
 	series   string
 	final    scoring.State // series level at the end
@@ -48,7 +48,7 @@ func (r offlineResult) seriesAlarms() []offlineEvent {
 }
 
 // leadAlarms lists the leads that entered degraded on metric ("" = any).
-func (r offlineResult) leadAlarms(metric string) []int {
+func (r offlineResult) leadAlarms(metric scoring.Metric) []int {
 	var leads []int
 	for _, e := range r.events {
 		if e.lead > 0 && e.to == scoring.StateDegraded && (metric == "" || e.metric == metric) && !slices.Contains(leads, e.lead) {
@@ -59,61 +59,15 @@ func (r offlineResult) leadAlarms(metric string) []int {
 	return leads
 }
 
-type judged struct {
-	abs, bias scoring.Summary
-	verdict   scoring.Verdict
-	det       scoring.Detector
-	absW      []float64
-	biasW     []float64
-	bands     map[int][2]scoring.Band // by window n: MAE, ME
-}
-
-func newJudged(e []float64, lead int) *judged {
-	j := &judged{abs: scoring.Summarize(scoring.Quantities(scoring.BandMAE, e), lead),
-		bias: scoring.Summarize(scoring.Quantities(scoring.BandME, e), lead)}
-	j.verdict = scoring.Usability(j.abs)
-	j.det.SetBaseline(j.verdict)
-	return j
-}
-
-func newJudgedPooled(abs, bias []float64, lead int) *judged {
-	j := &judged{abs: scoring.Summarize(abs, lead), bias: scoring.Summarize(bias, lead)}
-	j.verdict = scoring.Usability(j.abs)
-	j.det.SetBaseline(j.verdict)
-	return j
-}
-
-// observe adds one origin's |e| and e and judges the window.
-func (j *judged) observe(a, b float64) scoring.Transition {
-	j.absW, j.biasW = append(j.absW, a), append(j.biasW, b)
-	if len(j.absW) > 30 {
-		j.absW, j.biasW = j.absW[1:], j.biasW[1:]
-	}
-	n := len(j.absW)
-	var sa, sb float64
-	for i := range n {
-		sa += j.absW[i]
-		sb += j.biasW[i]
-	}
-	bd, ok := j.bands[n]
-	if !ok {
-		bd = [2]scoring.Band{j.abs.Band(scoring.BandMAE, n), j.bias.Band(scoring.BandME, n)}
-		if j.bands == nil {
-			j.bands = map[int][2]scoring.Band{}
-		}
-		j.bands[n] = bd
-	}
-	return j.det.Observe(scoring.Evaluation{N: n, MAE: sa / float64(n), ME: sb / float64(n), MAEBand: bd[0], MEBand: bd[1]})
-}
-
-// judgeOffline judges every substation of sc.
-func judgeOffline(sc *Scenario) []offlineResult {
+// judgeOffline judges every substation of sc: its backtest as the
+// baseline, its production days replayed in origin order.
+func judgeOffline(sc *Scenario) ([]offlineResult, error) {
 	dec := make([]int, 0, 24)
 	for _, h := range DecisionLeads() {
 		dec = append(dec, int(h))
 	}
-	// Actuals as the service will know them: the backtest's, then the
-	// production meter readings.
+	// Actuals as the service will know them: the production meter
+	// readings (every forecast reached it before the actuals it scores).
 	type key struct {
 		series string
 		unix   int64
@@ -127,55 +81,53 @@ func judgeOffline(sc *Scenario) []offlineResult {
 	var out []offlineResult
 	for s, ss := range sc.Substations {
 		res := offlineResult{series: ss.Key, keff: map[int]float64{}}
-		rows := sc.Backtest[s*BacktestOrigins*Horizon : (s+1)*BacktestOrigins*Horizon]
-		leads := make([]*judged, Horizon+1)
-		errs := make([]map[int]float64, BacktestOrigins)
-		for h := 1; h <= Horizon; h++ {
-			e := make([]float64, BacktestOrigins)
-			for o := range BacktestOrigins {
-				r := rows[o*Horizon+h-1]
-				e[o] = r.Actual - r.Forecast
-				if errs[o] == nil {
-					errs[o] = map[int]float64{}
-				}
-				errs[o][h] = e[o]
-			}
-			leads[h] = newJudged(e, h)
+		var backtest []scoring.Pair
+		for _, r := range sc.Backtest[s*BacktestOrigins*Horizon : (s+1)*BacktestOrigins*Horizon] {
+			backtest = append(backtest, scoring.Pair{Origin: r.Origin, Lead: int(r.Target.Sub(r.Origin) / time.Hour),
+				Actual: r.Actual, Forecast: r.Forecast})
 		}
-		p, _ := scoring.PoolDecisionLeads(errs, dec)
-		leads[0] = newJudgedPooled(p.Abs, p.Bias, slices.Max(dec))
-		for h, j := range leads {
-			res.keff[h] = j.verdict.KEff
-			if !j.verdict.Usable {
+		ref := scoring.NewReference(backtest, scoring.ReferenceSpec{Horizon: Horizon, Decision: dec, Window: scoring.DriftWindow,
+			MASEScale: scoring.NoScale})
+		for h := 0; h <= Horizon; h++ {
+			l := ref.Lead(h)
+			if l == nil {
+				return nil, fmt.Errorf("%s: no backtest for lead %d (0 = pooled)", ss.Key, h)
+			}
+			res.keff[h] = l.Verdict.KEff
+			if !l.Verdict.Usable {
 				res.unusable = append(res.unusable, h)
 			}
 		}
+		var pairs []scoring.Pair
 		for _, d := range sc.Days[:ProductionDays] {
 			f := d.Forecasts[s]
-			var pa, pb float64
 			for h := 1; h <= Horizon; h++ {
 				t := f.Origin.Add(timeHours(h))
 				y, ok := actual[key{ss.Key, t.Unix()}]
 				if !ok {
-					panic(fmt.Sprintf("no actual for %s at %v", ss.Key, t))
+					return nil, fmt.Errorf("no actual for %s at %v", ss.Key, t)
 				}
-				e := y - f.Values[h-1]
-				if tr := leads[h].observe(math.Abs(e), e); tr.Changed {
-					res.events = append(res.events, offlineEvent{h, d.N, tr.From, tr.To, tr.Metric})
-				}
-				if h >= FirstDecisionLead {
-					pa += math.Abs(e) / float64(len(dec))
-					pb += e / float64(len(dec))
-				}
-			}
-			if tr := leads[0].observe(pa, pb); tr.Changed {
-				res.events = append(res.events, offlineEvent{0, d.N, tr.From, tr.To, tr.Metric})
+				pairs = append(pairs, scoring.Pair{Origin: f.Origin, Lead: h, Actual: y, Forecast: f.Values[h-1]})
 			}
 		}
-		res.final = leads[0].det.State
+		rep, err := scoring.Replay(ref, scoring.Checkpoint{}, pairs, scoring.ReplayOptions{})
+		if err != nil {
+			return nil, fmt.Errorf("%s: %w", ss.Key, err)
+		}
+		for _, c := range rep.History {
+			day, ok := sc.DayOf(c.Origin)
+			if !ok {
+				return nil, fmt.Errorf("%s: transition at %v, which is no production origin", ss.Key, c.Origin)
+			}
+			res.events = append(res.events, offlineEvent{c.Lead, day, c.From, c.To, c.Metric})
+		}
+		if rep.Status[0].Lead != 0 {
+			return nil, fmt.Errorf("%s: the replay's first status is of lead %d, not the series", ss.Key, rep.Status[0].Lead)
+		}
+		res.final = rep.Status[0].State()
 		out = append(out, res)
 	}
-	return out
+	return out, nil
 }
 
 // storyProblems says how the outcome differs from the story the demo
@@ -195,7 +147,7 @@ func storyProblems(rs []offlineResult) []string {
 				out = append(out, fmt.Sprintf("%s: healthy but series-level %s (%s) on day %d", r.series, e.to, e.metric, e.day))
 			}
 		case MeterHigh, StaleFeed:
-			day, metric := MeterFaultDay, "me"
+			day, metric := MeterFaultDay, scoring.MetricME
 			if substations[i].Fault == StaleFeed {
 				day, metric = StaleFeedDay, ""
 			}
@@ -207,8 +159,8 @@ func storyProblems(rs []offlineResult) []string {
 			case metric != "" && alarms[0].metric != metric:
 				out = append(out, fmt.Sprintf("%s: first series-level alarm on %s, not %s", r.series, alarms[0].metric, metric))
 			}
-			if metric == "me" {
-				if n := len(r.leadAlarms("me")); n < 40 {
+			if metric == scoring.MetricME {
+				if n := len(r.leadAlarms(scoring.MetricME)); n < 40 {
 					out = append(out, fmt.Sprintf("%s: ME alarms at only %d of %d leads", r.series, n, Horizon))
 				}
 				continue
@@ -238,10 +190,13 @@ func TestDefaultSeedTellsTheStory(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	rs := judgeOffline(sc)
+	rs, err := judgeOffline(sc)
+	if err != nil {
+		t.Fatal(err)
+	}
 	for _, r := range rs {
 		t.Logf("%-13s final %-9s series alarms %v, ME-alarmed leads %v, MAE-alarmed leads %v; K_eff pooled %.0f, lead 48 %.0f",
-			r.series, r.final, r.seriesAlarms(), scoring.FormatLeads(r.leadAlarms("me")), scoring.FormatLeads(r.leadAlarms("mae")),
+			r.series, r.final, r.seriesAlarms(), scoring.FormatLeads(r.leadAlarms(scoring.MetricME)), scoring.FormatLeads(r.leadAlarms(scoring.MetricMAE)),
 			r.keff[0], r.keff[48])
 	}
 	if p := storyProblems(rs); len(p) > 0 {
@@ -264,7 +219,10 @@ func TestSeedSurvey(t *testing.T) {
 		if err != nil {
 			t.Fatal(err)
 		}
-		rs := judgeOffline(sc)
+		rs, err := judgeOffline(sc)
+		if err != nil {
+			t.Fatal(err)
+		}
 		p := storyProblems(rs)
 		alarmed := 0
 		for i, r := range rs {

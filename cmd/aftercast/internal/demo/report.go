@@ -17,10 +17,11 @@ import (
 	"github.com/aftercast/aftercast/scoring"
 )
 
-// The report speaks in production days and local origin times: the demo
+// The report speaks in production days and local origin times (data
+// time): a state's onset is the origin at which it was entered. The demo
 // runs in accelerated time, so the wall-clock times the service stamps on
-// states and events (state_since_time, event_time) all fall within the
-// same minute and say nothing about the story.
+// states and events (noticed_time, event_time) all fall within the same
+// minute and say nothing about the story.
 
 // DayOf is the production day whose origin is t: 1..ProductionDays, 0
 // and below for backtest origins, and false when t is no origin.
@@ -65,23 +66,6 @@ func (sc *Scenario) WriteHeader(w io.Writer) {
 	fmt.Fprintln(w, "The other substations are healthy.")
 }
 
-// leadKey identifies the state machine of one (series, lead); lead 0 is
-// the series level.
-type leadKey struct {
-	series string
-	lead   int32
-}
-
-// sinceDays finds, per state machine, the origin of the last event: when
-// its current state was entered, in production days.
-func sinceDays(events []*aftercastv1.DriftEvent) map[leadKey]*aftercastv1.DriftEvent {
-	out := map[leadKey]*aftercastv1.DriftEvent{}
-	for _, e := range events {
-		out[leadKey{e.GetSeries(), e.GetLead()}] = e
-	}
-	return out
-}
-
 func num(p *float64) string {
 	if p == nil || math.IsNaN(*p) {
 		return "—"
@@ -112,11 +96,23 @@ func stateOf(s *aftercastv1.DriftStatus) string {
 	return name
 }
 
+// onsetCols are a status's onset as the report shows it: the production
+// day of the onset origin and how many origins were judged after it;
+// "—" for the state production started in.
+func (sc *Scenario) onsetCols(s *aftercastv1.DriftStatus) (day, lasted string) {
+	if s.GetOnsetOriginTime() == nil {
+		return "—", "—"
+	}
+	return sc.dayLabel(s.GetOnsetOriginTime().AsTime()), strconv.Itoa(int(s.GetOriginsSinceOnset()))
+}
+
 // WriteReport writes the demo's report: the series-level state of every
-// substation, the per-lead table of those not within, and the drift
-// events, series level in full and per lead grouped.
-func (sc *Scenario) WriteReport(w io.Writer, states []*aftercastv1.SeriesModelDrift, events []*aftercastv1.DriftEvent) error {
-	since := sinceDays(events)
+// substation with its onset, the per-lead table of those not within, the
+// drift events, series level in full and per lead grouped, and what a page
+// means by chance.
+func (sc *Scenario) WriteReport(w io.Writer, l driftreport.Listing, events []*aftercastv1.DriftEvent) error {
+	driftreport.WritePending(w, l.PendingEvaluations)
+	states := l.States
 	fault := map[string]string{}
 	for _, s := range sc.Substations {
 		switch s.Fault {
@@ -132,15 +128,12 @@ func (sc *Scenario) WriteReport(w io.Writer, states []*aftercastv1.SeriesModelDr
 	fmt.Fprintf(w, "\nSeries level: the state that pages — per origin the mean over decision leads %d–%d, window of the last %d origins (MW)\n",
 		FirstDecisionLead, LastDecisionLead, 30)
 	tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', 0)
-	fmt.Fprintln(tw, "SUBSTATION\tSTATE\tSINCE\tWINDOW\tMAE\tEXPECTED\t99% LIMIT\tME\tME 99% BAND\tINJECTED FAULT")
+	fmt.Fprintln(tw, "SUBSTATION\tSTATE\tSINCE\tORIGINS\tWINDOW\tMAE\tEXPECTED\tALARM LIMIT\tME\tME ALARM BAND\tINJECTED FAULT")
 	var off []*aftercastv1.SeriesModelDrift
 	for _, d := range states {
 		s := d.GetSeriesStatus()
-		sinceCol := "—"
-		if e := since[leadKey{d.GetSeries(), 0}]; e != nil {
-			sinceCol = sc.dayLabel(e.GetOriginTime().AsTime())
-		}
-		fmt.Fprintf(tw, "%s\t%s\t%s\t%d\t%s\t%s\t%s\t%s\t%s\t%s\n", d.GetSeries(), stateOf(s), sinceCol, s.GetWindowN(),
+		sinceCol, lasted := sc.onsetCols(s)
+		fmt.Fprintf(tw, "%s\t%s\t%s\t%s\t%d\t%s\t%s\t%s\t%s\t%s\t%s\n", d.GetSeries(), stateOf(s), sinceCol, lasted, s.GetWindowN(),
 			num(s.Mae), num(s.MaeExpected), num(s.MaeAlarmLimit), num(s.Me), band(s.MeAlarmLower, s.MeAlarmUpper), fault[d.GetSeries()])
 		if s.GetState() != aftercastv1.DriftState_DRIFT_STATE_WITHIN {
 			off = append(off, d)
@@ -163,20 +156,21 @@ func (sc *Scenario) WriteReport(w io.Writer, states []*aftercastv1.SeriesModelDr
 		}
 		fmt.Fprintf(w, "\n%s, per lead (%s):\n", d.GetSeries(), strings.Join(parts, ", "))
 		tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', tabwriter.AlignRight)
-		fmt.Fprintln(tw, "LEAD\tWINDOW\tMAE\tEXPECTED\t95% BAND\tME\tME 99% BAND\t STATE\t SINCE\t")
+		fmt.Fprintln(tw, "LEAD\tWINDOW\tMAE\tEXPECTED\t95% BAND\tME\tME ALARM BAND\t STATE\t SINCE\tORIGINS\t")
 		for _, l := range ls {
-			sinceCol := "—"
-			if e := since[leadKey{d.GetSeries(), l.GetLead()}]; e != nil {
-				sinceCol = sc.dayLabel(e.GetOriginTime().AsTime())
-			}
-			fmt.Fprintf(tw, "%d\t%d\t%s\t%s\t%s\t%s\t%s\t %s\t %s\t\n", l.GetLead(), l.GetWindowN(), num(l.Mae), num(l.MaeExpected),
-				band(l.MaeBandLower, l.MaeBandUpper), num(l.Me), band(l.MeAlarmLower, l.MeAlarmUpper), stateOf(l), sinceCol)
+			sinceCol, lasted := sc.onsetCols(l)
+			fmt.Fprintf(tw, "%d\t%d\t%s\t%s\t%s\t%s\t%s\t %s\t %s\t%s\t\n", l.GetLead(), l.GetWindowN(), num(l.Mae), num(l.MaeExpected),
+				band(l.MaeBandLower, l.MaeBandUpper), num(l.Me), band(l.MeAlarmLower, l.MeAlarmUpper), stateOf(l), sinceCol, lasted)
 		}
 		if err := tw.Flush(); err != nil {
 			return err
 		}
 	}
-	return sc.writeEvents(w, events)
+	if err := sc.writeEvents(w, events); err != nil {
+		return err
+	}
+	driftreport.WriteChance(w, l.ExpectedChancePagesPerWeek)
+	return nil
 }
 
 // startUp reports whether an event only starts a state machine up: its
@@ -194,10 +188,20 @@ func informational(e *aftercastv1.DriftEvent) bool {
 	return e.GetNewState() == improved || e.GetPreviousState() == improved
 }
 
+// change is an event's change of state and the metric behind it, with
+// its cause unless new data caused it, such as "within → degraded (me)"
+// or "degraded → within (mae, on revision)".
 func change(e *aftercastv1.DriftEvent) string {
 	s := driftreport.StateName(e.GetPreviousState()) + " → " + driftreport.StateName(e.GetNewState())
+	var why []string
 	if m := driftreport.MetricName(e.GetMetric()); m != "" {
-		s += " (" + m + ")"
+		why = append(why, m)
+	}
+	if c := driftreport.CauseName(e.GetCause()); c != "" && e.GetCause() != aftercastv1.DriftCause_DRIFT_CAUSE_DATA {
+		why = append(why, "on "+c)
+	}
+	if len(why) > 0 {
+		s += " (" + strings.Join(why, ", ") + ")"
 	}
 	return s
 }
@@ -206,11 +210,15 @@ func change(e *aftercastv1.DriftEvent) string {
 // leads and production days they happened on.
 type eventGroup struct {
 	series, change string
-	leads          []int
-	days           []int
+	n              int   // events
+	leads          []int // their leads
+	days           []int // their onsets' production days, of those with an onset
 }
 
 func (g *eventGroup) daySpan() string {
+	if len(g.days) == 0 {
+		return "no onset"
+	}
 	slices.Sort(g.days)
 	first, last := g.days[0], g.days[len(g.days)-1]
 	if first == last {
@@ -236,11 +244,14 @@ func (gr *grouper) add(sc *Scenario, series, change string, e *aftercastv1.Drift
 		gr.index[k] = g
 		gr.groups = append(gr.groups, g)
 	}
+	g.n++
 	if e.Lead != nil && !slices.Contains(g.leads, int(e.GetLead())) {
 		g.leads = append(g.leads, int(e.GetLead()))
 	}
-	day, _ := sc.DayOf(e.GetOriginTime().AsTime())
-	g.days = append(g.days, day)
+	if e.GetOriginTime() != nil {
+		day, _ := sc.DayOf(e.GetOriginTime().AsTime())
+		g.days = append(g.days, day)
+	}
 }
 
 // writeEvents writes the series-level events one by one and the per-lead
@@ -267,7 +278,7 @@ func (sc *Scenario) writeEvents(w io.Writer, events []*aftercastv1.DriftEvent) e
 		}
 	}
 
-	fmt.Fprintf(w, "\nDrift events, series level (day and time of the origin whose scoring triggered each, %s):\n", Zone)
+	fmt.Fprintf(w, "\nDrift events, series level (day and time of each onset, the origin whose window entered the new state, %s):\n", Zone)
 	if len(series) == 0 {
 		fmt.Fprintln(w, "  none beyond start-up")
 	}
@@ -281,11 +292,15 @@ func (sc *Scenario) writeEvents(w io.Writer, events []*aftercastv1.DriftEvent) e
 			}
 			detail = fmt.Sprintf("%s %s %s, window %d", num(e.Value), rel, num(e.Limit), e.GetWindowN())
 		}
-		o := e.GetOriginTime().AsTime()
-		fmt.Fprintf(tw, "  %s\t%s\t%s\t%s\t%s\n", sc.dayLabel(o), o.In(sc.Location).Format("2006-01-02 15:04"), e.GetSeries(), change(e), detail)
+		day, at := "—", "(no onset)"
+		if e.GetOriginTime() != nil {
+			o := e.GetOriginTime().AsTime()
+			day, at = sc.dayLabel(o), o.In(sc.Location).Format("2006-01-02 15:04")
+		}
+		fmt.Fprintf(tw, "  %s\t%s\t%s\t%s\t%s\n", day, at, e.GetSeries(), change(e), detail)
 	}
 	for _, g := range improved.groups {
-		fmt.Fprintf(tw, "  %s\t\t%s\t%s\t%s\n", g.daySpan(), g.series, g.change, strings.TrimSuffix(plural(len(g.days), "change"), ":"))
+		fmt.Fprintf(tw, "  %s\t\t%s\t%s\t%s\n", g.daySpan(), g.series, g.change, strings.TrimSuffix(plural(g.n, "change"), ":"))
 	}
 	if err := tw.Flush(); err != nil {
 		return err

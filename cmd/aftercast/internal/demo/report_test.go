@@ -1,11 +1,13 @@
 package demo
 
 import (
+	"slices"
 	"strings"
 	"testing"
 	"time"
 
 	aftercastv1 "github.com/aftercast/aftercast/api/aftercast/v1"
+	"github.com/aftercast/aftercast/cmd/aftercast/internal/driftreport"
 	"google.golang.org/protobuf/types/known/timestamppb"
 )
 
@@ -77,5 +79,67 @@ func TestReportGroupsEvents(t *testing.T) {
 		if !strings.Contains(out, want) {
 			t.Errorf("report lacks %q:\n%s", want, out)
 		}
+	}
+}
+
+// The report takes each state's onset from the status itself (data time,
+// as a production day), not from the events, and ends with what a page
+// means by chance.
+func TestReportShowsOnsetsFromStates(t *testing.T) {
+	t.Parallel()
+	loc, err := time.LoadLocation(Zone)
+	if err != nil {
+		t.Fatal(err)
+	}
+	sc := &Scenario{Location: loc, Substations: Substations()}
+	me := aftercastv1.DriftMetric_DRIFT_METRIC_ME
+	v, l := 0.61, 0.55
+	degraded := &aftercastv1.DriftStatus{State: aftercastv1.DriftState_DRIFT_STATE_DEGRADED, WindowN: 30,
+		OnsetOriginTime: timestamppb.New(ProductionOrigin(loc, 46)), OriginsSinceOnset: 45, OnsetMetric: me, OnsetValue: &v, OnsetLimit: &l,
+		BreachedMetrics: []aftercastv1.DriftMetric{me}}
+	lead := func(h int32, st aftercastv1.DriftState, day int) *aftercastv1.DriftStatus {
+		return &aftercastv1.DriftStatus{Lead: &h, State: st, WindowN: 30, OnsetOriginTime: timestamppb.New(ProductionOrigin(loc, day)),
+			OriginsSinceOnset: int32(ProductionDays - day + 1)}
+	}
+	states := []*aftercastv1.SeriesModelDrift{
+		{Series: "dh/aaskrog", SeriesStatus: &aftercastv1.DriftStatus{State: aftercastv1.DriftState_DRIFT_STATE_WITHIN, WindowN: 30,
+			OnsetOriginTime: timestamppb.New(ProductionOrigin(loc, 9)), OriginsSinceOnset: 82}},
+		{Series: MeterFaultSeries, SeriesStatus: degraded, LeadStatuses: []*aftercastv1.DriftStatus{
+			lead(2, aftercastv1.DriftState_DRIFT_STATE_DEGRADED, 41), lead(1, aftercastv1.DriftState_DRIFT_STATE_WITHIN, 9)}},
+	}
+	// A revision moved the meter substation's series level: the event says
+	// so; the onset stays the status's.
+	events := []*aftercastv1.DriftEvent{{Series: MeterFaultSeries, OriginTime: timestamppb.New(ProductionOrigin(loc, 46)),
+		PreviousState: aftercastv1.DriftState_DRIFT_STATE_WITHIN, NewState: aftercastv1.DriftState_DRIFT_STATE_DEGRADED, Metric: me,
+		Value: &v, Limit: &l, WindowN: 30, Cause: aftercastv1.DriftCause_DRIFT_CAUSE_REVISION}}
+	var b strings.Builder
+	if err := sc.WriteReport(&b, driftreport.Listing{States: states, ExpectedChancePagesPerWeek: 0.04}, events); err != nil {
+		t.Fatal(err)
+	}
+	out := b.String()
+	t.Logf("\n%s", out)
+	for _, want := range []string{
+		"SUBSTATION  STATE          SINCE   ORIGINS  WINDOW  MAE  EXPECTED  ALARM LIMIT  ME  ME ALARM BAND  INJECTED FAULT\n",
+		"dh/aaskrog  within         day 9   82       30",
+		"dh/kalkbro  degraded (me)  day 46  45       30",
+		"day 46  2026-10-15 05:00  dh/kalkbro  within → degraded (me, on revision)  0.610 > 0.550, window 30",
+		"expected chance pages per week, if everything selected is healthy: 0.0400",
+		driftreport.Caution,
+	} {
+		if !strings.Contains(out, want) {
+			t.Errorf("report lacks %q:\n%s", want, out)
+		}
+	}
+	var lead2 []string
+	for _, line := range strings.Split(out, "\n") {
+		if f := strings.Fields(line); len(f) > 0 && f[0] == "2" {
+			lead2 = f
+		}
+	}
+	if want := []string{"2", "30", "—", "—", "—", "—", "—", "degraded", "day", "41", "50"}; !slices.Equal(lead2, want) {
+		t.Errorf("lead 2 row %q, want %q", lead2, want)
+	}
+	if strings.Contains(out, "99%") || strings.Contains(out, "verdicts") {
+		t.Errorf("report speaks of 99%% or verdicts:\n%s", out)
 	}
 }

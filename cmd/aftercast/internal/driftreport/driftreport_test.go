@@ -21,12 +21,16 @@ import (
 // contract check (../shared/checks/contract drift) requires, and the ones
 // this client adds. A change to them is a change of the interface.
 var (
-	statusKeys = []string{"lead", "state", "breached", "state_since", "last_origin_time", "window_n", "mae", "mae_expected",
-		"mae_band_lower", "mae_band_upper", "mae_alarm_limit", "me", "me_expected", "me_alarm_lower", "me_alarm_upper", "k_eff"}
-	seriesKeys = []string{"series", "model", "state", "state_since", "baseline_version", "decision_leads", "series_level", "leads"}
-	eventKeys  = []string{"token", "time", "series", "model", "lead", "origin_time", "metric", "previous", "state", "value", "limit",
+	statusKeys = []string{"lead", "state", "breached", "onset_origin_time", "origins_since_onset", "onset_metric", "onset_value",
+		"onset_limit", "noticed_time", "reason", "last_origin_time", "window_n", "mae", "mae_expected", "mae_band_lower", "mae_band_upper",
+		"mae_alarm_limit", "me", "me_expected", "me_band_lower", "me_band_upper", "me_alarm_lower", "me_alarm_upper", "k_eff"}
+	seriesKeys = []string{"series", "model", "state", "onset_origin_time", "origins_since_onset", "noticed_time", "baseline_version",
+		"decision_leads", "series_level", "leads"}
+	statesKeys = []string{"pending_evaluations", "expected_chance_pages_per_week", "series"}
+	eventKeys  = []string{"token", "time", "series", "model", "lead", "origin_time", "cause", "metric", "previous", "state", "value", "limit",
 		"band_lower", "band_upper", "window_n", "k_eff"}
-	versionKeys = []string{"series", "model", "version", "active", "create_time", "first_origin_time", "last_origin_time",
+	transitionKeys = []string{"lead", "origin_time", "previous", "state", "metric", "value", "limit", "window_n", "k_eff", "reason"}
+	versionKeys    = []string{"series", "model", "version", "active", "create_time", "first_origin_time", "last_origin_time",
 		"origin_cadence_steps", "max_lead", "rows", "training_actuals", "mase_scale", "warnings"}
 	baselineLeadKeys = []string{"lead", "k", "k_eff", "usable", "reason", "expected", "mae", "rmse", "me"}
 	upperBandKeys    = []string{"expected", "band_lower", "band_upper", "alarm_upper", "k_eff"}
@@ -38,6 +42,19 @@ var (
 		"mae_alarm_limit", "me", "me_alarm_lower", "me_alarm_upper"}
 	contractEventKeys = []string{"time", "series", "model", "lead", "origin_time", "metric", "previous", "state", "value", "limit", "window_n"}
 )
+
+// wallClock tells the keys the contract's replay check leaves out when it
+// compares the states of the same data pushed in different orders: those
+// that hold wall-clock times. Every other key must be a function of the
+// stored data.
+func wallClock(k string) bool {
+	for _, w := range []string{"noticed", "recorded", "detected", "updated", "wall"} {
+		if strings.Contains(k, w) {
+			return true
+		}
+	}
+	return strings.Contains(k, "since") && !strings.Contains(k, "onset") && !strings.Contains(k, "origin")
+}
 
 func f(x float64) *float64 { return &x }
 func i32(x int32) *int32   { return &x }
@@ -87,23 +104,37 @@ func checkKeys(t *testing.T, what string, v any, want, required []string) {
 	}
 }
 
-// testDrift is one (series, model): the series level degraded on MAE,
-// three leads sent out of order, one of them with nothing but a state.
+// onset is the onset origin of testDrift's series level, 12 origins (here
+// hours) before its last origin; noticed is when the service noticed it.
+var (
+	onset   = t0.Add(-12 * time.Hour)
+	noticed = t0.Add(3 * time.Minute)
+)
+
+// testDrift is one (series, model): the series level degraded on MAE since
+// onset, three leads sent out of order, one of them with nothing but a
+// state and a reason.
 func testDrift() *aftercastv1.SeriesModelDrift {
 	full := func(lead int32, st aftercastv1.DriftState) *aftercastv1.DriftStatus {
-		return &aftercastv1.DriftStatus{Lead: i32(lead), State: st, StateSinceTime: timestamppb.New(t0), LastOriginTime: timestamppb.New(t0.Add(-time.Hour)),
-			WindowN: 30, Mae: f(2.5), MaeExpected: f(2), MaeBandLower: f(1.5), MaeBandUpper: f(2.4), MaeAlarmLimit: f(2.45),
-			Me: f(0.1), MeExpected: f(0), MeAlarmLower: f(-0.5), MeAlarmUpper: f(0.5), KEff: f(180)}
+		return &aftercastv1.DriftStatus{Lead: i32(lead), State: st, StateSinceTime: timestamppb.New(noticed), NoticedTime: timestamppb.New(noticed),
+			OnsetOriginTime: timestamppb.New(onset.Add(-time.Duration(lead) * time.Hour)), OriginsSinceOnset: 12 + lead,
+			LastOriginTime: timestamppb.New(t0.Add(-time.Hour)),
+			WindowN:        30, Mae: f(2.5), MaeExpected: f(2), MaeBandLower: f(1.5), MaeBandUpper: f(2.4), MaeAlarmLimit: f(2.45),
+			Me: f(0.1), MeExpected: f(0), MeBandLower: f(-0.3), MeBandUpper: f(0.3), MeAlarmLower: f(-0.5), MeAlarmUpper: f(0.5), KEff: f(180)}
 	}
 	series := full(0, aftercastv1.DriftState_DRIFT_STATE_DEGRADED)
 	series.Lead = nil
 	series.BreachedMetrics = []aftercastv1.DriftMetric{aftercastv1.DriftMetric_DRIFT_METRIC_MAE}
+	series.OnsetMetric, series.OnsetValue, series.OnsetLimit = aftercastv1.DriftMetric_DRIFT_METRIC_MAE, f(2.47), f(2.45)
+	improved := full(2, aftercastv1.DriftState_DRIFT_STATE_IMPROVED)
+	improved.OnsetMetric, improved.OnsetValue, improved.OnsetLimit = aftercastv1.DriftMetric_DRIFT_METRIC_MAE, f(1.4), f(1.5)
 	return &aftercastv1.SeriesModelDrift{Series: "plant-7/heat", Model: "m1", BaselineVersion: 2, DecisionLeads: []int32{1, 2, 3},
 		SeriesStatus: series,
 		LeadStatuses: []*aftercastv1.DriftStatus{
 			full(3, aftercastv1.DriftState_DRIFT_STATE_WITHIN),
-			{Lead: i32(1), State: aftercastv1.DriftState_DRIFT_STATE_INSUFFICIENT_BASELINE, WindowN: 4, Mae: f(1), Me: f(math.NaN())},
-			full(2, aftercastv1.DriftState_DRIFT_STATE_IMPROVED),
+			{Lead: i32(1), State: aftercastv1.DriftState_DRIFT_STATE_INSUFFICIENT_BASELINE, WindowN: 4, Mae: f(1), Me: f(math.NaN()),
+				Reason: "K = 150 < 180"},
+			improved,
 		}}
 }
 
@@ -113,8 +144,11 @@ func TestStatesJSON(t *testing.T) {
 	// A series without a series-level status yet, and no baseline.
 	bare := &aftercastv1.SeriesModelDrift{Series: "b", Model: "m2",
 		LeadStatuses: []*aftercastv1.DriftStatus{{Lead: i32(1), State: aftercastv1.DriftState_DRIFT_STATE_INSUFFICIENT_DATA}}}
-	doc := decode(t, ToStates([]*aftercastv1.SeriesModelDrift{d, bare}))
-	checkKeys(t, "document", doc, []string{"series"}, nil)
+	doc := decode(t, ToStates(Listing{States: []*aftercastv1.SeriesModelDrift{d, bare}, PendingEvaluations: 3, ExpectedChancePagesPerWeek: 0.25}))
+	checkKeys(t, "document", doc, statesKeys, nil)
+	if doc["pending_evaluations"] != 3.0 || doc["expected_chance_pages_per_week"] != 0.25 {
+		t.Errorf("document %v", doc)
+	}
 	list := doc["series"].([]any)
 	if len(list) != 2 {
 		t.Fatalf("%d series, want 2", len(list))
@@ -122,11 +156,14 @@ func TestStatesJSON(t *testing.T) {
 	s := list[0].(map[string]any)
 	checkKeys(t, "series", s, seriesKeys, contractSeriesKeys)
 	checkKeys(t, "series_level", s["series_level"], statusKeys, nil)
-	if s["state"] != "degraded" || s["state_since"] != "2026-03-01T12:00:00Z" || s["baseline_version"] != 2.0 {
+	if s["state"] != "degraded" || s["onset_origin_time"] != "2026-03-01T00:00:00Z" || s["origins_since_onset"] != 12.0 ||
+		s["noticed_time"] != "2026-03-01T12:03:00Z" || s["baseline_version"] != 2.0 {
 		t.Errorf("series %v", s)
 	}
 	sl := s["series_level"].(map[string]any)
-	if sl["lead"] != nil || sl["mae_alarm_limit"] != 2.45 || !reflect.DeepEqual(sl["breached"], []any{"mae"}) {
+	if sl["lead"] != nil || sl["mae_alarm_limit"] != 2.45 || !reflect.DeepEqual(sl["breached"], []any{"mae"}) ||
+		sl["onset_origin_time"] != "2026-03-01T00:00:00Z" || sl["onset_metric"] != "mae" || sl["onset_value"] != 2.47 ||
+		sl["onset_limit"] != 2.45 || sl["me_band_lower"] != -0.3 || sl["me_band_upper"] != 0.3 || sl["reason"] != nil {
 		t.Errorf("series_level %v", sl)
 	}
 	leads := s["leads"].([]any)
@@ -140,22 +177,65 @@ func TestStatesJSON(t *testing.T) {
 	}
 	l1 := leads[0].(map[string]any)
 	if l1["state"] != "insufficient_baseline" || l1["mae"] != 1.0 || l1["mae_expected"] != nil || l1["me"] != nil ||
-		l1["state_since"] != nil || !reflect.DeepEqual(l1["breached"], []any{}) {
+		l1["onset_origin_time"] != nil || l1["origins_since_onset"] != 0.0 || l1["onset_metric"] != nil || l1["noticed_time"] != nil ||
+		l1["reason"] != "K = 150 < 180" || !reflect.DeepEqual(l1["breached"], []any{}) {
 		t.Errorf("lead 1: absent values must be null, NaN too: %v", l1)
 	}
-	if got := leads[1].(map[string]any)["state"]; got != "improved" {
-		t.Errorf("lead 2 state %v", got)
+	if l2 := leads[1].(map[string]any); l2["state"] != "improved" || l2["onset_origin_time"] != "2026-02-28T22:00:00Z" || l2["origins_since_onset"] != 14.0 {
+		t.Errorf("lead 2 %v", l2)
 	}
 
 	b := list[1].(map[string]any)
 	checkKeys(t, "series", b, seriesKeys, contractSeriesKeys)
-	if b["state"] != "insufficient_data" || b["series_level"] != nil || b["baseline_version"] != nil || b["state_since"] != nil ||
-		!reflect.DeepEqual(b["decision_leads"], []any{}) {
+	if b["state"] != "insufficient_data" || b["series_level"] != nil || b["baseline_version"] != nil || b["onset_origin_time"] != nil ||
+		b["noticed_time"] != nil || !reflect.DeepEqual(b["decision_leads"], []any{}) {
 		t.Errorf("series without a series-level status: %v", b)
 	}
 
-	if empty := decode(t, ToStates(nil)); !reflect.DeepEqual(empty["series"], []any{}) {
+	empty := decode(t, ToStates(Listing{}))
+	if !reflect.DeepEqual(empty["series"], []any{}) || empty["pending_evaluations"] != 0.0 {
 		t.Errorf("no states: %v, want an empty list", empty)
+	}
+}
+
+// The contract's replay check compares every key but the wall-clock ones
+// between two pushes of the same data, and wants an onset at series
+// level: the only wall-clock times written are the noticed ones, and no
+// key holding data is taken for one.
+func TestStatesJSONWallClockKeys(t *testing.T) {
+	t.Parallel()
+	doc := decode(t, ToStates(Listing{States: []*aftercastv1.SeriesModelDrift{testDrift()}}))
+	s := doc["series"].([]any)[0].(map[string]any)
+	var wall []string
+	var walk func(prefix string, v any)
+	walk = func(prefix string, v any) {
+		switch v := v.(type) {
+		case map[string]any:
+			for k, x := range v {
+				if wallClock(k) {
+					wall = append(wall, prefix+k)
+				}
+				walk(prefix+k+".", x)
+			}
+		case []any:
+			for _, x := range v {
+				walk(prefix, x)
+			}
+		}
+	}
+	walk("", s)
+	slices.Sort(wall)
+	if want := []string{"leads.noticed_time", "leads.noticed_time", "leads.noticed_time", "noticed_time", "series_level.noticed_time"}; !reflect.DeepEqual(wall, want) {
+		t.Errorf("wall-clock keys %v, want only the noticed times %v", wall, want)
+	}
+	onsetAtSeries := false
+	for k := range s {
+		if strings.Contains(k, "onset") {
+			onsetAtSeries = true
+		}
+	}
+	if !onsetAtSeries {
+		t.Errorf("no onset key at series level: %v", keys(t, s))
 	}
 }
 
@@ -164,11 +244,14 @@ func TestEventsJSON(t *testing.T) {
 	es := []*aftercastv1.DriftEvent{
 		{Token: "41", EventTime: timestamppb.New(t0), Series: "s", Model: "m", OriginTime: timestamppb.New(t0.Add(-time.Hour)),
 			Metric: aftercastv1.DriftMetric_DRIFT_METRIC_MAE, PreviousState: aftercastv1.DriftState_DRIFT_STATE_WITHIN,
-			NewState: aftercastv1.DriftState_DRIFT_STATE_DEGRADED, Value: f(2.5), Limit: f(2.45), BandLower: f(1.5), BandUpper: f(2.4), WindowN: 30, KEff: f(180)},
+			NewState: aftercastv1.DriftState_DRIFT_STATE_DEGRADED, Value: f(2.5), Limit: f(2.45), BandLower: f(1.5), BandUpper: f(2.4), WindowN: 30, KEff: f(180),
+			Cause: aftercastv1.DriftCause_DRIFT_CAUSE_DATA},
 		{Token: "42", EventTime: timestamppb.New(t0.Add(time.Nanosecond)), Series: "s", Model: "m", Lead: i32(7),
 			NewState: aftercastv1.DriftState_DRIFT_STATE_INSUFFICIENT_DATA, WindowN: 0},
 		{Token: "43", Series: "s", Model: "m", Lead: i32(7), Metric: aftercastv1.DriftMetric_DRIFT_METRIC_ME,
-			PreviousState: aftercastv1.DriftState_DRIFT_STATE_DEGRADED, NewState: aftercastv1.DriftState_DRIFT_STATE_WITHIN, Value: f(0.1)},
+			PreviousState: aftercastv1.DriftState_DRIFT_STATE_DEGRADED, NewState: aftercastv1.DriftState_DRIFT_STATE_WITHIN, Value: f(0.1),
+			Cause: aftercastv1.DriftCause_DRIFT_CAUSE_REVISION},
+		{Token: "44", Series: "s", Model: "m", Cause: aftercastv1.DriftCause_DRIFT_CAUSE_BASELINE, NewState: aftercastv1.DriftState_DRIFT_STATE_WITHIN},
 	}
 	doc := decode(t, ToEvents(es))
 	checkKeys(t, "document", doc, []string{"events"}, nil)
@@ -178,10 +261,10 @@ func TestEventsJSON(t *testing.T) {
 	}
 	want := []map[string]any{
 		{"token": "41", "time": "2026-03-01T12:00:00Z", "series": "s", "model": "m", "lead": nil, "origin_time": "2026-03-01T11:00:00Z",
-			"metric": "mae", "previous": "within", "state": "degraded", "value": 2.5, "limit": 2.45, "band_lower": 1.5, "band_upper": 2.4,
+			"cause": "data", "metric": "mae", "previous": "within", "state": "degraded", "value": 2.5, "limit": 2.45, "band_lower": 1.5, "band_upper": 2.4,
 			"window_n": 30.0, "k_eff": 180.0},
 		{"token": "42", "time": "2026-03-01T12:00:00.000000001Z", "series": "s", "model": "m", "lead": 7.0, "origin_time": nil,
-			"metric": nil, "previous": nil, "state": "insufficient_data", "value": nil, "limit": nil, "band_lower": nil, "band_upper": nil,
+			"cause": nil, "metric": nil, "previous": nil, "state": "insufficient_data", "value": nil, "limit": nil, "band_lower": nil, "band_upper": nil,
 			"window_n": 0.0, "k_eff": nil},
 	}
 	for i, w := range want {
@@ -189,8 +272,12 @@ func TestEventsJSON(t *testing.T) {
 			t.Errorf("event %d\n got %v\nwant %v", i, list[i], w)
 		}
 	}
-	if e := list[2].(map[string]any); e["metric"] != "me" || e["previous"] != "degraded" || e["state"] != "within" || e["time"] != nil {
+	if e := list[2].(map[string]any); e["metric"] != "me" || e["previous"] != "degraded" || e["state"] != "within" || e["time"] != nil ||
+		e["cause"] != "revision" {
 		t.Errorf("event 2 %v", e)
+	}
+	if e := list[3].(map[string]any); e["cause"] != "baseline" {
+		t.Errorf("event 3 %v", e)
 	}
 
 	// Followed events are the same objects, one per line.
@@ -201,8 +288,8 @@ func TestEventsJSON(t *testing.T) {
 		}
 	}
 	lines := strings.Split(strings.TrimSuffix(b.String(), "\n"), "\n")
-	if len(lines) != 3 {
-		t.Fatalf("NDJSON has %d lines, want 3:\n%s", len(lines), b.String())
+	if len(lines) != len(es) {
+		t.Fatalf("NDJSON has %d lines, want %d:\n%s", len(lines), len(es), b.String())
 	}
 	for i, l := range lines {
 		var m map[string]any
@@ -315,6 +402,10 @@ func TestEnumNames(t *testing.T) {
 		{MetricName(aftercastv1.DriftMetric_DRIFT_METRIC_MAE), "mae"},
 		{MetricName(aftercastv1.DriftMetric_DRIFT_METRIC_ME), "me"},
 		{MetricName(aftercastv1.DriftMetric_DRIFT_METRIC_UNSPECIFIED), ""},
+		{CauseName(aftercastv1.DriftCause_DRIFT_CAUSE_DATA), "data"},
+		{CauseName(aftercastv1.DriftCause_DRIFT_CAUSE_REVISION), "revision"},
+		{CauseName(aftercastv1.DriftCause_DRIFT_CAUSE_BASELINE), "baseline"},
+		{CauseName(aftercastv1.DriftCause_DRIFT_CAUSE_UNSPECIFIED), ""},
 		{WarningKindName(aftercastv1.BaselineWarningKind_BASELINE_WARNING_KIND_ORIGIN_CADENCE_DIFFERS), "origin_cadence_differs"},
 		{WarningKindName(aftercastv1.BaselineWarningKind_BASELINE_WARNING_KIND_TRAINING_ACTUALS_IGNORED), "training_actuals_ignored"},
 	} {
@@ -332,16 +423,24 @@ func TestStatesTableShowsOnlyLeadsNotWithin(t *testing.T) {
 		l.State = aftercastv1.DriftState_DRIFT_STATE_WITHIN
 	}
 	var b bytes.Buffer
-	if err := WriteStates(&b, []*aftercastv1.SeriesModelDrift{testDrift(), allWithin}); err != nil {
+	if err := WriteStates(&b, Listing{States: []*aftercastv1.SeriesModelDrift{testDrift(), allWithin}}, nil); err != nil {
 		t.Fatal(err)
 	}
 	out := b.String()
+	t.Logf("\n%s", out)
 	lines := strings.Split(out, "\n")
 	if !strings.HasPrefix(lines[0], "SERIES") || !strings.Contains(lines[1], "degraded (mae)") || !strings.HasPrefix(lines[2], "quiet") {
 		t.Errorf("series-level states do not come first, one line each:\n%s", out)
 	}
-	for _, want := range []string{"plant-7/heat / m1: 1 of 3 leads within; the others:", "  1     insufficient_baseline", "  2     improved",
-		"quiet / m1: all 3 leads within", "[1.500, 2.400]", "2.450"} {
+	for _, want := range []string{
+		"plant-7/heat / m1: degraded since origin 2026-03-01T00:00Z, 12 origins ago, on MAE 2.470 > alarm limit 2.450 (noticed 2026-03-01T12:03:00Z)\n" +
+			"  1 of 3 leads within; the others:\n",
+		"  1     insufficient_baseline", "K = 150 < 180\n", "  2     improved", "2026-02-28T22:00Z", "14 origins ago",
+		"quiet / m1: degraded since origin", "  all 3 leads within", "[1.500, 2.400]", "2.450",
+		"expected chance pages per week, if everything selected is healthy: 0.0000\n",
+		"about once per 1391 origins",
+		"\n" + Caution + "\n",
+	} {
 		if !strings.Contains(out, want) {
 			t.Errorf("table lacks %q:\n%s", want, out)
 		}
@@ -349,23 +448,169 @@ func TestStatesTableShowsOnlyLeadsNotWithin(t *testing.T) {
 	if strings.Contains(out, "\n  3 ") {
 		t.Errorf("lead 3, within, is listed:\n%s", out)
 	}
+	if strings.Contains(out, "pending") {
+		t.Errorf("nothing is pending, yet the table says so:\n%s", out)
+	}
+}
+
+// Onsets are data time, shown in the series' zone when known; the wall
+// clock appears only as "noticed", in UTC.
+func TestStatesTableOnsetInSeriesZone(t *testing.T) {
+	t.Parallel()
+	cph, err := time.LoadLocation("Europe/Copenhagen")
+	if err != nil {
+		t.Fatal(err)
+	}
+	d := testDrift()
+	d.SeriesStatus.OnsetOriginTime = timestamppb.New(time.Date(2026, 10, 14, 3, 0, 0, 0, time.UTC))
+	d.SeriesStatus.OnsetMetric, d.SeriesStatus.OnsetValue, d.SeriesStatus.OnsetLimit = aftercastv1.DriftMetric_DRIFT_METRIC_ME, f(-0.61), f(-0.5)
+	other := proto.CloneOf(d)
+	other.Series = "elsewhere"
+	var b bytes.Buffer
+	zones := func(s string) *time.Location {
+		if s == "plant-7/heat" {
+			return cph
+		}
+		return nil
+	}
+	if err := WriteStates(&b, Listing{States: []*aftercastv1.SeriesModelDrift{d, other}, PendingEvaluations: 4, ExpectedChancePagesPerWeek: 0.0242}, zones); err != nil {
+		t.Fatal(err)
+	}
+	out := b.String()
+	for _, want := range []string{
+		"note: 4 evaluations pending at the service: some states may not include the newest data yet\n",
+		"plant-7/heat / m1: degraded since origin 2026-10-14T05:00+02:00, 12 origins ago, on ME -0.6100 < alarm bound -0.5000 (noticed 2026-03-01T12:03:00Z)",
+		"elsewhere / m1: degraded since origin 2026-10-14T03:00Z,",
+		"if everything selected is healthy: 0.0242\n",
+	} {
+		if !strings.Contains(out, want) {
+			t.Errorf("table lacks %q:\n%s", want, out)
+		}
+	}
+	if !strings.HasPrefix(out, "note: 4 evaluations pending") {
+		t.Errorf("the pending note does not come first:\n%s", out)
+	}
+	// The series line shows the onset in the zone, never the wall clock.
+	if line := strings.Split(out, "\n")[3]; !strings.HasPrefix(line, "plant-7/heat") || !strings.Contains(line, "2026-10-14T05:00+02:00") ||
+		strings.Contains(line, "12:03") {
+		t.Errorf("series line %q", line)
+	}
+}
+
+func TestOnset(t *testing.T) {
+	t.Parallel()
+	st := func(s aftercastv1.DriftState, m aftercastv1.DriftMetric, v, l *float64) *aftercastv1.DriftStatus {
+		return &aftercastv1.DriftStatus{State: s, OnsetOriginTime: timestamppb.New(t0), OriginsSinceOnset: 1, OnsetMetric: m, OnsetValue: v, OnsetLimit: l}
+	}
+	const (
+		mae = aftercastv1.DriftMetric_DRIFT_METRIC_MAE
+		me  = aftercastv1.DriftMetric_DRIFT_METRIC_ME
+	)
+	for _, c := range []struct {
+		s    *aftercastv1.DriftStatus
+		want string
+	}{
+		{st(aftercastv1.DriftState_DRIFT_STATE_DEGRADED, me, f(0.61), f(0.5)), "degraded since origin 2026-03-01T12:00Z, 1 origin ago, on ME 0.6100 > alarm bound 0.5000"},
+		{st(aftercastv1.DriftState_DRIFT_STATE_IMPROVED, mae, f(1.4), f(1.5)), "improved since origin 2026-03-01T12:00Z, 1 origin ago, on MAE 1.400 < 95% band's lower bound 1.500"},
+		{st(aftercastv1.DriftState_DRIFT_STATE_WITHIN, mae, f(2.3), f(2.4)), "within since origin 2026-03-01T12:00Z, 1 origin ago, on MAE 2.300 < 95% band bound 2.400"},
+		{st(aftercastv1.DriftState_DRIFT_STATE_WITHIN, aftercastv1.DriftMetric_DRIFT_METRIC_UNSPECIFIED, nil, nil), "within since origin 2026-03-01T12:00Z, 1 origin ago"},
+		{&aftercastv1.DriftStatus{}, "insufficient_data since production began"},
+		{&aftercastv1.DriftStatus{State: aftercastv1.DriftState_DRIFT_STATE_INSUFFICIENT_BASELINE, Reason: "K = 3 < 180"},
+			"insufficient_baseline since production began: K = 3 < 180"},
+	} {
+		if got := Onset(c.s, time.UTC); got != c.want {
+			t.Errorf("got  %q\nwant %q", got, c.want)
+		}
+	}
 }
 
 func TestEventLinesAreTableRows(t *testing.T) {
 	t.Parallel()
-	e := &aftercastv1.DriftEvent{Token: "1", EventTime: timestamppb.New(t0), Series: "s", Model: "m", OriginTime: timestamppb.New(t0),
+	cph, err := time.LoadLocation("Europe/Copenhagen")
+	if err != nil {
+		t.Fatal(err)
+	}
+	e := &aftercastv1.DriftEvent{Token: "1", EventTime: timestamppb.New(t0), Series: "s", Model: "m", OriginTime: timestamppb.New(t0.Add(-2 * time.Hour)),
 		Metric: aftercastv1.DriftMetric_DRIFT_METRIC_MAE, PreviousState: aftercastv1.DriftState_DRIFT_STATE_WITHIN,
-		NewState: aftercastv1.DriftState_DRIFT_STATE_DEGRADED, Value: f(2.5), Limit: f(2.45), WindowN: 30}
+		NewState: aftercastv1.DriftState_DRIFT_STATE_DEGRADED, Value: f(2.5), Limit: f(2.45), WindowN: 30, Cause: aftercastv1.DriftCause_DRIFT_CAUSE_REVISION}
 	var b bytes.Buffer
 	if err := WriteEventHeader(&b); err != nil {
 		t.Fatal(err)
 	}
-	if err := WriteEventLine(&b, e); err != nil {
+	if err := WriteEventLine(&b, e, cph); err != nil {
 		t.Fatal(err)
 	}
 	lines := strings.Split(strings.TrimSuffix(b.String(), "\n"), "\n")
 	if len(lines) != 2 || strings.Index(lines[0], "CHANGE") != strings.Index(lines[1], "within -> degraded") ||
-		!strings.Contains(lines[1], "series") || !strings.HasSuffix(lines[1], "30") {
+		strings.Index(lines[0], "CAUSE") != strings.Index(lines[1], "revision") ||
+		strings.Index(lines[0], "ONSET ORIGIN") != strings.Index(lines[1], "2026-03-01T11:00+01:00") ||
+		!strings.HasPrefix(lines[1], "2026-03-01T12:00:00Z") || !strings.Contains(lines[1], "series") || !strings.HasSuffix(lines[1], "30") {
 		t.Errorf("event lines:\n%s", b.String())
+	}
+
+	// The aligned table has the same columns.
+	b.Reset()
+	if err := WriteEvents(&b, []*aftercastv1.DriftEvent{e}, func(string) *time.Location { return cph }); err != nil {
+		t.Fatal(err)
+	}
+	lines = strings.Split(strings.TrimSuffix(b.String(), "\n"), "\n")
+	if len(lines) != 2 || !strings.HasPrefix(lines[0], "RECORDED") || strings.Index(lines[0], "CAUSE") != strings.Index(lines[1], "revision") ||
+		strings.Index(lines[0], "ONSET ORIGIN") != strings.Index(lines[1], "2026-03-01T11:00+01:00") {
+		t.Errorf("events table:\n%s", b.String())
+	}
+}
+
+func TestHistory(t *testing.T) {
+	t.Parallel()
+	r := &aftercastv1.GetDriftHistoryResponse{BaselineVersion: 3, Transitions: []*aftercastv1.DriftTransition{
+		{OriginTime: timestamppb.New(t0), PreviousState: aftercastv1.DriftState_DRIFT_STATE_INSUFFICIENT_DATA,
+			NewState: aftercastv1.DriftState_DRIFT_STATE_WITHIN, WindowN: 7},
+		{Lead: i32(4), OriginTime: timestamppb.New(t0.Add(24 * time.Hour)), PreviousState: aftercastv1.DriftState_DRIFT_STATE_WITHIN,
+			NewState: aftercastv1.DriftState_DRIFT_STATE_DEGRADED, Metric: aftercastv1.DriftMetric_DRIFT_METRIC_ME, Value: f(0.7), Limit: f(0.5),
+			WindowN: 30, KEff: f(120)},
+		{Lead: i32(5), OriginTime: timestamppb.New(t0), NewState: aftercastv1.DriftState_DRIFT_STATE_INSUFFICIENT_BASELINE, Reason: "K = 3 < 180"},
+	}}
+	doc := decode(t, ToHistory("s", "m", r))
+	checkKeys(t, "history", doc, []string{"series", "model", "baseline_version", "transitions"}, nil)
+	ts := doc["transitions"].([]any)
+	for _, x := range ts {
+		checkKeys(t, "transition", x, transitionKeys, nil)
+	}
+	want := []map[string]any{
+		{"lead": nil, "origin_time": "2026-03-01T12:00:00Z", "previous": "insufficient_data", "state": "within", "metric": nil,
+			"value": nil, "limit": nil, "window_n": 7.0, "k_eff": nil, "reason": nil},
+		{"lead": 4.0, "origin_time": "2026-03-02T12:00:00Z", "previous": "within", "state": "degraded", "metric": "me",
+			"value": 0.7, "limit": 0.5, "window_n": 30.0, "k_eff": 120.0, "reason": nil},
+		{"lead": 5.0, "origin_time": "2026-03-01T12:00:00Z", "previous": nil, "state": "insufficient_baseline", "metric": nil,
+			"value": nil, "limit": nil, "window_n": 0.0, "k_eff": nil, "reason": "K = 3 < 180"},
+	}
+	if len(ts) != len(want) {
+		t.Fatalf("%d transitions, want %d", len(ts), len(want))
+	}
+	for i, w := range want {
+		if !reflect.DeepEqual(ts[i], any(w)) {
+			t.Errorf("transition %d\n got %v\nwant %v", i, ts[i], w)
+		}
+	}
+	if doc["baseline_version"] != 3.0 || doc["series"] != "s" {
+		t.Errorf("history %v", doc)
+	}
+
+	var b bytes.Buffer
+	if err := WriteHistory(&b, "s", "m", r, nil); err != nil {
+		t.Fatal(err)
+	}
+	out := b.String()
+	t.Logf("\n%s", out)
+	lines := strings.Split(strings.TrimSuffix(out, "\n"), "\n")
+	if len(lines) != 6 || !strings.Contains(lines[0], "baseline v3") || !strings.HasPrefix(lines[1], "ORIGIN") ||
+		!strings.HasPrefix(lines[2], "2026-03-01T12:00Z  series  insufficient_data -> within") ||
+		!strings.Contains(lines[3], "4       within -> degraded") || !strings.Contains(lines[3], "0.7000") ||
+		!strings.HasSuffix(lines[4], "K = 3 < 180") || lines[5] != "3 transitions" {
+		t.Errorf("history table:\n%s", out)
+	}
+	b.Reset()
+	if err := WriteHistory(&b, "s", "m", &aftercastv1.GetDriftHistoryResponse{BaselineVersion: 1}, nil); err != nil || !strings.HasSuffix(b.String(), "no transitions\n") {
+		t.Errorf("empty history (%v):\n%s", err, b.String())
 	}
 }

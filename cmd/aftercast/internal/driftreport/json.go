@@ -4,7 +4,6 @@ import (
 	"cmp"
 	"encoding/json"
 	"fmt"
-	"github.com/aftercast/aftercast/cmd/aftercast/internal/report"
 	"io"
 	"math"
 	"slices"
@@ -12,6 +11,7 @@ import (
 	"time"
 
 	aftercastv1 "github.com/aftercast/aftercast/api/aftercast/v1"
+	"github.com/aftercast/aftercast/cmd/aftercast/internal/report"
 	"google.golang.org/protobuf/reflect/protoreflect"
 	"google.golang.org/protobuf/types/known/timestamppb"
 )
@@ -93,52 +93,91 @@ func WriteJSONLine(w io.Writer, v any) error {
 }
 
 // Status is the JSON shape of a drift status: of one lead, or (lead null)
-// of the series level, the pooled decision leads.
+// of the series level, the pooled decision leads. Onsets are data time:
+// onset_origin_time is the origin whose evaluation entered the current
+// state (null for the state production started in), origins_since_onset
+// how many evaluations were made after that one, and onset_metric,
+// onset_value and onset_limit what entered it. noticed_time is the only
+// wall-clock time: when the service announced the state.
 type Status struct {
-	Lead           *int32   `json:"lead"`
-	State          string   `json:"state"`
-	Breached       []string `json:"breached"` // metrics outside their alarm limit: the cause of "degraded"
-	StateSince     *string  `json:"state_since"`
-	LastOriginTime *string  `json:"last_origin_time"`
-	WindowN        int32    `json:"window_n"`
-	MAE            *float64 `json:"mae"`
-	MAEExpected    *float64 `json:"mae_expected"`
-	MAEBandLower   *float64 `json:"mae_band_lower"`
-	MAEBandUpper   *float64 `json:"mae_band_upper"`
-	MAEAlarmLimit  *float64 `json:"mae_alarm_limit"`
-	ME             *float64 `json:"me"`
-	MEExpected     *float64 `json:"me_expected"`
-	MEAlarmLower   *float64 `json:"me_alarm_lower"`
-	MEAlarmUpper   *float64 `json:"me_alarm_upper"`
-	KEff           *float64 `json:"k_eff"`
+	Lead              *int32   `json:"lead"`
+	State             string   `json:"state"`
+	Breached          []string `json:"breached"` // metrics outside their alarm limit: the cause of "degraded"
+	OnsetOriginTime   *string  `json:"onset_origin_time"`
+	OriginsSinceOnset int32    `json:"origins_since_onset"`
+	OnsetMetric       *string  `json:"onset_metric"`
+	OnsetValue        *float64 `json:"onset_value"`
+	OnsetLimit        *float64 `json:"onset_limit"`
+	NoticedTime       *string  `json:"noticed_time"`
+	Reason            *string  `json:"reason"` // why the baseline cannot judge, for "insufficient_baseline"
+	LastOriginTime    *string  `json:"last_origin_time"`
+	WindowN           int32    `json:"window_n"`
+	MAE               *float64 `json:"mae"`
+	MAEExpected       *float64 `json:"mae_expected"`
+	MAEBandLower      *float64 `json:"mae_band_lower"`
+	MAEBandUpper      *float64 `json:"mae_band_upper"`
+	MAEAlarmLimit     *float64 `json:"mae_alarm_limit"`
+	ME                *float64 `json:"me"`
+	MEExpected        *float64 `json:"me_expected"`
+	MEBandLower       *float64 `json:"me_band_lower"`
+	MEBandUpper       *float64 `json:"me_band_upper"`
+	MEAlarmLower      *float64 `json:"me_alarm_lower"`
+	MEAlarmUpper      *float64 `json:"me_alarm_upper"`
+	KEff              *float64 `json:"k_eff"`
 }
 
 // SeriesDrift is the JSON shape of the drift picture of one (series,
 // model). State is the series-level state, the one meant for paging;
 // "insufficient_data" when the server has not judged the series level.
+// onset_origin_time, origins_since_onset and noticed_time repeat the
+// series level's.
 type SeriesDrift struct {
-	Series          string   `json:"series"`
-	Model           string   `json:"model"`
-	State           string   `json:"state"`
-	StateSince      *string  `json:"state_since"`
-	BaselineVersion *int32   `json:"baseline_version"` // null without a baseline
-	DecisionLeads   []int32  `json:"decision_leads"`
-	SeriesLevel     *Status  `json:"series_level"`
-	Leads           []Status `json:"leads"` // every lead status, ascending by lead
+	Series            string   `json:"series"`
+	Model             string   `json:"model"`
+	State             string   `json:"state"`
+	OnsetOriginTime   *string  `json:"onset_origin_time"`
+	OriginsSinceOnset int32    `json:"origins_since_onset"`
+	NoticedTime       *string  `json:"noticed_time"`
+	BaselineVersion   *int32   `json:"baseline_version"` // null without a baseline
+	DecisionLeads     []int32  `json:"decision_leads"`
+	SeriesLevel       *Status  `json:"series_level"`
+	Leads             []Status `json:"leads"` // every lead status, ascending by lead
 }
 
-// States is the JSON document of `aftercast drift`.
+// Listing is every page of a ListDriftStates listing: the (series, model)
+// entries in order, the evaluations still pending (the most any page
+// reported: while above 0 some states may not include the newest data) and
+// the chance pages per week expected of everything selected.
+type Listing struct {
+	States                     []*aftercastv1.SeriesModelDrift
+	PendingEvaluations         int64
+	ExpectedChancePagesPerWeek float64
+}
+
+// Add takes in one page of a listing.
+func (l *Listing) Add(r *aftercastv1.ListDriftStatesResponse) {
+	l.States = append(l.States, r.GetStates()...)
+	l.PendingEvaluations = max(l.PendingEvaluations, r.GetPendingEvaluations())
+	l.ExpectedChancePagesPerWeek = r.GetExpectedChancePagesPerWeek()
+}
+
+// States is the JSON document of `aftercast drift` (and of `aftercast
+// demo --format json`).
 type States struct {
-	Series []SeriesDrift `json:"series"`
+	PendingEvaluations         int64         `json:"pending_evaluations"`
+	ExpectedChancePagesPerWeek *float64      `json:"expected_chance_pages_per_week"`
+	Series                     []SeriesDrift `json:"series"`
 }
 
 // ToStatus converts one drift status.
 func ToStatus(s *aftercastv1.DriftStatus) Status {
 	o := Status{Lead: s.Lead, State: StateName(s.GetState()), Breached: make([]string, 0, len(s.GetBreachedMetrics())),
-		StateSince: ts(s.GetStateSinceTime()), LastOriginTime: ts(s.GetLastOriginTime()), WindowN: s.GetWindowN(),
+		OnsetOriginTime: ts(s.GetOnsetOriginTime()), OriginsSinceOnset: s.GetOriginsSinceOnset(),
+		OnsetMetric: str(MetricName(s.GetOnsetMetric())), OnsetValue: opt(s.OnsetValue), OnsetLimit: opt(s.OnsetLimit),
+		NoticedTime: ts(s.GetNoticedTime()), Reason: str(s.GetReason()), LastOriginTime: ts(s.GetLastOriginTime()), WindowN: s.GetWindowN(),
 		MAE: opt(s.Mae), MAEExpected: opt(s.MaeExpected), MAEBandLower: opt(s.MaeBandLower), MAEBandUpper: opt(s.MaeBandUpper),
-		MAEAlarmLimit: opt(s.MaeAlarmLimit), ME: opt(s.Me), MEExpected: opt(s.MeExpected), MEAlarmLower: opt(s.MeAlarmLower),
-		MEAlarmUpper: opt(s.MeAlarmUpper), KEff: opt(s.KEff)}
+		MAEAlarmLimit: opt(s.MaeAlarmLimit), ME: opt(s.Me), MEExpected: opt(s.MeExpected), MEBandLower: opt(s.MeBandLower),
+		MEBandUpper: opt(s.MeBandUpper), MEAlarmLower: opt(s.MeAlarmLower), MEAlarmUpper: opt(s.MeAlarmUpper), KEff: opt(s.KEff)}
 	for _, m := range s.GetBreachedMetrics() {
 		o.Breached = append(o.Breached, cmp.Or(MetricName(m), "unspecified"))
 	}
@@ -169,7 +208,8 @@ func ToSeriesDrift(d *aftercastv1.SeriesModelDrift) SeriesDrift {
 	}
 	if s := d.GetSeriesStatus(); s != nil {
 		st := ToStatus(s)
-		o.SeriesLevel, o.StateSince = &st, st.StateSince
+		o.SeriesLevel = &st
+		o.OnsetOriginTime, o.OriginsSinceOnset, o.NoticedTime = st.OnsetOriginTime, st.OriginsSinceOnset, st.NoticedTime
 	}
 	for _, l := range leadStatuses(d) {
 		o.Leads = append(o.Leads, ToStatus(l))
@@ -177,18 +217,33 @@ func ToSeriesDrift(d *aftercastv1.SeriesModelDrift) SeriesDrift {
 	return o
 }
 
-// ToStates converts every (series, model) listed.
-func ToStates(ds []*aftercastv1.SeriesModelDrift) States {
-	o := States{Series: make([]SeriesDrift, 0, len(ds))}
-	for _, d := range ds {
+// ToStates converts a whole listing.
+func ToStates(l Listing) States {
+	o := States{PendingEvaluations: l.PendingEvaluations, ExpectedChancePagesPerWeek: num(l.ExpectedChancePagesPerWeek),
+		Series: make([]SeriesDrift, 0, len(l.States))}
+	for _, d := range l.States {
 		o.Series = append(o.Series, ToSeriesDrift(d))
 	}
 	return o
 }
 
-// Event is the JSON shape of a drift event. Lead is null for a change of
-// the series-level state; Metric is null when no metric value caused the
-// change, and Previous is null for the first evaluation.
+// CauseName is the name of a drift event's cause: "data", "revision" or
+// "baseline"; "" for DRIFT_CAUSE_UNSPECIFIED.
+func CauseName(c aftercastv1.DriftCause) string {
+	if c == aftercastv1.DriftCause_DRIFT_CAUSE_UNSPECIFIED {
+		return ""
+	}
+	return enumName(c, "DRIFT_CAUSE_")
+}
+
+// Event is the JSON shape of a drift event. Time is when the service
+// recorded it (wall clock); OriginTime is the onset, the origin at which
+// the new state was entered (data time), null for the state production
+// starts in. Cause says why it was announced: "data" (new origins judged),
+// "revision" (origins judged before, re-judged) or "baseline" (a new
+// baseline). Lead is null for a change of the series-level state; Metric
+// is null when no metric value caused the change, and Previous is null for
+// the first evaluation.
 type Event struct {
 	Token      string   `json:"token"` // resume token: continue after this event
 	Time       *string  `json:"time"`
@@ -196,6 +251,7 @@ type Event struct {
 	Model      string   `json:"model"`
 	Lead       *int32   `json:"lead"`
 	OriginTime *string  `json:"origin_time"`
+	Cause      *string  `json:"cause"`
 	Metric     *string  `json:"metric"`
 	Previous   *string  `json:"previous"`
 	State      string   `json:"state"`
@@ -215,8 +271,8 @@ type Events struct {
 // ToEvent converts one drift event.
 func ToEvent(e *aftercastv1.DriftEvent) Event {
 	o := Event{Token: e.GetToken(), Time: ts(e.GetEventTime()), Series: e.GetSeries(), Model: e.GetModel(), Lead: e.Lead,
-		OriginTime: ts(e.GetOriginTime()), Metric: str(MetricName(e.GetMetric())), State: StateName(e.GetNewState()),
-		Value: opt(e.Value), Limit: opt(e.Limit), BandLower: opt(e.BandLower), BandUpper: opt(e.BandUpper),
+		OriginTime: ts(e.GetOriginTime()), Cause: str(CauseName(e.GetCause())), Metric: str(MetricName(e.GetMetric())),
+		State: StateName(e.GetNewState()), Value: opt(e.Value), Limit: opt(e.Limit), BandLower: opt(e.BandLower), BandUpper: opt(e.BandUpper),
 		WindowN: e.GetWindowN(), KEff: opt(e.KEff)}
 	if p := e.GetPreviousState(); p != aftercastv1.DriftState_DRIFT_STATE_UNSPECIFIED {
 		o.Previous = str(StateName(p))
@@ -229,6 +285,54 @@ func ToEvents(es []*aftercastv1.DriftEvent) Events {
 	o := Events{Events: make([]Event, 0, len(es))}
 	for _, e := range es {
 		o.Events = append(o.Events, ToEvent(e))
+	}
+	return o
+}
+
+// Transition is the JSON shape of one transition of a replayed drift
+// history: at the evaluation of origin origin_time (data time), lead's
+// state (lead null: the series level) went from previous to state, on
+// metric's window value against limit (metric null: no metric caused it).
+type Transition struct {
+	Lead       *int32   `json:"lead"`
+	OriginTime *string  `json:"origin_time"`
+	Previous   *string  `json:"previous"`
+	State      string   `json:"state"`
+	Metric     *string  `json:"metric"`
+	Value      *float64 `json:"value"`
+	Limit      *float64 `json:"limit"`
+	WindowN    int32    `json:"window_n"`
+	KEff       *float64 `json:"k_eff"`
+	Reason     *string  `json:"reason"`
+}
+
+// History is the JSON document of `aftercast drift history`: every
+// transition of the replay, in origin order (the series level before the
+// leads within one origin).
+type History struct {
+	Series          string       `json:"series"`
+	Model           string       `json:"model"`
+	BaselineVersion int32        `json:"baseline_version"`
+	Transitions     []Transition `json:"transitions"`
+}
+
+// ToTransition converts one replayed transition.
+func ToTransition(t *aftercastv1.DriftTransition) Transition {
+	o := Transition{Lead: t.Lead, OriginTime: ts(t.GetOriginTime()), State: StateName(t.GetNewState()),
+		Metric: str(MetricName(t.GetMetric())), Value: opt(t.Value), Limit: opt(t.Limit), WindowN: t.GetWindowN(),
+		KEff: opt(t.KEff), Reason: str(t.GetReason())}
+	if p := t.GetPreviousState(); p != aftercastv1.DriftState_DRIFT_STATE_UNSPECIFIED {
+		o.Previous = str(StateName(p))
+	}
+	return o
+}
+
+// ToHistory converts the history of (series, model).
+func ToHistory(series, model string, r *aftercastv1.GetDriftHistoryResponse) History {
+	o := History{Series: series, Model: model, BaselineVersion: r.GetBaselineVersion(),
+		Transitions: make([]Transition, 0, len(r.GetTransitions()))}
+	for _, t := range r.GetTransitions() {
+		o.Transitions = append(o.Transitions, ToTransition(t))
 	}
 	return o
 }
@@ -300,8 +404,8 @@ func toMetrics(m *aftercastv1.AccuracyMetrics) *report.Metrics {
 }
 
 // UpperBand is the JSON shape of the band of MAE or RMSE: expectation,
-// 95% band and the one-sided 99% upper alarm limit for a window of
-// window_n origins.
+// 95% band and the one-sided upper alarm limit (p = 0.995) for a window
+// of window_n origins.
 type UpperBand struct {
 	Expected   *float64 `json:"expected"`
 	BandLower  *float64 `json:"band_lower"`
@@ -311,7 +415,7 @@ type UpperBand struct {
 }
 
 // TwoSidedBand is the JSON shape of the band of ME: expectation, 95% band
-// and the two-sided 99% alarm band.
+// and the two-sided alarm band (p = 0.001 and 0.999).
 type TwoSidedBand struct {
 	Expected   *float64 `json:"expected"`
 	BandLower  *float64 `json:"band_lower"`

@@ -2,7 +2,6 @@ package driftreport
 
 import (
 	"fmt"
-	"github.com/aftercast/aftercast/cmd/aftercast/internal/report"
 	"io"
 	"math"
 	"strconv"
@@ -11,6 +10,8 @@ import (
 	"time"
 
 	aftercastv1 "github.com/aftercast/aftercast/api/aftercast/v1"
+	"github.com/aftercast/aftercast/cmd/aftercast/internal/report"
+	"github.com/aftercast/aftercast/scoring"
 	"google.golang.org/protobuf/types/known/timestamppb"
 )
 
@@ -124,7 +125,7 @@ func WriteBaseline(w io.Writer, r *aftercastv1.GetBaselineResponse) error {
 		return err
 	}
 
-	fmt.Fprintf(w, "\nbands (95%%) and alarm limits (99%%) for a window of %d origins\n", r.GetWindowN())
+	fmt.Fprintf(w, "\nbands (95%%) and alarm limits (MAE, RMSE: p = 0.995; ME: p = 0.001, 0.999) for a window of %d origins\n", r.GetWindowN())
 	tw = newTable(w)
 	fmt.Fprintln(tw, "LEAD\tK\tK_EFF\tMAE BAND\tMAE LIMIT\tRMSE BAND\tRMSE LIMIT\tME BAND\tME ALARM\tUSABLE")
 	row := func(lead string, l *aftercastv1.BaselineLead) {
@@ -169,16 +170,146 @@ func excluded(x *float64, n int64) string {
 	return report.WithExcluded(*x, n)
 }
 
-// WriteStates writes the series-level state of every (series, model)
-// first, one line each, then per (series, model) only the leads that are
-// not within, with a count of those that are.
-func WriteStates(w io.Writer, ds []*aftercastv1.SeriesModelDrift) error {
+// Zones says in which time zone to show the origins of a series; nil
+// (the function or its result) means UTC.
+type Zones func(series string) *time.Location
+
+// in is the zone of series, UTC when unknown.
+func (z Zones) in(series string) *time.Location {
+	if z == nil {
+		return time.UTC
+	}
+	if loc := z(series); loc != nil {
+		return loc
+	}
+	return time.UTC
+}
+
+// origin is an origin (data time) for tables: in loc, to the minute when it
+// falls on one, such as 2026-10-14T05:00+02:00; "—" when unset.
+func origin(t *timestamppb.Timestamp, loc *time.Location) string {
+	if t == nil {
+		return "—"
+	}
+	lt := t.AsTime().In(loc)
+	if lt.Second() == 0 && lt.Nanosecond() == 0 {
+		return lt.Format("2006-01-02T15:04Z07:00")
+	}
+	return lt.Format(time.RFC3339Nano)
+}
+
+// relation is ">" when a value lies above the limit it crossed, else "<".
+func relation(value, limit *float64) string {
+	if value != nil && limit != nil && *value < *limit {
+		return "<"
+	}
+	return ">"
+}
+
+// onsetCause says what entered a state: the metric, its window value and
+// the limit it crossed, such as "on ME 0.610 > alarm bound 0.500"; "" when
+// no metric did.
+func onsetCause(s *aftercastv1.DriftStatus) string {
+	m := MetricName(s.GetOnsetMetric())
+	if m == "" {
+		return ""
+	}
+	limit := "limit"
+	switch s.GetState() {
+	case aftercastv1.DriftState_DRIFT_STATE_DEGRADED:
+		limit = "alarm limit"
+		if s.GetOnsetMetric() == aftercastv1.DriftMetric_DRIFT_METRIC_ME {
+			limit = "alarm bound"
+		}
+	case aftercastv1.DriftState_DRIFT_STATE_IMPROVED:
+		limit = "95% band's lower bound"
+	case aftercastv1.DriftState_DRIFT_STATE_WITHIN:
+		limit = "95% band bound" // re-entered: from degraded the upper side, from improved the lower
+	}
+	if s.OnsetValue == nil || s.OnsetLimit == nil {
+		return "on " + strings.ToUpper(m)
+	}
+	return fmt.Sprintf("on %s %s %s %s %s", strings.ToUpper(m), human(s.OnsetValue), relation(s.OnsetValue, s.OnsetLimit), limit, human(s.OnsetLimit))
+}
+
+// Onset says since when (data time) a status has been in its state, and
+// what entered it: "degraded since origin 2026-10-14T05:00+02:00, for 12
+// origins, on ME 0.610 > alarm bound 0.500". "For n origins" counts the
+// evaluations the state has lasted, the one at the onset included. The
+// state production started in has no onset.
+func Onset(s *aftercastv1.DriftStatus, loc *time.Location) string {
+	st := s.GetState()
+	if st == aftercastv1.DriftState_DRIFT_STATE_UNSPECIFIED {
+		st = aftercastv1.DriftState_DRIFT_STATE_INSUFFICIENT_DATA
+	}
+	out := StateName(st)
+	if s.GetOnsetOriginTime() == nil {
+		out += " since production began"
+	} else {
+		out += fmt.Sprintf(" since origin %s, %s", origin(s.GetOnsetOriginTime(), loc), ago(s.GetOriginsSinceOnset()))
+	}
+	if c := onsetCause(s); c != "" {
+		out += ", " + c
+	}
+	if r := s.GetReason(); r != "" {
+		out += ": " + r
+	}
+	return out
+}
+
+// lasted is how long ago a status entered its state, such as "12 origins
+// ago"; "—" without an onset.
+func lasted(s *aftercastv1.DriftStatus) string {
+	if s.GetOnsetOriginTime() == nil {
+		return "—"
+	}
+	return ago(s.GetOriginsSinceOnset())
+}
+
+// ago says how many origins were judged after the onset one.
+func ago(n int32) string {
+	if n == 0 {
+		return "at the newest origin judged"
+	}
+	return plural(int64(n), "origin") + " ago"
+}
+
+// Caution is what every drift report says once about alerts.
+const Caution = "An alert is a statistical signal, not a verdict: thresholds are for the team that owns the decision."
+
+// WritePending says, when evaluations are pending, that some states may
+// not include the newest data yet.
+func WritePending(w io.Writer, pending int64) {
+	if pending > 0 {
+		fmt.Fprintf(w, "note: %s pending at the service: some states may not include the newest data yet\n\n",
+			plural(pending, "evaluation"))
+	}
+}
+
+// WriteChance writes what a page means by chance: the pages the selection
+// is expected to raise per week if every (series, model) in it is healthy,
+// and the caution about alerts.
+func WriteChance(w io.Writer, pagesPerWeek float64) {
+	fmt.Fprintf(w, "\nexpected chance pages per week, if everything selected is healthy: %s\n", report.Human(pagesPerWeek))
+	fmt.Fprintf(w, "(a healthy series pages by chance about once per %d origins on average, docs/calibration.md)\n", scoring.ChanceRunLength)
+	fmt.Fprintln(w, Caution)
+}
+
+// WriteStates writes a listing: a note when evaluations are pending, the
+// series-level state of every (series, model) first, one line each, then
+// per (series, model) since when (data time) it has been in its state and
+// only the leads that are not within, with a count of those that are; at
+// the end the expected chance pages per week and the caution. Origins are
+// shown in the zone zones gives a series.
+func WriteStates(w io.Writer, l Listing, zones Zones) error {
+	WritePending(w, l.PendingEvaluations)
+	ds := l.States
 	if len(ds) == 0 {
 		fmt.Fprintln(w, "no drift states: no (series, model) selected has live pairs yet")
 		return nil
 	}
 	tw := newTable(w)
-	fmt.Fprintln(tw, "SERIES\tMODEL\tSTATE\tSINCE\tWINDOW\tMAE\tEXPECTED\tLIMIT\tME\tME ALARM\tBASELINE")
+	fmt.Fprintln(tw, "SERIES\tMODEL\tSTATE\tSINCE ORIGIN\tFOR\tWINDOW\tMAE\tEXPECTED\tALARM LIMIT\tME\tME ALARM BAND\tBASELINE")
 	for _, d := range ds {
 		s := d.GetSeriesStatus()
 		st := Status{}
@@ -193,14 +324,25 @@ func WriteStates(w io.Writer, ds []*aftercastv1.SeriesModelDrift) error {
 		if s != nil {
 			window = strconv.Itoa(int(s.GetWindowN()))
 		}
-		fmt.Fprintf(tw, "%s\t%s\t%s\t%s\t%s\t%s\t%s\t%s\t%s\t%s\t%s\n", d.GetSeries(), d.GetModel(), stateWithCause(seriesState(d), st.Breached),
-			when(s.GetStateSinceTime()), window, human(st.MAE), human(st.MAEExpected), human(st.MAEAlarmLimit),
+		fmt.Fprintf(tw, "%s\t%s\t%s\t%s\t%s\t%s\t%s\t%s\t%s\t%s\t%s\t%s\n", d.GetSeries(), d.GetModel(), stateWithCause(seriesState(d), st.Breached),
+			origin(s.GetOnsetOriginTime(), zones.in(d.GetSeries())), lasted(s), window, human(st.MAE), human(st.MAEExpected), human(st.MAEAlarmLimit),
 			human(st.ME), interval(st.MEAlarmLower, st.MEAlarmUpper), baseline)
 	}
 	if err := tw.Flush(); err != nil {
 		return err
 	}
 	for _, d := range ds {
+		loc := zones.in(d.GetSeries())
+		fmt.Fprintf(w, "\n%s / %s: ", d.GetSeries(), d.GetModel())
+		if s := d.GetSeriesStatus(); s != nil {
+			fmt.Fprint(w, Onset(s, loc))
+			if n := s.GetNoticedTime(); n != nil {
+				fmt.Fprintf(w, " (noticed %s)", when(n))
+			}
+		} else {
+			fmt.Fprint(w, "series level not judged yet")
+		}
+		fmt.Fprintln(w)
 		ls := leadStatuses(d)
 		var off []*aftercastv1.DriftStatus
 		for _, l := range ls {
@@ -208,28 +350,29 @@ func WriteStates(w io.Writer, ds []*aftercastv1.SeriesModelDrift) error {
 				off = append(off, l)
 			}
 		}
-		fmt.Fprintf(w, "\n%s / %s: ", d.GetSeries(), d.GetModel())
 		switch {
 		case len(ls) == 0:
-			fmt.Fprintln(w, "no lead evaluated yet")
+			fmt.Fprintln(w, "  no lead evaluated yet")
 			continue
 		case len(off) == 0:
-			fmt.Fprintf(w, "all %d leads within\n", len(ls))
+			fmt.Fprintf(w, "  all %d leads within\n", len(ls))
 			continue
 		}
-		fmt.Fprintf(w, "%d of %d leads within; the others:\n", len(ls)-len(off), len(ls))
+		fmt.Fprintf(w, "  %d of %d leads within; the others:\n", len(ls)-len(off), len(ls))
 		tw := newTable(w)
-		fmt.Fprintln(tw, "  LEAD\tSTATE\tSINCE\tWINDOW\tMAE\tEXPECTED\tBAND\tLIMIT\tME\tME ALARM")
+		fmt.Fprintln(tw, "  LEAD\tSTATE\tSINCE ORIGIN\tFOR\tWINDOW\tMAE\tEXPECTED\tBAND\tALARM LIMIT\tME\tME ALARM BAND\tREASON")
 		for _, l := range off {
 			st := ToStatus(l)
-			fmt.Fprintf(tw, "  %d\t%s\t%s\t%d\t%s\t%s\t%s\t%s\t%s\t%s\n", l.GetLead(), stateWithCause(l.GetState(), st.Breached),
-				when(l.GetStateSinceTime()), l.GetWindowN(), human(st.MAE), human(st.MAEExpected), interval(st.MAEBandLower, st.MAEBandUpper),
-				human(st.MAEAlarmLimit), human(st.ME), interval(st.MEAlarmLower, st.MEAlarmUpper))
+			fmt.Fprintf(tw, "  %d\t%s\t%s\t%s\t%d\t%s\t%s\t%s\t%s\t%s\t%s\t%s\n", l.GetLead(), stateWithCause(l.GetState(), st.Breached),
+				origin(l.GetOnsetOriginTime(), loc), lasted(l), l.GetWindowN(), human(st.MAE), human(st.MAEExpected),
+				interval(st.MAEBandLower, st.MAEBandUpper), human(st.MAEAlarmLimit), human(st.ME), interval(st.MEAlarmLower, st.MEAlarmUpper),
+				l.GetReason())
 		}
 		if err := tw.Flush(); err != nil {
 			return err
 		}
 	}
+	WriteChance(w, l.ExpectedChancePagesPerWeek)
 	return nil
 }
 
@@ -242,30 +385,48 @@ func stateWithCause(s aftercastv1.DriftState, breached []string) string {
 	return StateName(s) + " (" + strings.Join(breached, ",") + ")"
 }
 
-// eventHeader names the columns of eventFields.
-var eventHeader = []string{"TIME", "SERIES", "MODEL", "LEAD", "ORIGIN", "CHANGE", "METRIC", "VALUE", "LIMIT", "WINDOW"}
-
-// eventFields is an event as table cells.
-func eventFields(e *aftercastv1.DriftEvent) []string {
-	lead := "series"
-	if e.Lead != nil {
-		lead = strconv.Itoa(int(e.GetLead()))
-	}
+// change is a transition's states, such as "within -> degraded";
+// "(first)" stands for the state before the first evaluation.
+func change(from, to aftercastv1.DriftState) string {
 	prev := "(first)"
-	if e.GetPreviousState() != aftercastv1.DriftState_DRIFT_STATE_UNSPECIFIED {
-		prev = StateName(e.GetPreviousState())
+	if from != aftercastv1.DriftState_DRIFT_STATE_UNSPECIFIED {
+		prev = StateName(from)
 	}
-	o := ToEvent(e)
-	metric := "—"
-	if o.Metric != nil {
-		metric = *o.Metric
-	}
-	return []string{when(e.GetEventTime()), e.GetSeries(), e.GetModel(), lead, when(e.GetOriginTime()),
-		prev + " -> " + StateName(e.GetNewState()), metric, human(o.Value), human(o.Limit), strconv.Itoa(int(e.GetWindowN()))}
+	return prev + " -> " + StateName(to)
 }
 
-// WriteEvents writes events as an aligned table, oldest first.
-func WriteEvents(w io.Writer, es []*aftercastv1.DriftEvent) error {
+// leadName is a lead for tables: its number, or "series" for the series
+// level.
+func leadName(lead *int32) string {
+	if lead == nil {
+		return "series"
+	}
+	return strconv.Itoa(int(*lead))
+}
+
+func orDash(p *string) string {
+	if p == nil {
+		return "—"
+	}
+	return *p
+}
+
+// eventHeader names the columns of eventFields: RECORDED is when the
+// service recorded the event (wall clock), ONSET ORIGIN the origin at
+// which the new state was entered (data time).
+var eventHeader = []string{"RECORDED", "SERIES", "MODEL", "LEAD", "ONSET ORIGIN", "CHANGE", "CAUSE", "METRIC", "VALUE", "LIMIT", "WINDOW"}
+
+// eventFields is an event as table cells, its onset origin in loc.
+func eventFields(e *aftercastv1.DriftEvent, loc *time.Location) []string {
+	o := ToEvent(e)
+	return []string{when(e.GetEventTime()), e.GetSeries(), e.GetModel(), leadName(e.Lead), origin(e.GetOriginTime(), loc),
+		change(e.GetPreviousState(), e.GetNewState()), orDash(o.Cause), orDash(o.Metric), human(o.Value), human(o.Limit),
+		strconv.Itoa(int(e.GetWindowN()))}
+}
+
+// WriteEvents writes events as an aligned table, oldest first, onset
+// origins in the zone zones gives their series.
+func WriteEvents(w io.Writer, es []*aftercastv1.DriftEvent, zones Zones) error {
 	if len(es) == 0 {
 		fmt.Fprintln(w, "no drift events")
 		return nil
@@ -273,14 +434,14 @@ func WriteEvents(w io.Writer, es []*aftercastv1.DriftEvent) error {
 	tw := newTable(w)
 	fmt.Fprintln(tw, strings.Join(eventHeader, "\t"))
 	for _, e := range es {
-		fmt.Fprintln(tw, strings.Join(eventFields(e), "\t"))
+		fmt.Fprintln(tw, strings.Join(eventFields(e, zones.in(e.GetSeries())), "\t"))
 	}
 	return tw.Flush()
 }
 
 // eventWidths are the column widths of events written one at a time,
 // which cannot be aligned on what comes later.
-var eventWidths = []int{20, 16, 10, 6, 20, 30, 6, 10, 10, 6}
+var eventWidths = []int{20, 16, 10, 6, 22, 30, 8, 6, 10, 10, 6}
 
 func fixed(fields []string) string {
 	var b strings.Builder
@@ -301,8 +462,39 @@ func WriteEventHeader(w io.Writer) error {
 	return err
 }
 
-// WriteEventLine writes one event as a table line of fixed column widths.
-func WriteEventLine(w io.Writer, e *aftercastv1.DriftEvent) error {
-	_, err := fmt.Fprintln(w, fixed(eventFields(e)))
+// WriteEventLine writes one event as a table line of fixed column widths,
+// its onset origin in loc (nil: UTC).
+func WriteEventLine(w io.Writer, e *aftercastv1.DriftEvent, loc *time.Location) error {
+	if loc == nil {
+		loc = time.UTC
+	}
+	_, err := fmt.Fprintln(w, fixed(eventFields(e, loc)))
 	return err
+}
+
+// WriteHistory writes a replayed drift history as a table, origins in loc
+// (nil: UTC).
+func WriteHistory(w io.Writer, series, model string, r *aftercastv1.GetDriftHistoryResponse, loc *time.Location) error {
+	if loc == nil {
+		loc = time.UTC
+	}
+	fmt.Fprintf(w, "drift history of %s / %s: replayed over the stored data against baseline v%d; origins (data time) in %s\n",
+		series, model, r.GetBaselineVersion(), loc)
+	if len(r.GetTransitions()) == 0 {
+		fmt.Fprintln(w, "no transitions")
+		return nil
+	}
+	tw := newTable(w)
+	fmt.Fprintln(tw, "ORIGIN\tLEAD\tCHANGE\tMETRIC\tVALUE\tLIMIT\tWINDOW\tK_EFF\tREASON")
+	for _, t := range r.GetTransitions() {
+		o := ToTransition(t)
+		fmt.Fprintf(tw, "%s\t%s\t%s\t%s\t%s\t%s\t%d\t%s\t%s\n", origin(t.GetOriginTime(), loc), leadName(t.Lead),
+			change(t.GetPreviousState(), t.GetNewState()), orDash(o.Metric), human(o.Value), human(o.Limit), t.GetWindowN(),
+			human(o.KEff), t.GetReason())
+	}
+	if err := tw.Flush(); err != nil {
+		return err
+	}
+	fmt.Fprintf(w, "%s\n", plural(int64(len(r.GetTransitions())), "transition"))
+	return nil
 }
