@@ -128,7 +128,7 @@ func (sc *Scenario) WriteReport(w io.Writer, l driftreport.Listing, events []*af
 	fmt.Fprintf(w, "\nSeries level: the state that pages — per origin the mean over decision leads %d–%d, window of the last %d origins (MW)\n",
 		FirstDecisionLead, LastDecisionLead, 30)
 	tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', 0)
-	fmt.Fprintln(tw, "SUBSTATION\tSTATE\tSINCE\tORIGINS\tWINDOW\tMAE\tEXPECTED\tALARM LIMIT\tME\tME ALARM BAND\tINJECTED FAULT")
+	fmt.Fprintln(tw, "SUBSTATION\tSTATE\tSINCE\tORIGINS AGO\tWINDOW\tMAE\tEXPECTED\tALARM LIMIT\tME\tME ALARM BAND\tINJECTED FAULT")
 	var off []*aftercastv1.SeriesModelDrift
 	for _, d := range states {
 		s := d.GetSeriesStatus()
@@ -156,7 +156,7 @@ func (sc *Scenario) WriteReport(w io.Writer, l driftreport.Listing, events []*af
 		}
 		fmt.Fprintf(w, "\n%s, per lead (%s):\n", d.GetSeries(), strings.Join(parts, ", "))
 		tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', tabwriter.AlignRight)
-		fmt.Fprintln(tw, "LEAD\tWINDOW\tMAE\tEXPECTED\t95% BAND\tME\tME ALARM BAND\t STATE\t SINCE\tORIGINS\t")
+		fmt.Fprintln(tw, "LEAD\tWINDOW\tMAE\tEXPECTED\t95% BAND\tME\tME ALARM BAND\t STATE\t SINCE\tORIGINS AGO\t")
 		for _, l := range ls {
 			sinceCol, lasted := sc.onsetCols(l)
 			fmt.Fprintf(tw, "%d\t%d\t%s\t%s\t%s\t%s\t%s\t %s\t %s\t%s\t\n", l.GetLead(), l.GetWindowN(), num(l.Mae), num(l.MaeExpected),

@@ -119,9 +119,9 @@ func TestReportShowsOnsetsFromStates(t *testing.T) {
 	out := b.String()
 	t.Logf("\n%s", out)
 	for _, want := range []string{
-		"SUBSTATION  STATE          SINCE   ORIGINS  WINDOW  MAE  EXPECTED  ALARM LIMIT  ME  ME ALARM BAND  INJECTED FAULT\n",
-		"dh/aaskrog  within         day 9   82       30",
-		"dh/kalkbro  degraded (me)  day 46  45       30",
+		"SUBSTATION  STATE          SINCE   ORIGINS AGO  WINDOW  MAE  EXPECTED  ALARM LIMIT  ME  ME ALARM BAND  INJECTED FAULT\n",
+		"dh/aaskrog  within         day 9   82           30",
+		"dh/kalkbro  degraded (me)  day 46  45           30",
 		"day 46  2026-10-15 05:00  dh/kalkbro  within → degraded (me, on revision)  0.610 > 0.550, window 30",
 		"expected chance pages per week, if everything selected is healthy: 0.0400",
 		driftreport.Caution,
