@@ -107,26 +107,18 @@ func levelOf(lead int) driftLevel {
 	return levelLead
 }
 
-// errorMetric is the "metric" label of the expectation, band and alarm
-// families.
-type errorMetric int
+// errorMetrics is the closed set of "metric" label values of the
+// expectation, band and alarm families: scoring's metric names, the one
+// spelling the API, events and status page use too.
+var errorMetrics = [...]scoring.Metric{scoring.MetricMAE, scoring.MetricRMSE, scoring.MetricME}
 
-const (
-	metricMAE errorMetric = iota
-	metricRMSE
-	metricBias
-)
-
-func (m errorMetric) String() string {
-	switch m {
-	case metricMAE:
-		return "mae"
-	case metricRMSE:
-		return "rmse"
-	case metricBias:
-		return "bias"
+// metricLabel is m as a label value. It panics on a metric outside
+// errorMetrics: scoring grew a metric that the metrics do not know.
+func metricLabel(m scoring.Metric) string {
+	if !slices.Contains(errorMetrics[:], m) {
+		panic(fmt.Sprintf("unknown error metric %q", m))
 	}
-	panic(fmt.Sprintf("unknown error metric %d", int(m)))
+	return string(m)
 }
 
 // driftStates is the closed set of "state" label values, in exposition
@@ -174,8 +166,9 @@ func parseLeadSelection(s string) (leadSelection, error) {
 
 // metrics is the service's instrumentation: counters moved where ingestion
 // and drift evaluation happen, the gRPC server metrics, and collectors that
-// read the drift states, freshness and pool statistics from the store at
-// scrape time. All of it lives on the registry of Config.Registry.
+// read the drift states, freshness, evaluation backlog and pool statistics
+// from the store at scrape time. All of it lives on the registry of
+// Config.Registry.
 type metrics struct {
 	forecastPoints *prometheus.CounterVec
 	actuals        *prometheus.CounterVec
@@ -257,9 +250,9 @@ func (m *metrics) countStateChanges(evs []store.DriftEvent) {
 	}
 }
 
-// stateCollector exports the drift states and freshness stored in
-// PostgreSQL, read at scrape time: every replica on one database reports
-// the same values.
+// stateCollector exports the drift states, freshness and evaluation
+// backlog stored in PostgreSQL, read at scrape time: every replica on one
+// database reports the same values.
 type stateCollector struct {
 	store     *atomic.Pointer[store.Store]
 	log       *slog.Logger
@@ -268,15 +261,19 @@ type stateCollector struct {
 
 	dropped atomic.Uint64
 
-	leadMAE, leadRMSE, leadBias, leadPairs     *prometheus.Desc
+	leadMAE, leadRMSE, leadME, leadPairs       *prometheus.Desc
 	leadExpected, leadBandLower, leadBandUpper *prometheus.Desc
 	leadAlarmUpper, leadAlarmLower, leadState  *prometheus.Desc
+	leadOnset                                  *prometheus.Desc
 
-	seriesState, seriesMAE, seriesBias, seriesPairs  *prometheus.Desc
+	seriesState, seriesMAE, seriesME, seriesPairs    *prometheus.Desc
 	seriesExpected, seriesBandLower, seriesBandUpper *prometheus.Desc
 	seriesAlarmUpper, seriesAlarmLower               *prometheus.Desc
+	seriesOnset, seriesSinceOnset                    *prometheus.Desc
 
 	lastOrigin, originInterval, lastActual, lastActualReceived *prometheus.Desc
+
+	marksPending, marksOldestAge *prometheus.Desc
 
 	droppedDesc *prometheus.Desc
 }
@@ -290,29 +287,35 @@ func newStateCollector(st *atomic.Pointer[store.Store], log *slog.Logger, leads 
 	return &stateCollector{store: st, log: log, leads: leads, maxSeries: maxSeries,
 		leadMAE:        d("aftercast_lead_window_mae", "Mean absolute error of the lead over the live window (series unit).", lead, nil),
 		leadRMSE:       d("aftercast_lead_window_rmse", "Root mean squared error of the lead over the live window (series unit).", lead, nil),
-		leadBias:       d("aftercast_lead_window_bias", "Mean error (actual − forecast) of the lead over the live window (series unit).", lead, nil),
+		leadME:         d("aftercast_lead_window_me", "Mean error (actual − forecast) of the lead over the live window (series unit).", lead, nil),
 		leadPairs:      d("aftercast_lead_window_pairs", "Scored pairs in the lead's live window.", lead, nil),
-		leadExpected:   d("aftercast_lead_expected", "What the backtest baseline expects of the lead's window, by metric (mae, rmse, bias).", leadMetric, nil),
-		leadBandLower:  d("aftercast_lead_band_lower", "Lower end of the lead's 95% band for a window of this size, by metric (mae, rmse, bias).", leadMetric, nil),
-		leadBandUpper:  d("aftercast_lead_band_upper", "Upper end of the lead's 95% band for a window of this size, by metric (mae, rmse, bias).", leadMetric, nil),
-		leadAlarmUpper: d("aftercast_lead_alarm_upper", "Lead's 99% alarm limit: one-sided for mae and rmse, the upper end of the two-sided band for bias.", leadMetric, nil),
-		leadAlarmLower: d("aftercast_lead_alarm_lower", "Lower end of the lead's two-sided 99% bias band (metric=bias).", leadMetric, nil),
+		leadExpected:   d("aftercast_lead_expected", "What the backtest baseline expects of the lead's window, by metric (mae, rmse, me).", leadMetric, nil),
+		leadBandLower:  d("aftercast_lead_band_lower", "Lower end (p = 0.025) of the lead's central 95% band for a window of this size, by metric (mae, rmse, me).", leadMetric, nil),
+		leadBandUpper:  d("aftercast_lead_band_upper", "Upper end (p = 0.975) of the lead's central 95% band for a window of this size, by metric (mae, rmse, me).", leadMetric, nil),
+		leadAlarmUpper: d("aftercast_lead_alarm_upper", "Lead's alarm limit for a window of this size: the one-sided p = 0.995 bound for mae and rmse, the upper end (p = 0.999) of the two-sided alarm band for me.", leadMetric, nil),
+		leadAlarmLower: d("aftercast_lead_alarm_lower", "Lower end (p = 0.001) of the lead's two-sided me alarm band (metric=me).", leadMetric, nil),
 		leadState:      d("aftercast_lead_drift_state", "Drift state of the lead: 1 for the current state, 0 for the others.", []string{"series", "model", "lead", "state"}, nil),
+		leadOnset:      d("aftercast_lead_drift_onset_origin_timestamp_seconds", "Origin (data time) at which the lead entered its current drift state; absent for the state its production period started in.", lead, nil),
 
 		seriesState:      d("aftercast_series_drift_state", "Drift state of the series over its pooled decision leads (the paging state): 1 for the current state, 0 for the others.", []string{"series", "model", "state"}, nil),
 		seriesMAE:        d("aftercast_series_window_mae", "Mean over the live window of the per-origin mean |error| of the decision leads (series unit).", pair, nil),
-		seriesBias:       d("aftercast_series_window_bias", "Mean over the live window of the per-origin mean error (actual − forecast) of the decision leads (series unit).", pair, nil),
+		seriesME:         d("aftercast_series_window_me", "Mean over the live window of the per-origin mean error (actual − forecast) of the decision leads (series unit).", pair, nil),
 		seriesPairs:      d("aftercast_series_window_pairs", "Origins in the series' pooled live window.", pair, nil),
-		seriesExpected:   d("aftercast_series_expected", "What the backtest baseline expects of the pooled window, by metric (mae, bias).", pairMetric, nil),
-		seriesBandLower:  d("aftercast_series_band_lower", "Lower end of the pooled 95% band for a window of this size, by metric (mae, bias).", pairMetric, nil),
-		seriesBandUpper:  d("aftercast_series_band_upper", "Upper end of the pooled 95% band for a window of this size, by metric (mae, bias).", pairMetric, nil),
-		seriesAlarmUpper: d("aftercast_series_alarm_upper", "Pooled 99% alarm limit: one-sided for mae, the upper end of the two-sided band for bias.", pairMetric, nil),
-		seriesAlarmLower: d("aftercast_series_alarm_lower", "Lower end of the pooled two-sided 99% bias band (metric=bias).", pairMetric, nil),
+		seriesExpected:   d("aftercast_series_expected", "What the backtest baseline expects of the pooled window, by metric (mae, me).", pairMetric, nil),
+		seriesBandLower:  d("aftercast_series_band_lower", "Lower end (p = 0.025) of the pooled central 95% band for a window of this size, by metric (mae, me).", pairMetric, nil),
+		seriesBandUpper:  d("aftercast_series_band_upper", "Upper end (p = 0.975) of the pooled central 95% band for a window of this size, by metric (mae, me).", pairMetric, nil),
+		seriesAlarmUpper: d("aftercast_series_alarm_upper", "Pooled alarm limit for a window of this size: the one-sided p = 0.995 bound for mae, the upper end (p = 0.999) of the two-sided alarm band for me.", pairMetric, nil),
+		seriesAlarmLower: d("aftercast_series_alarm_lower", "Lower end (p = 0.001) of the pooled two-sided me alarm band (metric=me).", pairMetric, nil),
+		seriesOnset:      d("aftercast_series_drift_onset_origin_timestamp_seconds", "Origin (data time) at which the series entered its current drift state; absent for the state its production period started in.", pair, nil),
+		seriesSinceOnset: d("aftercast_series_drift_origins_since_onset", "Origins judged after the one at which the series entered its current drift state (0: the latest origin entered it); absent for the state its production period started in.", pair, nil),
 
 		lastOrigin:         d("aftercast_series_last_origin_timestamp_seconds", "Origin time of the newest forecast received for the series and model.", pair, nil),
 		originInterval:     d("aftercast_series_origin_interval_seconds", "Usual gap between origins: the step times the baseline's origin cadence (the step without a baseline).", pair, nil),
 		lastActual:         d("aftercast_series_last_actual_timestamp_seconds", "Time of the newest actual received for the series.", []string{"series"}, nil),
 		lastActualReceived: d("aftercast_series_last_actual_received_timestamp_seconds", "When the newest actual of the series was received.", []string{"series"}, nil),
+
+		marksPending:   d("aftercast_drift_marks_pending", "Drift marks waiting for evaluation: stored and acknowledged writes whose drift states are not judged yet (all replicas).", nil, nil),
+		marksOldestAge: d("aftercast_drift_marks_oldest_age_seconds", "Age of the oldest drift mark waiting for evaluation; 0 when none waits.", nil, nil),
 
 		droppedDesc: d("aftercast_metrics_series_dropped_total", "(series, model) pairs left out of the per-lead families by the --metrics-max-series cap, summed over scrapes.", nil, nil),
 	}
@@ -320,18 +323,19 @@ func newStateCollector(st *atomic.Pointer[store.Store], log *slog.Logger, leads 
 
 // Describe sends every family the collector may emit.
 func (c *stateCollector) Describe(ch chan<- *prometheus.Desc) {
-	for _, d := range []*prometheus.Desc{c.leadMAE, c.leadRMSE, c.leadBias, c.leadPairs, c.leadExpected, c.leadBandLower,
-		c.leadBandUpper, c.leadAlarmUpper, c.leadAlarmLower, c.leadState, c.seriesState, c.seriesMAE, c.seriesBias,
+	for _, d := range []*prometheus.Desc{c.leadMAE, c.leadRMSE, c.leadME, c.leadPairs, c.leadExpected, c.leadBandLower,
+		c.leadBandUpper, c.leadAlarmUpper, c.leadAlarmLower, c.leadState, c.leadOnset, c.seriesState, c.seriesMAE, c.seriesME,
 		c.seriesPairs, c.seriesExpected, c.seriesBandLower, c.seriesBandUpper, c.seriesAlarmUpper, c.seriesAlarmLower,
-		c.lastOrigin, c.originInterval, c.lastActual, c.lastActualReceived, c.droppedDesc} {
+		c.seriesOnset, c.seriesSinceOnset, c.lastOrigin, c.originInterval, c.lastActual, c.lastActualReceived,
+		c.marksPending, c.marksOldestAge, c.droppedDesc} {
 		ch <- d
 	}
 }
 
-// Collect reads the drift states and freshness from the store. A failed
-// read is reported to the registry as an invalid metric, which fails the
-// scrape (the target shows up = 0) rather than silently dropping the
-// alerting families.
+// Collect reads the drift states, freshness and evaluation backlog from
+// the store. A failed read is reported to the registry as an invalid
+// metric, which fails the scrape (the target shows up = 0) rather than
+// silently dropping the alerting families.
 func (c *stateCollector) Collect(ch chan<- prometheus.Metric) {
 	if st := c.store.Load(); st != nil {
 		ctx, cancel := context.WithTimeout(context.Background(), scrapeTimeout)
@@ -342,6 +346,9 @@ func (c *stateCollector) Collect(ch chan<- prometheus.Metric) {
 		if err := c.collectFreshness(ctx, st, ch); err != nil {
 			ch <- prometheus.NewInvalidMetric(c.lastOrigin, err)
 		}
+		if err := c.collectBacklog(ctx, st, ch); err != nil {
+			ch <- prometheus.NewInvalidMetric(c.marksPending, err)
+		}
 	}
 	ch <- prometheus.MustNewConstMetric(c.droppedDesc, prometheus.CounterValue, float64(c.dropped.Load()))
 }
@@ -350,6 +357,14 @@ func (c *stateCollector) Collect(ch chan<- prometheus.Metric) {
 func gauge(ch chan<- prometheus.Metric, d *prometheus.Desc, v *float64, labels ...string) {
 	if v != nil {
 		ch <- prometheus.MustNewConstMetric(d, prometheus.GaugeValue, *v, labels...)
+	}
+}
+
+// onsetGauge sends the onset origin as Unix seconds unless it is zero (the
+// state the production period started in has no onset).
+func onsetGauge(ch chan<- prometheus.Metric, d *prometheus.Desc, onset time.Time, labels ...string) {
+	if !onset.IsZero() {
+		ch <- prometheus.MustNewConstMetric(d, prometheus.GaugeValue, unixSeconds(onset), labels...)
 	}
 }
 
@@ -437,42 +452,60 @@ func (c *stateCollector) selectLeads(ctx context.Context, st *store.Store, run [
 func (c *stateCollector) emitSeries(ch chan<- prometheus.Metric, ss store.DriftStatus) {
 	sn, s, m := ss.Snapshot, ss.Series, ss.Model
 	c.stateSet(ch, c.seriesState, ss.State, s, m)
+	onsetGauge(ch, c.seriesOnset, ss.Onset, s, m)
+	if !ss.Onset.IsZero() {
+		ch <- prometheus.MustNewConstMetric(c.seriesSinceOnset, prometheus.GaugeValue, float64(sn.OriginsSinceOnset), s, m)
+	}
 	gauge(ch, c.seriesMAE, sn.MAE, s, m)
-	gauge(ch, c.seriesBias, sn.ME, s, m)
+	gauge(ch, c.seriesME, sn.ME, s, m)
 	ch <- prometheus.MustNewConstMetric(c.seriesPairs, prometheus.GaugeValue, float64(sn.WindowN), s, m)
-	mae, bias := metricMAE.String(), metricBias.String()
+	mae, me := metricLabel(scoring.MetricMAE), metricLabel(scoring.MetricME)
 	gauge(ch, c.seriesExpected, sn.MAEExpected, s, m, mae)
-	gauge(ch, c.seriesExpected, sn.MEExpected, s, m, bias)
+	gauge(ch, c.seriesExpected, sn.MEExpected, s, m, me)
 	gauge(ch, c.seriesBandLower, sn.MAEBandLower, s, m, mae)
-	gauge(ch, c.seriesBandLower, sn.MEBandLower, s, m, bias)
+	gauge(ch, c.seriesBandLower, sn.MEBandLower, s, m, me)
 	gauge(ch, c.seriesBandUpper, sn.MAEBandUpper, s, m, mae)
-	gauge(ch, c.seriesBandUpper, sn.MEBandUpper, s, m, bias)
+	gauge(ch, c.seriesBandUpper, sn.MEBandUpper, s, m, me)
 	gauge(ch, c.seriesAlarmUpper, sn.MAEAlarmLimit, s, m, mae)
-	gauge(ch, c.seriesAlarmUpper, sn.MEAlarmUpper, s, m, bias)
-	gauge(ch, c.seriesAlarmLower, sn.MEAlarmLower, s, m, bias)
+	gauge(ch, c.seriesAlarmUpper, sn.MEAlarmUpper, s, m, me)
+	gauge(ch, c.seriesAlarmLower, sn.MEAlarmLower, s, m, me)
 }
 
 func (c *stateCollector) emitLead(ch chan<- prometheus.Metric, ls store.DriftStatus) {
 	sn, s, m, h := ls.Snapshot, ls.Series, ls.Model, strconv.Itoa(ls.Lead)
 	c.stateSet(ch, c.leadState, ls.State, s, m, h)
+	onsetGauge(ch, c.leadOnset, ls.Onset, s, m, h)
 	gauge(ch, c.leadMAE, sn.MAE, s, m, h)
 	gauge(ch, c.leadRMSE, sn.RMSE, s, m, h)
-	gauge(ch, c.leadBias, sn.ME, s, m, h)
+	gauge(ch, c.leadME, sn.ME, s, m, h)
 	ch <- prometheus.MustNewConstMetric(c.leadPairs, prometheus.GaugeValue, float64(sn.WindowN), s, m, h)
-	mae, rmse, bias := metricMAE.String(), metricRMSE.String(), metricBias.String()
+	mae, rmse, me := metricLabel(scoring.MetricMAE), metricLabel(scoring.MetricRMSE), metricLabel(scoring.MetricME)
 	gauge(ch, c.leadExpected, sn.MAEExpected, s, m, h, mae)
 	gauge(ch, c.leadExpected, sn.RMSEExpected, s, m, h, rmse)
-	gauge(ch, c.leadExpected, sn.MEExpected, s, m, h, bias)
+	gauge(ch, c.leadExpected, sn.MEExpected, s, m, h, me)
 	gauge(ch, c.leadBandLower, sn.MAEBandLower, s, m, h, mae)
 	gauge(ch, c.leadBandLower, sn.RMSEBandLower, s, m, h, rmse)
-	gauge(ch, c.leadBandLower, sn.MEBandLower, s, m, h, bias)
+	gauge(ch, c.leadBandLower, sn.MEBandLower, s, m, h, me)
 	gauge(ch, c.leadBandUpper, sn.MAEBandUpper, s, m, h, mae)
 	gauge(ch, c.leadBandUpper, sn.RMSEBandUpper, s, m, h, rmse)
-	gauge(ch, c.leadBandUpper, sn.MEBandUpper, s, m, h, bias)
+	gauge(ch, c.leadBandUpper, sn.MEBandUpper, s, m, h, me)
 	gauge(ch, c.leadAlarmUpper, sn.MAEAlarmLimit, s, m, h, mae)
 	gauge(ch, c.leadAlarmUpper, sn.RMSEAlarmLimit, s, m, h, rmse)
-	gauge(ch, c.leadAlarmUpper, sn.MEAlarmUpper, s, m, h, bias)
-	gauge(ch, c.leadAlarmLower, sn.MEAlarmLower, s, m, h, bias)
+	gauge(ch, c.leadAlarmUpper, sn.MEAlarmUpper, s, m, h, me)
+	gauge(ch, c.leadAlarmLower, sn.MEAlarmLower, s, m, h, me)
+}
+
+// collectBacklog exports the drift marks waiting for the evaluators (of
+// every replica): how many, and how long the oldest has waited by the
+// database's clock, which stamped them.
+func (c *stateCollector) collectBacklog(ctx context.Context, st *store.Store, ch chan<- prometheus.Metric) error {
+	pending, age, err := st.DriftBacklog(ctx)
+	if err != nil {
+		return fmt.Errorf("reading drift backlog for metrics: %w", err)
+	}
+	ch <- prometheus.MustNewConstMetric(c.marksPending, prometheus.GaugeValue, float64(pending))
+	ch <- prometheus.MustNewConstMetric(c.marksOldestAge, prometheus.GaugeValue, age.Seconds())
+	return nil
 }
 
 func (c *stateCollector) collectFreshness(ctx context.Context, st *store.Store, ch chan<- prometheus.Metric) error {

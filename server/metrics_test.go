@@ -14,6 +14,7 @@ import (
 	"testing"
 	"time"
 
+	"github.com/jackc/pgx/v5/pgxpool"
 	"github.com/prometheus/client_golang/prometheus"
 	"github.com/prometheus/client_golang/prometheus/collectors"
 	"github.com/prometheus/client_golang/prometheus/testutil"
@@ -295,6 +296,42 @@ func perLeadSet(t *testing.T, g prometheus.Gatherer) map[string][]int {
 	return out
 }
 
+// waitCounted waits until aftercast_drift_state_changes_total sums to at
+// least n. An evaluation counts its events right after its commit, so a
+// drain may see the marks gone a moment before the count moves.
+func waitCounted(t *testing.T, g prometheus.Gatherer, n int) {
+	t.Helper()
+	deadline := time.Now().Add(10 * time.Second)
+	for {
+		var sum float64
+		for _, v := range family(t, g, "aftercast_drift_state_changes_total") {
+			sum += v
+		}
+		if sum >= float64(n) {
+			return
+		}
+		if time.Now().After(deadline) {
+			t.Fatalf("aftercast_drift_state_changes_total sums to %v after 10s, want %d (the stored events)", sum, n)
+		}
+		time.Sleep(10 * time.Millisecond)
+	}
+}
+
+// labelValues returns the sorted distinct values of label in a family.
+func labelValues(t *testing.T, g prometheus.Gatherer, name, label string) []string {
+	t.Helper()
+	var out []string
+	for ls := range family(t, g, name) {
+		for _, kv := range strings.Split(ls, ",") {
+			if k, v, _ := strings.Cut(kv, "="); k == label && !slices.Contains(out, v) {
+				out = append(out, v)
+			}
+		}
+	}
+	slices.Sort(out)
+	return out
+}
+
 func TestMetrics(t *testing.T) {
 	t.Parallel()
 	url := storetest.URL(t)
@@ -310,6 +347,23 @@ func TestMetrics(t *testing.T) {
 		t.Fatalf("state change counter before pushes: %d label sets, want 2 levels × 5 states", len(got))
 	}
 	tot := populate(t, ctx, srv)
+	// Drift is judged off the request path: settle it, and wait until the
+	// evaluation that committed last has been counted.
+	if err := srv.Drift().Drain(ctx); err != nil {
+		t.Fatal(err)
+	}
+	evs, err := srv.Store().DriftEvents(ctx, store.EventFilter{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(evs) == 0 {
+		t.Fatal("no drift events")
+	}
+	waitCounted(t, reg, len(evs))
+	sts, err := srv.Store().DriftStates(ctx, "", "")
+	if err != nil {
+		t.Fatal(err)
+	}
 
 	t.Run("lint", func(t *testing.T) {
 		t.Parallel()
@@ -337,13 +391,6 @@ aftercast_pairs_scored_total %d
 			t.Error(err)
 		}
 		// State changes: as many as the stored drift events, by level and state.
-		evs, err := srv.Store().DriftEvents(ctx, store.EventFilter{})
-		if err != nil {
-			t.Fatal(err)
-		}
-		if len(evs) == 0 {
-			t.Fatal("no drift events")
-		}
 		want := map[string]float64{}
 		for _, ev := range evs {
 			level := "lead"
@@ -385,7 +432,7 @@ aftercast_pairs_scored_total %d
 			}
 		}
 		for name, n := range map[string]int{
-			"aftercast_series_window_mae": 3, "aftercast_series_window_bias": 3, "aftercast_series_window_pairs": 3,
+			"aftercast_series_window_mae": 3, "aftercast_series_window_me": 3, "aftercast_series_window_pairs": 3,
 			"aftercast_series_expected": 6, "aftercast_series_band_lower": 6, "aftercast_series_band_upper": 6,
 			"aftercast_series_alarm_upper": 6, "aftercast_series_alarm_lower": 3,
 			"aftercast_series_last_origin_timestamp_seconds": 3, "aftercast_series_origin_interval_seconds": 3,
@@ -435,7 +482,7 @@ aftercast_pairs_scored_total %d
 			leads += len(decisionOf(key))
 		}
 		for name, n := range map[string]int{
-			"aftercast_lead_window_mae": leads, "aftercast_lead_window_rmse": leads, "aftercast_lead_window_bias": leads,
+			"aftercast_lead_window_mae": leads, "aftercast_lead_window_rmse": leads, "aftercast_lead_window_me": leads,
 			"aftercast_lead_window_pairs": leads, "aftercast_lead_expected": 3 * leads, "aftercast_lead_band_lower": 3 * leads,
 			"aftercast_lead_band_upper": 3 * leads, "aftercast_lead_alarm_upper": 3 * leads, "aftercast_lead_alarm_lower": leads,
 			"aftercast_lead_drift_state": 5 * leads,
@@ -449,6 +496,128 @@ aftercast_pairs_scored_total %d
 # TYPE aftercast_metrics_series_dropped_total counter
 aftercast_metrics_series_dropped_total 0
 `), "aftercast_metrics_series_dropped_total"); err != nil {
+			t.Error(err)
+		}
+	})
+
+	t.Run("metric labels and values", func(t *testing.T) {
+		t.Parallel()
+		// Mean error is "me" everywhere, as scoring spells it.
+		for name, want := range map[string][]string{
+			"aftercast_lead_expected": {"mae", "me", "rmse"}, "aftercast_lead_band_lower": {"mae", "me", "rmse"},
+			"aftercast_lead_band_upper": {"mae", "me", "rmse"}, "aftercast_lead_alarm_upper": {"mae", "me", "rmse"},
+			"aftercast_lead_alarm_lower": {"me"}, "aftercast_series_expected": {"mae", "me"}, "aftercast_series_band_lower": {"mae", "me"},
+			"aftercast_series_band_upper": {"mae", "me"}, "aftercast_series_alarm_upper": {"mae", "me"}, "aftercast_series_alarm_lower": {"me"},
+		} {
+			if got := labelValues(t, reg, name, "metric"); !slices.Equal(got, want) {
+				t.Errorf("%s: metric label values %v, want %v", name, got, want)
+			}
+		}
+		mfs, err := reg.Gather()
+		if err != nil {
+			t.Fatal(err)
+		}
+		for _, mf := range mfs {
+			if strings.Contains(mf.GetName(), "bias") {
+				t.Errorf("family %s: mean error is spelled me", mf.GetName())
+			}
+			for _, m := range mf.GetMetric() {
+				for _, l := range m.GetLabel() {
+					if l.GetValue() == "bias" {
+						t.Errorf("%s has label %s=bias: mean error is spelled me", mf.GetName(), l.GetName())
+					}
+				}
+			}
+		}
+		// The pooled families carry the stored snapshot, each value under
+		// its own name.
+		for _, st := range sts {
+			if st.Lead != 0 {
+				continue
+			}
+			key := fmt.Sprintf("model=%s,series=%s", st.Model, st.Series)
+			sn := st.Snapshot
+			for _, c := range []struct {
+				name, metric string
+				want         *float64
+			}{
+				{"aftercast_series_window_mae", "", sn.MAE}, {"aftercast_series_window_me", "", sn.ME},
+				{"aftercast_series_expected", "me", sn.MEExpected}, {"aftercast_series_alarm_upper", "mae", sn.MAEAlarmLimit},
+				{"aftercast_series_alarm_upper", "me", sn.MEAlarmUpper}, {"aftercast_series_alarm_lower", "me", sn.MEAlarmLower},
+				{"aftercast_series_band_lower", "me", sn.MEBandLower}, {"aftercast_series_band_upper", "mae", sn.MAEBandUpper},
+			} {
+				k := key
+				if c.metric != "" {
+					k = "metric=" + c.metric + "," + key
+				}
+				got, ok := family(t, reg, c.name)[k]
+				if c.want == nil || !ok || got != *c.want {
+					t.Errorf("%s{%s} = %v (present %v), want the stored %v", c.name, k, got, ok, c.want)
+				}
+			}
+		}
+	})
+
+	t.Run("onsets in data time", func(t *testing.T) {
+		t.Parallel()
+		seriesOnset := family(t, reg, "aftercast_series_drift_onset_origin_timestamp_seconds")
+		since := family(t, reg, "aftercast_series_drift_origins_since_onset")
+		leadOnset := family(t, reg, "aftercast_lead_drift_onset_origin_timestamp_seconds")
+		exported := perLeadSet(t, reg)
+		first, last := mOrigin(mBacktest), mOrigin(mBacktest+mProd-1)
+		var nSeries, nLead int
+		for _, st := range sts {
+			key := fmt.Sprintf("model=%s,series=%s", st.Model, st.Series)
+			fam, k := seriesOnset, key
+			if st.Lead > 0 {
+				if !slices.Contains(exported[st.Series], st.Lead) {
+					continue
+				}
+				fam, k = leadOnset, fmt.Sprintf("lead=%d,%s", st.Lead, key)
+			}
+			got, ok := fam[k]
+			if st.Onset.IsZero() {
+				if ok {
+					t.Errorf("{%s}: onset gauge %v for a state without onset", k, got)
+				}
+				continue
+			}
+			if st.Lead > 0 {
+				nLead++
+			} else {
+				nSeries++
+			}
+			// The origin the state was entered at, not when it was noticed.
+			if !ok || got != float64(st.Onset.Unix()) {
+				t.Errorf("{%s}: onset gauge %v (present %v), want the stored onset origin %v = %d", k, got, ok, st.Onset, st.Onset.Unix())
+			}
+			if st.Onset.Before(first) || st.Onset.After(last) {
+				t.Errorf("{%s}: stored onset %v is not a production origin (%v … %v)", k, st.Onset, first, last)
+			}
+			if st.Lead == 0 {
+				// Daily origins, every one scored for every decision lead:
+				// the origins judged after the onset are the days from it to
+				// the last origin.
+				want := int(st.LastOrigin.Sub(st.Onset) / (24 * time.Hour))
+				if since[key] != float64(want) || st.Snapshot.OriginsSinceOnset != want {
+					t.Errorf("{%s}: origins since onset %v, stored %d, want %d (onset %v, last origin %v)",
+						key, since[key], st.Snapshot.OriginsSinceOnset, want, st.Onset, st.LastOrigin)
+				}
+			}
+		}
+		if nSeries != len(mSeries) {
+			t.Fatalf("%d series states with an onset, want all %d (every series left insufficient_data)", nSeries, len(mSeries))
+		}
+		if len(seriesOnset) != nSeries || len(since) != nSeries || len(leadOnset) != nLead {
+			t.Errorf("onset gauges: %d series, %d since-onset, %d leads; want %d, %d, %d",
+				len(seriesOnset), len(since), len(leadOnset), nSeries, nSeries, nLead)
+		}
+	})
+
+	t.Run("evaluation backlog drained", func(t *testing.T) {
+		t.Parallel()
+		if err := testutil.GatherAndCompare(reg, strings.NewReader(backlogText(0, 0)),
+			"aftercast_drift_marks_pending", "aftercast_drift_marks_oldest_age_seconds"); err != nil {
 			t.Error(err)
 		}
 	})
@@ -483,7 +652,7 @@ aftercast_metrics_series_dropped_total 0
 		if err != nil || resp.StatusCode != http.StatusOK {
 			t.Fatalf("GET /metrics: %d %v", resp.StatusCode, err)
 		}
-		for _, want := range []string{`aftercast_series_drift_state{model="gbm",series="fleet/a",state="within"}`,
+		for _, want := range []string{`aftercast_series_drift_state{model="gbm",series="fleet/a",state="within"}`, "\naftercast_drift_marks_pending 0\n",
 			"# HELP aftercast_lead_window_mae ", "# TYPE grpc_server_handling_seconds histogram", "aftercast_db_pool_idle_conns "} {
 			if !bytes.Contains(body, []byte(want)) {
 				t.Errorf("scrape lacks %q", want)
@@ -505,11 +674,12 @@ aftercast_metrics_series_dropped_total 0
 
 	// Replicas on the same database report the same state, with their own
 	// lead selection and cap.
-	seriesFamilies := []string{"aftercast_series_drift_state", "aftercast_series_window_mae", "aftercast_series_window_bias",
+	seriesFamilies := []string{"aftercast_series_drift_state", "aftercast_series_window_mae", "aftercast_series_window_me",
 		"aftercast_series_window_pairs", "aftercast_series_expected", "aftercast_series_band_lower", "aftercast_series_band_upper",
 		"aftercast_series_alarm_upper", "aftercast_series_alarm_lower", "aftercast_series_last_origin_timestamp_seconds",
 		"aftercast_series_origin_interval_seconds", "aftercast_series_last_actual_timestamp_seconds",
-		"aftercast_series_last_actual_received_timestamp_seconds"}
+		"aftercast_series_last_actual_received_timestamp_seconds", "aftercast_series_drift_onset_origin_timestamp_seconds",
+		"aftercast_series_drift_origins_since_onset", "aftercast_drift_marks_pending", "aftercast_drift_marks_oldest_age_seconds"}
 	sameSeriesFamilies := func(t *testing.T, other prometheus.Gatherer) {
 		t.Helper()
 		a, err := reg.Gather()
@@ -571,10 +741,90 @@ aftercast_metrics_series_dropped_total 4
 		if err := srv3.Stop(ctx); err != nil {
 			t.Fatal(err)
 		}
-		if _, err := reg3.Gather(); err == nil || !strings.Contains(err.Error(), "reading drift states") {
-			t.Errorf("gather with the pool closed: %v, want a drift states error", err)
+		_, err := reg3.Gather()
+		for _, want := range []string{"reading drift states", "reading freshness", "reading drift backlog"} {
+			if err == nil || !strings.Contains(err.Error(), want) {
+				t.Errorf("gather with the pool closed: %v, want an error %q", err, want)
+			}
 		}
 	})
+}
+
+// backlogText is the exposition of the backlog families.
+func backlogText(pending int, age float64) string {
+	return fmt.Sprintf(`
+# HELP aftercast_drift_marks_oldest_age_seconds Age of the oldest drift mark waiting for evaluation; 0 when none waits.
+# TYPE aftercast_drift_marks_oldest_age_seconds gauge
+aftercast_drift_marks_oldest_age_seconds %v
+# HELP aftercast_drift_marks_pending Drift marks waiting for evaluation: stored and acknowledged writes whose drift states are not judged yet (all replicas).
+# TYPE aftercast_drift_marks_pending gauge
+aftercast_drift_marks_pending %d
+`, age, pending)
+}
+
+// Marks that no evaluator can take show up as pending, with the age of the
+// oldest growing, until they are judged. The test holds the marks with a
+// claim of its own (what a stuck replica would do) taken before the server
+// starts, so the server's evaluator cannot get at them.
+func TestMetricsDriftBacklog(t *testing.T) {
+	t.Parallel()
+	url := storetest.URL(t)
+	ctx, cancel := context.WithTimeout(context.Background(), time.Minute)
+	t.Cleanup(cancel)
+	pool, err := pgxpool.New(ctx, url)
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(pool.Close)
+	st := store.New(pool, store.Limits{})
+	written := time.Now()
+	for _, key := range []string{"lag/a", "lag/b"} {
+		if _, _, err := st.CreateSeries(ctx, store.Series{Key: key, Step: "1h", Horizon: 2}); err != nil {
+			t.Fatal(err)
+		}
+		if _, err := st.WriteActuals(ctx, []store.Actual{{Series: key, Time: mT0, Value: 1}, {Series: key, Time: mT0.Add(time.Hour), Value: 2}}, 0); err != nil {
+			t.Fatal(err)
+		}
+	}
+	if pending, _, err := st.DriftBacklog(ctx); err != nil || pending != 2 {
+		t.Fatalf("backlog after writing actuals of two series: %d marks (%v), want 2", pending, err)
+	}
+	claim, err := st.ClaimDrift(ctx, 10)
+	if err != nil || claim == nil || len(claim.Series) != 2 {
+		t.Fatalf("claiming the marks: %v %v", claim, err)
+	}
+	released := false
+	release := func() {
+		if !released {
+			claim.Release(ctx)
+			released = true
+		}
+	}
+	t.Cleanup(release)
+
+	srv, reg := metricsServer(t, url, server.Config{})
+	lint(t, reg)
+	gatherAge := func() float64 {
+		t.Helper()
+		if got := family(t, reg, "aftercast_drift_marks_pending")[""]; got != 2 {
+			t.Fatalf("aftercast_drift_marks_pending = %v while two marks are held, want 2", got)
+		}
+		return family(t, reg, "aftercast_drift_marks_oldest_age_seconds")[""]
+	}
+	a1 := gatherAge()
+	a2 := gatherAge()
+	if elapsed := time.Since(written).Seconds(); !(0 < a1 && a1 < a2 && a2 <= elapsed) {
+		t.Errorf("oldest mark age %v, then %v; want growing, above 0 and at most the %v s since the marks were written", a1, a2, elapsed)
+	}
+
+	release()
+	if err := srv.Drift().Drain(ctx); err != nil {
+		t.Fatal(err)
+	}
+	if err := testutil.GatherAndCompare(reg, strings.NewReader(backlogText(0, 0)),
+		"aftercast_drift_marks_pending", "aftercast_drift_marks_oldest_age_seconds"); err != nil {
+		t.Errorf("after the drain: %v", err)
+	}
 }
 
 func TestMetricsLeadsFlag(t *testing.T) {

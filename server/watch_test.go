@@ -79,7 +79,7 @@ func TestWatchDriftEventsResumes(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	time.Sleep(700 * time.Millisecond)             // let the watch take its starting point
+	time.Sleep(700 * time.Millisecond)              // let the watch take its starting point
 	pushDays(t, ctx, srv, "w", 20, 30, leads, 3, r) // errors ×3: degraded events follow
 	first, err := watch.Recv()
 	if err != nil {

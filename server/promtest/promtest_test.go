@@ -15,6 +15,7 @@ import (
 	"os/exec"
 	"path/filepath"
 	"regexp"
+	"slices"
 	"strconv"
 	"strings"
 	"sync"
@@ -89,6 +90,12 @@ func TestDriftAlertsInPrometheus(t *testing.T) {
 	t.Cleanup(func() { conn.Close() })
 
 	load(ctx, t, srv.Store(), conn)
+	// Drift is judged off the request path: settle it before Prometheus
+	// looks, so that what it sees is final.
+	if err := srv.Drift().Drain(ctx); err != nil {
+		t.Fatal(err)
+	}
+	onsets := storedOnsets(ctx, t, srv.Store())
 	prom := startPrometheus(ctx, t, promBin, srv.MetricsAddr())
 
 	// Poll until both drift alerts of the drifting series are active
@@ -111,6 +118,15 @@ func TestDriftAlertsInPrometheus(t *testing.T) {
 	for _, name := range []string{"AftercastSeriesDegraded", "AftercastLeadDegraded"} {
 		a := find(alerts, name, drifting)
 		t.Logf("%s: %s\n  %s\n  %s", name, a.Annotations["summary"], a.Annotations["description"], a.Annotations["runbook_url"])
+	}
+
+	// The descriptions give onsets in data time: the stored onset origins,
+	// not when the states were noticed.
+	if want := "degraded since the origin " + onsets.series.String() + " (data time"; !strings.Contains(find(alerts, "AftercastSeriesDegraded", drifting).Annotations["description"], want) {
+		t.Errorf("AftercastSeriesDegraded description lacks %q", want)
+	}
+	if want := "The first of them became degraded at the origin " + onsets.firstLead.String() + " (data time)"; !strings.Contains(find(alerts, "AftercastLeadDegraded", drifting).Annotations["description"], want) {
+		t.Errorf("AftercastLeadDegraded description lacks %q", want)
 	}
 
 	lead := find(alerts, "AftercastLeadDegraded", drifting)
@@ -142,6 +158,27 @@ func TestDriftAlertsInPrometheus(t *testing.T) {
 		if a := find(alerts, name, healthy); a != nil {
 			t.Errorf("%s is active for the healthy series: %+v", name, a)
 		}
+	}
+
+	// The backlog was drained before Prometheus started: nothing pending
+	// and no age, as scraped.
+	for _, q := range []string{"max(aftercast_drift_marks_pending)", "max(aftercast_drift_marks_oldest_age_seconds)"} {
+		if v, err := prom.query(ctx, q); err != nil || v != 0 {
+			t.Errorf("%s = %v (%v), want 0 after the drain", q, v, err)
+		}
+	}
+	// Every rule evaluates without error against real aftercast metrics.
+	rules, err := prom.rules(ctx)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, r := range rules {
+		if r.Health != "ok" {
+			t.Errorf("rule %s: health %q, error %q", r.Name, r.Health, r.LastError)
+		}
+	}
+	if len(rules) == 0 {
+		t.Error("Prometheus loaded no rules")
 	}
 
 	// Every query of the Grafana dashboard parses and runs, with the
@@ -271,6 +308,32 @@ func load(ctx context.Context, t *testing.T, st *store.Store, conn *grpc.ClientC
 		}
 	}
 	flush()
+}
+
+// onsets are the stored onset origins of the drifting series: its series
+// state's, and the earliest of its degraded decision leads'.
+type onsets struct{ series, firstLead time.Time }
+
+func storedOnsets(ctx context.Context, t *testing.T, st *store.Store) onsets {
+	t.Helper()
+	sts, err := st.DriftStates(ctx, drifting, model)
+	if err != nil {
+		t.Fatal(err)
+	}
+	var out onsets
+	for _, s := range sts {
+		switch {
+		case s.Lead == 0:
+			out.series = s.Onset
+		case s.State == "degraded" && slices.Contains(decisionLeads, int32(s.Lead)) &&
+			(out.firstLead.IsZero() || s.Onset.Before(out.firstLead)):
+			out.firstLead = s.Onset
+		}
+	}
+	if out.series.IsZero() || out.firstLead.IsZero() {
+		t.Fatalf("stored states of %s/%s: no series onset or no degraded decision lead with an onset: %+v", drifting, model, sts)
+	}
+	return out
 }
 
 // prometheus is a running Prometheus with its log.
@@ -422,6 +485,31 @@ func (p *prometheus) alerts(ctx context.Context) ([]alert, error) {
 		return nil, err
 	}
 	return body.Data.Alerts, nil
+}
+
+// rule is one rule of Prometheus' /api/v1/rules.
+type rule struct {
+	Name      string `json:"name"`
+	Health    string `json:"health"`
+	LastError string `json:"lastError"`
+}
+
+func (p *prometheus) rules(ctx context.Context) ([]rule, error) {
+	var body struct {
+		Data struct {
+			Groups []struct {
+				Rules []rule `json:"rules"`
+			} `json:"groups"`
+		} `json:"data"`
+	}
+	if err := p.get(ctx, "/api/v1/rules", &body); err != nil {
+		return nil, err
+	}
+	var out []rule
+	for _, g := range body.Data.Groups {
+		out = append(out, g.Rules...)
+	}
+	return out, nil
 }
 
 // query evaluates an instant query whose result is a single sample.

@@ -678,24 +678,26 @@ func orNaN(p *float64) float64 {
 	return *p
 }
 
-// DriftBacklog is how many marks wait for evaluation and when the oldest
-// was written (zero when none waits).
-func (s *Store) DriftBacklog(ctx context.Context) (pending int64, oldest time.Time, err error) {
-	return s.backlog(ctx, `SELECT count(*), min(created_at) FROM drift_marks`)
+// DriftBacklog is how many marks wait for evaluation and how long the
+// oldest has waited, by the database's clock, which wrote the marks (0
+// when none waits).
+func (s *Store) DriftBacklog(ctx context.Context) (pending int64, oldest time.Duration, err error) {
+	return s.backlog(ctx, `SELECT count(*), coalesce(extract(epoch FROM now() - min(created_at)), 0) FROM drift_marks`)
 }
 
 // SeriesBacklog is DriftBacklog of one series.
-func (s *Store) SeriesBacklog(ctx context.Context, key string) (pending int64, oldest time.Time, err error) {
-	return s.backlog(ctx, `SELECT count(*), min(m.created_at) FROM drift_marks m JOIN series s ON s.id = m.series_id WHERE s.key = $1`, key)
+func (s *Store) SeriesBacklog(ctx context.Context, key string) (pending int64, oldest time.Duration, err error) {
+	return s.backlog(ctx, `SELECT count(*), coalesce(extract(epoch FROM now() - min(m.created_at)), 0)
+		FROM drift_marks m JOIN series s ON s.id = m.series_id WHERE s.key = $1`, key)
 }
 
-func (s *Store) backlog(ctx context.Context, sql string, args ...any) (int64, time.Time, error) {
+func (s *Store) backlog(ctx context.Context, sql string, args ...any) (int64, time.Duration, error) {
 	var pending int64
-	var t pgtype.Timestamptz
-	if err := s.pool.QueryRow(ctx, sql, args...).Scan(&pending, &t); err != nil {
-		return 0, time.Time{}, fmt.Errorf("reading drift marks: %w", err)
+	var age float64
+	if err := s.pool.QueryRow(ctx, sql, args...).Scan(&pending, &age); err != nil {
+		return 0, 0, fmt.Errorf("reading drift marks: %w", err)
 	}
-	return pending, t.Time, nil
+	return pending, time.Duration(max(age, 0) * float64(time.Second)), nil
 }
 
 // markSQL inserts one data mark per series: $1 ids, $2 the first origin
