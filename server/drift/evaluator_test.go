@@ -232,3 +232,55 @@ func TestDriftStateSurvivesRestart(t *testing.T) {
 		t.Errorf("an idle drain announced %d events", len(after)-len(straight))
 	}
 }
+
+// A write is acknowledged with its mark committed; an evaluator that dies
+// before committing its judgement (a claim given up) leaves the marks, and
+// the next evaluator judges them: no acknowledged write goes unjudged.
+func TestMarksOutliveAFailedEvaluation(t *testing.T) {
+	t.Parallel()
+	st := storetest.Store(t)
+	ctx := ctxT(t, 2*time.Minute)
+	sc := scenario{seed: 5, leads: 3, backtest: 365, prod: 20}
+	if _, _, err := st.CreateSeries(ctx, store.Series{Key: "crash", Step: "1h", Horizon: sc.leads}); err != nil {
+		t.Fatal(err)
+	}
+	rows, vs, as := sc.data("crash")
+	if _, err := st.ImportBaseline(ctx, "m", rows, nil); err != nil {
+		t.Fatal(err)
+	}
+	if _, err := st.WriteForecasts(ctx, vs, 0); err != nil {
+		t.Fatal(err)
+	}
+	var batch []store.Actual
+	for _, a := range as {
+		batch = append(batch, a...)
+	}
+	if _, err := st.WriteActuals(ctx, batch, 0); err != nil {
+		t.Fatal(err)
+	}
+	pending, _, err := st.SeriesBacklog(ctx, "crash")
+	if err != nil || pending != 2 { // the baseline's and the actuals'
+		t.Fatalf("after the writes: %d marks (%v), want 2", pending, err)
+	}
+	c, err := st.ClaimDrift(ctx, 10)
+	if err != nil || c == nil {
+		t.Fatalf("claim: %v %v", c, err)
+	}
+	c.Release(ctx) // the evaluator died before committing
+	if n, _, _ := st.SeriesBacklog(ctx, "crash"); n != 2 {
+		t.Fatalf("a claim given up removed marks: %d left", n)
+	}
+	if sts, _ := st.DriftStates(ctx, "crash", "m"); len(sts) != 0 {
+		t.Fatalf("a claim given up stored %d states", len(sts))
+	}
+	if err := drift.New(st, drift.Config{}).Drain(ctx); err != nil {
+		t.Fatal(err)
+	}
+	sts, err := st.DriftStates(ctx, "crash", "m")
+	if err != nil || len(sts) != sc.leads+1 || !sts[0].LastOrigin.Equal(origin(sc.backtest+sc.prod-1)) {
+		t.Fatalf("after the next evaluator: %d states (%v), series judged up to %v", len(sts), err, sts)
+	}
+	if n, _, _ := st.SeriesBacklog(ctx, "crash"); n != 0 {
+		t.Errorf("%d marks left after the drain", n)
+	}
+}
