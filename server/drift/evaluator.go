@@ -218,7 +218,15 @@ func (e *Evaluator) evaluate(ctx context.Context) (int, error) {
 	for _, j := range jobs {
 		res, err := e.replay(ctx, c, j)
 		if err != nil {
-			return 0, err
+			if ctx.Err() != nil {
+				return 0, err
+			}
+			// One series that cannot be judged must not hold up the others:
+			// its marks stay, counted in the backlog the lag alert watches.
+			e.cfg.Logger.ErrorContext(ctx, "judging drift failed; its marks stay for the next claim",
+				"series", j.se.Key, "model", j.model, "err", err)
+			c.Keep(j.se)
+			continue
 		}
 		j.write(&w, res, now)
 	}

@@ -284,3 +284,45 @@ func TestMarksOutliveAFailedEvaluation(t *testing.T) {
 		t.Errorf("%d marks left after the drain", n)
 	}
 }
+
+// A checkpoint that cannot be decoded is a cache miss: the evaluator
+// replays from the beginning and ends where an intact run ends.
+func TestUndecodableCheckpointIsReplayedOver(t *testing.T) {
+	t.Parallel()
+	st := storetest.Store(t)
+	ctx := ctxT(t, 2*time.Minute)
+	sc := scenario{seed: 6, leads: 3, backtest: 365, prod: 120, changeAt: 60, change: func(e float64) float64 { return 2 * e }}
+	intact := sc.run(t, ctx, st, "intact", 0)
+	sc.prod = 90
+	sc.run(t, ctx, st, "broken", 0)
+	if _, err := st.Pool().Exec(ctx, `UPDATE drift_checkpoints SET checkpoint = '{"leads": "not a map"}'
+		WHERE series_id = (SELECT id FROM series WHERE key = 'broken')`); err != nil {
+		t.Fatal(err)
+	}
+	sc.prod = 120
+	_, vs, as := sc.data("broken")
+	if _, err := st.WriteForecasts(ctx, vs[90:], 0); err != nil {
+		t.Fatal(err)
+	}
+	var batch []store.Actual
+	for _, a := range as[90:] {
+		batch = append(batch, a...)
+	}
+	if _, err := st.WriteActuals(ctx, batch, 0); err != nil {
+		t.Fatal(err)
+	}
+	if err := drift.New(st, drift.Config{}).Drain(ctx); err != nil {
+		t.Fatalf("a broken checkpoint stopped the evaluator: %v", err)
+	}
+	a, _ := st.DriftStates(ctx, "intact", "m")
+	b, _ := st.DriftStates(ctx, "broken", "m")
+	if len(a) != len(b) || len(intact) == 0 {
+		t.Fatalf("%d states intact, %d broken", len(a), len(b))
+	}
+	for i := range a {
+		if a[i].State != b[i].State || !a[i].Onset.Equal(b[i].Onset) || !a[i].LastOrigin.Equal(b[i].LastOrigin) || *a[i].Snapshot.MAE != *b[i].Snapshot.MAE {
+			t.Errorf("lead %d: intact %s since %v, MAE %v; after a broken checkpoint %s since %v, MAE %v",
+				a[i].Lead, a[i].State, a[i].Onset, *a[i].Snapshot.MAE, b[i].State, b[i].Onset, *b[i].Snapshot.MAE)
+		}
+	}
+}

@@ -129,8 +129,8 @@ type DriftClaim struct {
 	tx     pgx.Tx
 	locked []int64
 	Series []*ClaimedSeries
-	marks  []int64
 	ids    map[string]int64 // series key → id
+	kept   map[int64]bool   // series whose marks Commit leaves
 }
 
 // lockClassDrift is the first key of the per-series evaluation locks
@@ -209,7 +209,6 @@ func (c *DriftClaim) readClaimed(ctx context.Context, ids []int64, byID map[int6
 		_, err := pgx.ForEachRow(rows, []any{&m.ID, &id, &m.Model, &from, &m.Baseline, &m.Created}, func() error {
 			m.From = from.Time
 			byID[id].Marks = append(byID[id].Marks, m)
-			c.marks = append(c.marks, m.ID)
 			return nil
 		})
 		return err
@@ -233,6 +232,15 @@ func (c *DriftClaim) readClaimed(ctx context.Context, ids []int64, byID map[int6
 		return fmt.Errorf("reading claimed drift marks: %w", err)
 	}
 	return nil
+}
+
+// Keep leaves a claimed series' marks in place when the claim commits: its
+// judgement failed and must be tried again.
+func (c *DriftClaim) Keep(se *Series) {
+	if c.kept == nil {
+		c.kept = map[int64]bool{}
+	}
+	c.kept[se.ID] = true
 }
 
 // Release gives the claim up: uncommitted, its marks stay for the next
@@ -265,7 +273,9 @@ type CheckpointQuery struct {
 }
 
 // Checkpoints answers the queries in order; a checkpoint with nil Leads
-// means none is stored (start from the beginning).
+// means none is stored (start from the beginning). A checkpoint is a cache
+// of a replay: one that cannot be decoded (written by another version, say)
+// counts as none, and the replay starts from the beginning.
 func (c *DriftClaim) Checkpoints(ctx context.Context, qs []CheckpointQuery) ([]scoring.Checkpoint, error) {
 	out := make([]scoring.Checkpoint, len(qs))
 	if len(qs) == 0 {
@@ -286,7 +296,10 @@ func (c *DriftClaim) Checkpoints(ctx context.Context, qs []CheckpointQuery) ([]s
 	var i int
 	var raw []byte
 	_, err = pgx.ForEachRow(rows, []any{&i, &raw}, func() error {
-		return json.Unmarshal(raw, &out[i])
+		if json.Unmarshal(raw, &out[i]) != nil {
+			out[i] = scoring.Checkpoint{}
+		}
+		return nil
 	})
 	if err != nil {
 		return nil, fmt.Errorf("reading drift checkpoints: %w", err)
@@ -455,8 +468,8 @@ type DriftWrite struct {
 	Now         time.Time    // updated_at of the states
 }
 
-// Commit stores w, removes the claimed marks and commits, all in one
-// transaction. It returns the events with their sequence numbers.
+// Commit stores w, removes the claimed marks (but those of series kept)
+// and commits, all in one transaction. It returns the events with their sequence numbers.
 func (c *DriftClaim) Commit(ctx context.Context, w DriftWrite) ([]DriftEvent, error) {
 	defer c.Release(ctx)
 	b := &pgx.Batch{}
@@ -476,7 +489,15 @@ func (c *DriftClaim) Commit(ctx context.Context, w DriftWrite) ([]DriftEvent, er
 			c.queueEvent(b, &events[i])
 		}
 	}
-	b.Queue(`DELETE FROM drift_marks WHERE id = ANY($1)`, c.marks)
+	var done []int64
+	for _, cs := range c.Series {
+		if !c.kept[cs.Series.ID] {
+			for _, m := range cs.Marks {
+				done = append(done, m.ID)
+			}
+		}
+	}
+	b.Queue(`DELETE FROM drift_marks WHERE id = ANY($1)`, done)
 	if err := c.tx.SendBatch(ctx, b).Close(); err != nil {
 		return nil, fmt.Errorf("storing drift evaluation: %w", err)
 	}
