@@ -19,9 +19,6 @@ import (
 // must be re-judged and the checkpoints replays resume from. Judging lives
 // in scoring and server/drift; this file is SQL.
 
-// WindowN is the live window of method.md §6: the last 30 origins.
-const WindowN = 30
-
 // Snapshot is a drift state's last evaluation: the window's values, the
 // bands and limits they were judged against, and what entered the state.
 type Snapshot struct {
