@@ -33,11 +33,12 @@ const (
 // calendar of a time zone, so that a daily step across a DST change is 23 or
 // 25 hours long. The zero Step is invalid.
 type Step struct {
-	text  string
-	unit  stepUnit
-	fixed time.Duration // unitFixed
-	count int           // days (unitDay) or months (unitMonth) per step
-	loc   *time.Location
+	text   string
+	unit   stepUnit
+	fixed  time.Duration // unitFixed
+	count  int           // days (unitDay) or months (unitMonth) per step
+	loc    *time.Location
+	anchor time.Time // where the grid starts: see [Step.OnGrid]
 }
 
 // ParseStep parses a step. Fixed steps use Go duration syntax restricted to
@@ -63,6 +64,7 @@ func ParseStep(s string, loc *time.Location) (Step, error) {
 			return Step{}, fmt.Errorf("step %q: want a positive whole number before %q", s, u.suffix)
 		}
 		st.unit, st.count = u.unit, n*u.mult
+		st.anchor = DefaultAnchor(st)
 		return st, nil
 	}
 	d, err := time.ParseDuration(s)
@@ -73,7 +75,80 @@ func ParseStep(s string, loc *time.Location) (Step, error) {
 		return Step{}, fmt.Errorf("step %q: want a whole number of seconds from 1s to %s", s, maxFixedStep)
 	}
 	st.unit, st.fixed = unitFixed, d
+	st.anchor = DefaultAnchor(st)
 	return st, nil
+}
+
+// DefaultAnchor is where the grid of a step starts unless its series sets
+// its own: local midnight of Monday 3 January 2000 for week steps, so that
+// weeks start on Mondays, and local midnight of 1 January 2000 otherwise,
+// in the step's zone. A recent date, because zones change their offsets:
+// an anchor in the zone's present offset puts an hourly grid on the local
+// hour (Asia/Kolkata's hours are at :30 UTC).
+func DefaultAnchor(s Step) time.Time {
+	day := 1
+	if s.unit == unitDay && s.count%7 == 0 {
+		day = 3
+	}
+	return time.Date(2000, time.January, day, 0, 0, 0, 0, s.loc)
+}
+
+// WithAnchor returns s with its grid starting at a instead.
+func (s Step) WithAnchor(a time.Time) Step {
+	s.anchor = a
+	return s
+}
+
+// Anchor is where the step's grid starts.
+func (s Step) Anchor() time.Time { return s.anchor }
+
+// OnGrid reports whether t is anchor + k·step for a whole k (method.md §1):
+// for fixed steps a whole number of steps of elapsed time from the anchor;
+// for calendar steps the anchor's local clock time on a date a whole number
+// of steps from the anchor's (for months, the anchor's day of the month,
+// clamped to the month's last day). Origins and actual times must lie on
+// it: anything else can never pair.
+func (s Step) OnGrid(t time.Time) bool {
+	switch s.unit {
+	case unitFixed:
+		return t.Sub(s.anchor)%s.fixed == 0
+	case unitDay:
+		days := civilDays(t.In(s.loc)) - civilDays(s.anchor.In(s.loc))
+		return floorMod(days, s.count) == 0 && s.Add(s.anchor, days/s.count).Equal(t)
+	default:
+		l, a := t.In(s.loc), s.anchor.In(s.loc)
+		months := (l.Year()-a.Year())*12 + int(l.Month()) - int(a.Month())
+		return floorMod(months, s.count) == 0 && s.Add(s.anchor, months/s.count).Equal(t)
+	}
+}
+
+// GridNear describes the grid points around t, for a refusal: "the nearest
+// are 2026-01-01T05:00:00Z and 2026-01-01T06:00:00Z".
+func (s Step) GridNear(t time.Time) (before, after time.Time) {
+	var k int
+	switch s.unit {
+	case unitFixed:
+		k = int(t.Sub(s.anchor) / s.fixed)
+		if t.Before(s.anchor) {
+			k--
+		}
+	case unitDay:
+		k = floorDiv(civilDays(t.In(s.loc))-civilDays(s.anchor.In(s.loc)), s.count)
+	default:
+		l, a := t.In(s.loc), s.anchor.In(s.loc)
+		k = floorDiv((l.Year()-a.Year())*12+int(l.Month())-int(a.Month()), s.count)
+	}
+	before = s.Add(s.anchor, k)
+	for before.After(t) {
+		k--
+		before = s.Add(s.anchor, k)
+	}
+	after = s.Add(s.anchor, k+1)
+	for !after.After(t) {
+		k++
+		before, after = after, s.Add(s.anchor, k+1)
+	}
+	return before, after
 }
 
 // MustParseStep is ParseStep for steps known to be valid, as in tests and

@@ -201,3 +201,64 @@ func FuzzParseStep(f *testing.F) {
 		}
 	})
 }
+
+func TestOnGrid(t *testing.T) {
+	t.Parallel()
+	cph, _ := time.LoadLocation("Europe/Copenhagen")
+	kol, _ := time.LoadLocation("Asia/Kolkata")
+	at := func(s string) time.Time {
+		t, err := time.Parse(time.RFC3339, s)
+		if err != nil {
+			panic(err)
+		}
+		return t
+	}
+	for _, c := range []struct {
+		step   string
+		loc    *time.Location
+		anchor string // "" for the default
+		t      string
+		on     bool
+	}{
+		{"1h", nil, "", "2026-03-01T05:00:00Z", true},
+		{"1h", nil, "", "2026-03-01T05:30:00Z", false},
+		{"1h", nil, "", "1900-01-01T00:00:00Z", true},
+		{"15m", nil, "", "2026-03-01T05:45:00Z", true},
+		{"15m", nil, "", "2026-03-01T05:45:01Z", false},
+		{"1h", kol, "", "2026-03-01T05:00:00+05:30", true}, // the local hour, :30 UTC
+		{"1h", kol, "", "2026-03-01T05:00:00Z", false},
+		{"24h", nil, "", "2026-03-01T00:00:00Z", true},
+		{"24h", nil, "", "2026-03-01T05:00:00Z", false},
+		{"1d", cph, "", "2026-03-29T00:00:00+01:00", true}, // the spring-forward day
+		{"1d", cph, "", "2026-03-30T00:00:00+02:00", true},
+		{"1d", cph, "", "2026-03-30T00:00:00Z", false},
+		{"1d", cph, "2000-01-01T05:00:00+01:00", "2026-07-01T05:00:00+02:00", true}, // an anchor at 05:00 local
+		{"1d", cph, "2000-01-01T05:00:00+01:00", "2026-07-01T00:00:00+02:00", false},
+		{"2d", nil, "", "2000-01-03T00:00:00Z", true},
+		{"2d", nil, "", "2000-01-04T00:00:00Z", false},
+		{"1w", nil, "", "2026-03-02T00:00:00Z", true}, // a Monday
+		{"1w", nil, "", "2026-03-05T00:00:00Z", false},
+		{"1mo", cph, "", "2026-11-01T00:00:00+01:00", true},
+		{"1mo", cph, "", "2026-11-02T00:00:00+01:00", false},
+		{"1y", nil, "", "2027-01-01T00:00:00Z", true},
+		{"1y", nil, "", "2027-02-01T00:00:00Z", false},
+		{"3mo", nil, "", "2026-04-01T00:00:00Z", true},
+		{"3mo", nil, "", "2026-05-01T00:00:00Z", false},
+	} {
+		st := MustParseStep(c.step, c.loc)
+		if c.anchor != "" {
+			st = st.WithAnchor(at(c.anchor))
+		}
+		tt := at(c.t)
+		if got := st.OnGrid(tt); got != c.on {
+			t.Errorf("%s in %v, anchor %v: OnGrid(%s) = %v, want %v", c.step, st.Location(), st.Anchor(), c.t, got, c.on)
+		}
+		before, after := st.GridNear(tt)
+		if !st.OnGrid(before) || !st.OnGrid(after) || before.After(tt) || !after.After(tt) || !st.Add(before, 1).Equal(after) {
+			t.Errorf("%s: GridNear(%s) = %s, %s: not the grid points around it", c.step, c.t, before, after)
+		}
+		if c.on && !before.Equal(tt) {
+			t.Errorf("%s: GridNear(%s) starts at %s, want the time itself", c.step, c.t, before)
+		}
+	}
+}

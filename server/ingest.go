@@ -6,6 +6,9 @@ import (
 	"fmt"
 	"io"
 	"math"
+	"time"
+
+	"google.golang.org/protobuf/types/known/timestamppb"
 
 	aftercastv1 "github.com/aftercast/aftercast/api/aftercast/v1"
 	"github.com/aftercast/aftercast/server/store"
@@ -33,12 +36,8 @@ func (a *api) toVectors(fs []*aftercastv1.Forecast, first int) ([]store.Forecast
 	}
 	for i, f := range fs {
 		v := store.ForecastVector{Series: f.GetSeries(), Model: f.GetModel()}
-		if f.GetOriginTime() != nil {
-			v.Origin = f.GetOriginTime().AsTime()
-		}
-		if f.GetIssueTime() != nil {
-			v.IssuedAt = f.GetIssueTime().AsTime()
-		}
+		v.Origin, v.OriginInvalid = wireTime(f.GetOriginTime())
+		v.IssuedAt, v.IssueInvalid = wireTime(f.GetIssueTime())
 		switch {
 		case f.GetDense() != nil:
 			v.Values = append([]float64(nil), f.GetDense().GetValues()...)
@@ -164,11 +163,23 @@ func toActuals(as []*aftercastv1.Actual) []store.Actual {
 	out := make([]store.Actual, len(as))
 	for i, a := range as {
 		out[i] = store.Actual{Series: a.GetSeries(), Value: a.GetValue()}
-		if a.GetTime() != nil {
-			out[i].Time = a.GetTime().AsTime()
-		}
+		out[i].Time, out[i].TimeInvalid = wireTime(a.GetTime())
 	}
 	return out
+}
+
+// wireTime converts a timestamp as sent: the zero time when unset, and a
+// reason when its nanoseconds lie outside [0, 1e9), which AsTime would
+// silently carry into the seconds. Seconds outside the stored range are
+// the store's to refuse.
+func wireTime(ts *timestamppb.Timestamp) (time.Time, string) {
+	if ts == nil {
+		return time.Time{}, ""
+	}
+	if n := ts.GetNanos(); n < 0 || n >= 1e9 {
+		return time.Time{}, fmt.Sprintf("not a valid timestamp: nanos %d outside [0, 999999999]", n)
+	}
+	return ts.AsTime(), ""
 }
 
 func actualSummary(ack store.Ack) *aftercastv1.ActualPushSummary {

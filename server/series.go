@@ -38,7 +38,8 @@ func seriesToProto(s store.Series) *aftercastv1.Series {
 		leads[i] = int32(h)
 	}
 	return &aftercastv1.Series{Key: s.Key, Step: s.Step, Horizon: int32(s.Horizon), Season: int32(s.Season),
-		Unit: s.Unit, TimeZone: s.TimeZone, DecisionLeads: leads, CreateTime: timestamppb.New(s.CreatedAt)}
+		Unit: s.Unit, TimeZone: s.TimeZone, DecisionLeads: leads, CreateTime: timestamppb.New(s.CreatedAt),
+		GridAnchorTime: timestamppb.New(s.GridAnchor)}
 }
 
 func (s *seriesService) CreateSeries(ctx context.Context, req *aftercastv1.CreateSeriesRequest) (*aftercastv1.CreateSeriesResponse, error) {
@@ -50,8 +51,12 @@ func (s *seriesService) CreateSeries(ctx context.Context, req *aftercastv1.Creat
 	for i, h := range p.GetDecisionLeads() {
 		leads[i] = int(h)
 	}
-	se, created, err := s.store.CreateSeries(ctx, store.Series{Key: p.GetKey(), Step: p.GetStep(), Horizon: int(p.GetHorizon()),
-		Season: int(p.GetSeason()), Unit: p.GetUnit(), TimeZone: p.GetTimeZone(), DecisionLeads: leads})
+	in := store.Series{Key: p.GetKey(), Step: p.GetStep(), Horizon: int(p.GetHorizon()),
+		Season: int(p.GetSeason()), Unit: p.GetUnit(), TimeZone: p.GetTimeZone(), DecisionLeads: leads}
+	if a := p.GetGridAnchorTime(); a != nil {
+		in.GridAnchor = a.AsTime()
+	}
+	se, created, err := s.store.CreateSeries(ctx, in)
 	if err != nil {
 		return nil, s.status(ctx, err)
 	}

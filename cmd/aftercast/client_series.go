@@ -12,6 +12,7 @@ import (
 	"github.com/aftercast/aftercast/scoring"
 	"google.golang.org/grpc/codes"
 	"google.golang.org/grpc/status"
+	"google.golang.org/protobuf/types/known/timestamppb"
 )
 
 func runSeries(args []string, stdout, stderr io.Writer) error {
@@ -37,6 +38,15 @@ func seriesCreate(args []string, stdout, stderr io.Writer) error {
 	fs.StringVar(&s.Unit, "unit", "", "unit of the values, such as MW (informational)")
 	fs.StringVar(&s.TimeZone, "tz", "UTC", "IANA time zone whose calendar the calendar steps follow")
 	fs.StringVar(&decisions, "decision-leads", "", "leads the business acts on, e.g. 25-48 (default all)")
+	fs.Func("grid-anchor", "an RFC 3339 time the series' grid starts from; origins and actual times must be that plus whole steps "+
+		"(default: local midnight of 2000-01-01, a Monday 2000-01-03 for week steps)", func(v string) error {
+		t, err := time.Parse(time.RFC3339Nano, v)
+		if err != nil {
+			return fmt.Errorf("want an RFC 3339 time such as 2000-01-01T05:00:00+01:00")
+		}
+		s.GridAnchorTime = timestamppb.New(t)
+		return nil
+	})
 	pos, err := parseArgs(fs, args)
 	if err != nil {
 		return err
@@ -108,8 +118,8 @@ func seriesGet(args []string, stdout, stderr io.Writer) error {
 	}
 	tw := tabwriter.NewWriter(stdout, 0, 0, 2, ' ', 0)
 	o := seriesOut(s)
-	fmt.Fprintf(tw, "key\t%s\nstep\t%s\nhorizon\t%d\nseason\t%d\nunit\t%s\ntime zone\t%s\ndecision leads\t%s\ncreated\t%s\n",
-		o.Key, o.Step, o.Horizon, o.Season, orDash(o.Unit), o.TimeZone, decisionLeads(s), orDash(o.CreateTime))
+	fmt.Fprintf(tw, "key\t%s\nstep\t%s\ngrid from\t%s\nhorizon\t%d\nseason\t%d\nunit\t%s\ntime zone\t%s\ndecision leads\t%s\ncreated\t%s\n",
+		o.Key, o.Step, orDash(o.GridAnchorTime), o.Horizon, o.Season, orDash(o.Unit), o.TimeZone, decisionLeads(s), orDash(o.CreateTime))
 	return tw.Flush()
 }
 
@@ -170,14 +180,15 @@ func seriesList(args []string, stdout, stderr io.Writer) error {
 // seriesJSON is the JSON shape of a series in `series get` and `series
 // list`.
 type seriesJSON struct {
-	Key           string  `json:"key"`
-	Step          string  `json:"step"`
-	Horizon       int32   `json:"horizon"`
-	Season        int32   `json:"season"`
-	Unit          string  `json:"unit"`
-	TimeZone      string  `json:"time_zone"`
-	DecisionLeads []int32 `json:"decision_leads"` // empty: all leads
-	CreateTime    string  `json:"create_time"`
+	Key            string  `json:"key"`
+	Step           string  `json:"step"`
+	Horizon        int32   `json:"horizon"`
+	Season         int32   `json:"season"`
+	Unit           string  `json:"unit"`
+	TimeZone       string  `json:"time_zone"`
+	DecisionLeads  []int32 `json:"decision_leads"` // empty: all leads
+	GridAnchorTime string  `json:"grid_anchor_time"`
+	CreateTime     string  `json:"create_time"`
 }
 
 func seriesOut(s *aftercastv1.Series) seriesJSON {
@@ -185,6 +196,13 @@ func seriesOut(s *aftercastv1.Series) seriesJSON {
 		TimeZone: s.GetTimeZone(), DecisionLeads: append([]int32{}, s.GetDecisionLeads()...)}
 	if s.GetCreateTime() != nil {
 		o.CreateTime = s.GetCreateTime().AsTime().Format(time.RFC3339Nano)
+	}
+	if a := s.GetGridAnchorTime(); a != nil {
+		loc, err := time.LoadLocation(s.GetTimeZone())
+		if err != nil {
+			loc = time.UTC
+		}
+		o.GridAnchorTime = a.AsTime().In(loc).Format(time.RFC3339Nano)
 	}
 	return o
 }

@@ -43,7 +43,8 @@ func TestAccuracyEqualsEvaluateOnFinalData(t *testing.T) {
 		}
 		return out.String()
 	}
-	cli("series", "create", addr, "--step", "1d", "--horizon", "4", "--tz", "Europe/Brussels", "eq/daily")
+	// A daily series whose values are stamped 05:00 local: its grid starts there.
+	cli("series", "create", addr, "--step", "1d", "--horizon", "4", "--tz", "Europe/Brussels", "--grid-anchor", "2000-01-01T05:00:00+01:00", "eq/daily")
 
 	dir := t.TempDir()
 	r := rand.New(rand.NewPCG(11, 12))

@@ -127,8 +127,11 @@ func (s *Store) ImportBaseline(ctx context.Context, model string, rows []Backtes
 		case se == nil:
 			bad(fmt.Sprintf("rows[%d].series", i), "unknown series %q: create it first", r.Series)
 			continue
-		case !wholeMicros(r.Origin) || !wholeMicros(r.Target):
-			bad(fmt.Sprintf("rows[%d].origin_time", i), subMicro)
+		case gridProblem(se, r.Origin) != "":
+			bad(fmt.Sprintf("rows[%d].origin_time", i), "%s", gridProblem(se, r.Origin))
+			continue
+		case timeProblem(r.Target) != "":
+			bad(fmt.Sprintf("rows[%d].target_time", i), "%s", timeProblem(r.Target))
 			continue
 		case math.IsNaN(r.Forecast) || math.IsInf(r.Forecast, 0):
 			bad(fmt.Sprintf("rows[%d].forecast", i), "not a finite number")
@@ -172,8 +175,8 @@ func (s *Store) ImportBaseline(ctx context.Context, model string, rows []Backtes
 			bad(fmt.Sprintf("training_actuals[%d].series", i), "series %q has no backtest rows in this import", t.Series)
 		case math.IsNaN(t.Value) || math.IsInf(t.Value, 0):
 			bad(fmt.Sprintf("training_actuals[%d].value", i), "not a finite number")
-		case !wholeMicros(t.Time):
-			bad(fmt.Sprintf("training_actuals[%d].time", i), subMicro)
+		case gridProblem(u.se, t.Time) != "":
+			bad(fmt.Sprintf("training_actuals[%d].time", i), "%s", gridProblem(u.se, t.Time))
 		default:
 			u.training = append(u.training, t)
 		}

@@ -23,6 +23,10 @@ type ForecastVector struct {
 	// did not send (sparse input). Infinite values are rejected.
 	Values    []float64
 	Quantiles []Quantile
+	// Set by a caller that found the wire form of a time invalid (a
+	// timestamp whose nanoseconds are out of range, say): the vector is
+	// rejected with this reason rather than stored at a normalised time.
+	OriginInvalid, IssueInvalid string
 }
 
 // Quantile is a forecast quantile at one level for the same leads as the
@@ -37,6 +41,9 @@ type Actual struct {
 	Series string
 	Time   time.Time
 	Value  float64
+	// TimeInvalid is set by a caller that found the wire form of Time
+	// invalid: the actual is rejected with this reason.
+	TimeInvalid string
 }
 
 // Rejection says why one item, or one lead of it, was not stored.
@@ -142,10 +149,14 @@ func (s *Store) WriteForecasts(ctx context.Context, vs []ForecastVector, firstIn
 			reject(i, 0, "series", "unknown series %q: create it first", v.Series)
 		case !modelPattern.MatchString(v.Model):
 			reject(i, 0, "model", "want 1–200 characters of A-Z a-z 0-9 _ . : / -")
-		case v.Origin.IsZero():
-			reject(i, 0, "origin", "missing")
-		case !wholeMicros(v.Origin):
-			reject(i, 0, "origin", subMicro)
+		case v.OriginInvalid != "":
+			reject(i, 0, "origin_time", "%s", v.OriginInvalid)
+		case v.IssueInvalid != "":
+			reject(i, 0, "issue_time", "%s", v.IssueInvalid)
+		case gridProblem(se, v.Origin) != "":
+			reject(i, 0, "origin_time", "%s", gridProblem(se, v.Origin))
+		case !v.IssuedAt.IsZero() && timeProblem(v.IssuedAt) != "":
+			reject(i, 0, "issue_time", "%s", timeProblem(v.IssuedAt))
 		case len(v.Values) == 0:
 			reject(i, 0, "values", "no forecast values")
 		case n == 0:
@@ -161,6 +172,11 @@ func (s *Store) WriteForecasts(ctx context.Context, vs []ForecastVector, firstIn
 				case math.IsNaN(x):
 				case h > se.Horizon:
 					reject(i, h, "values", "lead %d is beyond the series horizon %d", h, se.Horizon)
+					v.Values[h-1] = math.NaN()
+					ack.Rejected++
+				case !se.step.Add(v.Origin, h).Before(MaxTime):
+					reject(i, h, "values", "the target of lead %d, %s, is at or after %s", h,
+						se.step.Add(v.Origin, h).UTC().Format(time.RFC3339), MaxTime.Format(time.RFC3339))
 					v.Values[h-1] = math.NaN()
 					ack.Rejected++
 				case math.IsInf(x, 0):
@@ -608,10 +624,10 @@ func (s *Store) WriteActuals(ctx context.Context, as []Actual, firstIndex int) (
 		switch {
 		case se == nil:
 			field, reason = "series", fmt.Sprintf("unknown series %q: create it first", a.Series)
-		case a.Time.IsZero():
-			field, reason = "time", "missing"
-		case !wholeMicros(a.Time):
-			field, reason = "time", subMicro
+		case a.TimeInvalid != "":
+			field, reason = "time", a.TimeInvalid
+		case gridProblem(se, a.Time) != "":
+			field, reason = "time", gridProblem(se, a.Time)
 		case math.IsNaN(a.Value) || math.IsInf(a.Value, 0):
 			field, reason = "value", "not a finite number"
 		}
@@ -951,3 +967,40 @@ func completedQuery(byID map[int64]*Series, fresh map[int64][]time.Time) (string
 const subMicro = "times are stored to the microsecond: this one has a finer part"
 
 func wholeMicros(t time.Time) bool { return t.Nanosecond()%1000 == 0 }
+
+// The range every stored time must lie in (method.md §3): wide enough for
+// any forecast, narrow enough that no arithmetic on it can wrap (Go's
+// nanosecond times span 1677–2262).
+var (
+	MinTime = time.Date(1900, 1, 1, 0, 0, 0, 0, time.UTC)
+	MaxTime = time.Date(2200, 1, 1, 0, 0, 0, 0, time.UTC) // exclusive
+)
+
+// timeProblem says why a time cannot be stored, "" when it can: missing,
+// outside [MinTime, MaxTime), or finer than a microsecond.
+func timeProblem(t time.Time) string {
+	switch {
+	case t.IsZero():
+		return "missing"
+	case t.Before(MinTime) || !t.Before(MaxTime):
+		return fmt.Sprintf("%s is outside the accepted range [%s, %s)", t.UTC().Format(time.RFC3339Nano),
+			MinTime.Format(time.RFC3339), MaxTime.Format(time.RFC3339))
+	case !wholeMicros(t):
+		return subMicro
+	}
+	return ""
+}
+
+// gridProblem is timeProblem, then whether t lies on the series' grid.
+func gridProblem(se *Series, t time.Time) string {
+	if reason := timeProblem(t); reason != "" {
+		return reason
+	}
+	if !se.step.OnGrid(t) {
+		before, after := se.step.GridNear(t)
+		return fmt.Sprintf("%s is not on the series' grid (%s steps from %s): the nearest are %s and %s",
+			t.In(se.step.Location()).Format(time.RFC3339), se.Step, se.GridAnchor.In(se.step.Location()).Format(time.RFC3339),
+			before.In(se.step.Location()).Format(time.RFC3339), after.In(se.step.Location()).Format(time.RFC3339))
+	}
+	return ""
+}

@@ -303,7 +303,13 @@ func propCase(t *testing.T, s *store.Store, seed uint64) {
 		zone = "Europe/Brussels" // fixed steps ignore the zone
 	}
 	key := fmt.Sprintf("prop-%d", seed)
-	se, _, err := s.CreateSeries(ctx, store.Series{Key: key, Step: stepText, Horizon: horizon, TimeZone: zone})
+	// The grid of a daily series runs at 06:00 local here, so its anchor
+	// is set; the fixed steps keep the default one.
+	var anchor time.Time
+	if stepText == "1d" {
+		anchor = base.AddDate(-10, 0, 0)
+	}
+	se, _, err := s.CreateSeries(ctx, store.Series{Key: key, Step: stepText, Horizon: horizon, TimeZone: zone, GridAnchor: anchor})
 	if err != nil {
 		t.Fatal(err)
 	}

@@ -10,6 +10,7 @@ import (
 
 	"github.com/jackc/pgx/v5"
 	"github.com/jackc/pgx/v5/pgconn"
+	"github.com/jackc/pgx/v5/pgtype"
 
 	"github.com/aftercast/aftercast/scoring"
 )
@@ -24,7 +25,11 @@ type Series struct {
 	Unit          string
 	TimeZone      string
 	DecisionLeads []int // empty = all leads
-	CreatedAt     time.Time
+	// GridAnchor is where the series' grid starts: origins and actual
+	// times are GridAnchor + k·step. Zero on create means the default
+	// (scoring.DefaultAnchor); a stored series always has it set.
+	GridAnchor time.Time
+	CreatedAt  time.Time
 
 	step scoring.Step
 }
@@ -69,6 +74,13 @@ func (s *Series) validate(maxHorizon int) error {
 	if s.step, err = scoring.ParseStep(s.Step, loc); err != nil {
 		bad("step", "%v", err)
 	}
+	if !s.GridAnchor.IsZero() {
+		if reason := timeProblem(s.GridAnchor); reason != "" {
+			bad("grid_anchor_time", "%s", reason)
+		}
+		s.step = s.step.WithAnchor(s.GridAnchor)
+	}
+	s.GridAnchor = s.step.Anchor()
 	if s.Horizon < 1 || s.Horizon > maxHorizon {
 		bad("horizon", "want 1 to %d, got %d", maxHorizon, s.Horizon)
 	}
@@ -94,7 +106,7 @@ func (s *Series) validate(maxHorizon int) error {
 
 func (s *Series) sameSettings(o *Series) bool {
 	return s.Step == o.Step && s.Horizon == o.Horizon && s.Season == o.Season && s.Unit == o.Unit &&
-		s.TimeZone == o.TimeZone && slices.Equal(s.DecisionLeads, o.DecisionLeads)
+		s.TimeZone == o.TimeZone && slices.Equal(s.DecisionLeads, o.DecisionLeads) && s.GridAnchor.Equal(o.GridAnchor)
 }
 
 // CreateSeries creates a series. Creating one that exists with identical
@@ -107,9 +119,9 @@ func (s *Store) CreateSeries(ctx context.Context, in Series) (out Series, create
 	if in.DecisionLeads == nil {
 		in.DecisionLeads = []int{}
 	}
-	err = s.pool.QueryRow(ctx, `INSERT INTO series (key, step, horizon, season, unit, time_zone, decision_leads)
-		VALUES ($1, $2, $3, $4, $5, $6, $7) ON CONFLICT (key) DO NOTHING RETURNING id, created_at`,
-		in.Key, in.Step, in.Horizon, in.Season, in.Unit, in.TimeZone, in.DecisionLeads).Scan(&in.ID, &in.CreatedAt)
+	err = s.pool.QueryRow(ctx, `INSERT INTO series (key, step, horizon, season, unit, time_zone, decision_leads, grid_anchor)
+		VALUES ($1, $2, $3, $4, $5, $6, $7, $8) ON CONFLICT (key) DO NOTHING RETURNING id, created_at`,
+		in.Key, in.Step, in.Horizon, in.Season, in.Unit, in.TimeZone, in.DecisionLeads, in.GridAnchor).Scan(&in.ID, &in.CreatedAt)
 	if err == nil {
 		s.remember(&in)
 		return in, true, nil
@@ -133,12 +145,13 @@ func (s *Store) remember(se *Series) {
 	s.mu.Unlock()
 }
 
-const seriesColumns = "id, key, step, horizon, season, unit, time_zone, decision_leads, created_at"
+const seriesColumns = "id, key, step, horizon, season, unit, time_zone, decision_leads, grid_anchor, created_at"
 
 func scanSeries(row pgx.Row) (*Series, error) {
 	var se Series
 	var leads []int32
-	if err := row.Scan(&se.ID, &se.Key, &se.Step, &se.Horizon, &se.Season, &se.Unit, &se.TimeZone, &leads, &se.CreatedAt); err != nil {
+	var anchor pgtype.Timestamptz
+	if err := row.Scan(&se.ID, &se.Key, &se.Step, &se.Horizon, &se.Season, &se.Unit, &se.TimeZone, &leads, &anchor, &se.CreatedAt); err != nil {
 		return nil, err
 	}
 	se.DecisionLeads = make([]int, len(leads))
@@ -152,6 +165,10 @@ func scanSeries(row pgx.Row) (*Series, error) {
 	if se.step, err = scoring.ParseStep(se.Step, loc); err != nil {
 		return nil, fmt.Errorf("series %s: stored step: %w", se.Key, err)
 	}
+	if anchor.Valid {
+		se.step = se.step.WithAnchor(anchor.Time)
+	}
+	se.GridAnchor = se.step.Anchor()
 	return &se, nil
 }
 

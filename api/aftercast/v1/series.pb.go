@@ -57,9 +57,18 @@ type Series struct {
 	// 1..horizon. Returned sorted ascending without repeats.
 	DecisionLeads []int32 `protobuf:"varint,7,rep,packed,name=decision_leads,json=decisionLeads,proto3" json:"decision_leads,omitempty"`
 	// Output only: when the series was created. Ignored on create.
-	CreateTime    *timestamppb.Timestamp `protobuf:"bytes,8,opt,name=create_time,json=createTime,proto3" json:"create_time,omitempty"`
-	unknownFields protoimpl.UnknownFields
-	sizeCache     protoimpl.SizeCache
+	CreateTime *timestamppb.Timestamp `protobuf:"bytes,8,opt,name=create_time,json=createTime,proto3" json:"create_time,omitempty"`
+	// Where the series' grid starts: origins and actual times must be
+	// grid_anchor_time + k·step for a whole k (for calendar steps, the
+	// anchor's local clock time on dates a whole number of steps away; for
+	// months, the anchor's day of the month). Anything off the grid could
+	// never pair and is rejected. Unset on create: local midnight of
+	// 1 January 2000 in time_zone (of Monday 3 January 2000 for week steps).
+	// Set it for a daily series whose values are stamped 05:00, for
+	// example. Immutable; always returned.
+	GridAnchorTime *timestamppb.Timestamp `protobuf:"bytes,9,opt,name=grid_anchor_time,json=gridAnchorTime,proto3" json:"grid_anchor_time,omitempty"`
+	unknownFields  protoimpl.UnknownFields
+	sizeCache      protoimpl.SizeCache
 }
 
 func (x *Series) Reset() {
@@ -144,6 +153,13 @@ func (x *Series) GetDecisionLeads() []int32 {
 func (x *Series) GetCreateTime() *timestamppb.Timestamp {
 	if x != nil {
 		return x.CreateTime
+	}
+	return nil
+}
+
+func (x *Series) GetGridAnchorTime() *timestamppb.Timestamp {
+	if x != nil {
+		return x.GridAnchorTime
 	}
 	return nil
 }
@@ -468,7 +484,7 @@ var File_aftercast_v1_series_proto protoreflect.FileDescriptor
 
 const file_aftercast_v1_series_proto_rawDesc = "" +
 	"\n" +
-	"\x19aftercast/v1/series.proto\x12\faftercast.v1\x1a\x1fgoogle/protobuf/timestamp.proto\"\xf5\x01\n" +
+	"\x19aftercast/v1/series.proto\x12\faftercast.v1\x1a\x1fgoogle/protobuf/timestamp.proto\"\xbb\x02\n" +
 	"\x06Series\x12\x10\n" +
 	"\x03key\x18\x01 \x01(\tR\x03key\x12\x12\n" +
 	"\x04step\x18\x02 \x01(\tR\x04step\x12\x18\n" +
@@ -478,7 +494,8 @@ const file_aftercast_v1_series_proto_rawDesc = "" +
 	"\ttime_zone\x18\x06 \x01(\tR\btimeZone\x12%\n" +
 	"\x0edecision_leads\x18\a \x03(\x05R\rdecisionLeads\x12;\n" +
 	"\vcreate_time\x18\b \x01(\v2\x1a.google.protobuf.TimestampR\n" +
-	"createTime\"C\n" +
+	"createTime\x12D\n" +
+	"\x10grid_anchor_time\x18\t \x01(\v2\x1a.google.protobuf.TimestampR\x0egridAnchorTime\"C\n" +
 	"\x13CreateSeriesRequest\x12,\n" +
 	"\x06series\x18\x01 \x01(\v2\x14.aftercast.v1.SeriesR\x06series\"^\n" +
 	"\x14CreateSeriesResponse\x12,\n" +
@@ -528,21 +545,22 @@ var file_aftercast_v1_series_proto_goTypes = []any{
 }
 var file_aftercast_v1_series_proto_depIdxs = []int32{
 	7, // 0: aftercast.v1.Series.create_time:type_name -> google.protobuf.Timestamp
-	0, // 1: aftercast.v1.CreateSeriesRequest.series:type_name -> aftercast.v1.Series
-	0, // 2: aftercast.v1.CreateSeriesResponse.series:type_name -> aftercast.v1.Series
-	0, // 3: aftercast.v1.GetSeriesResponse.series:type_name -> aftercast.v1.Series
-	0, // 4: aftercast.v1.ListSeriesResponse.series:type_name -> aftercast.v1.Series
-	1, // 5: aftercast.v1.SeriesService.CreateSeries:input_type -> aftercast.v1.CreateSeriesRequest
-	3, // 6: aftercast.v1.SeriesService.GetSeries:input_type -> aftercast.v1.GetSeriesRequest
-	5, // 7: aftercast.v1.SeriesService.ListSeries:input_type -> aftercast.v1.ListSeriesRequest
-	2, // 8: aftercast.v1.SeriesService.CreateSeries:output_type -> aftercast.v1.CreateSeriesResponse
-	4, // 9: aftercast.v1.SeriesService.GetSeries:output_type -> aftercast.v1.GetSeriesResponse
-	6, // 10: aftercast.v1.SeriesService.ListSeries:output_type -> aftercast.v1.ListSeriesResponse
-	8, // [8:11] is the sub-list for method output_type
-	5, // [5:8] is the sub-list for method input_type
-	5, // [5:5] is the sub-list for extension type_name
-	5, // [5:5] is the sub-list for extension extendee
-	0, // [0:5] is the sub-list for field type_name
+	7, // 1: aftercast.v1.Series.grid_anchor_time:type_name -> google.protobuf.Timestamp
+	0, // 2: aftercast.v1.CreateSeriesRequest.series:type_name -> aftercast.v1.Series
+	0, // 3: aftercast.v1.CreateSeriesResponse.series:type_name -> aftercast.v1.Series
+	0, // 4: aftercast.v1.GetSeriesResponse.series:type_name -> aftercast.v1.Series
+	0, // 5: aftercast.v1.ListSeriesResponse.series:type_name -> aftercast.v1.Series
+	1, // 6: aftercast.v1.SeriesService.CreateSeries:input_type -> aftercast.v1.CreateSeriesRequest
+	3, // 7: aftercast.v1.SeriesService.GetSeries:input_type -> aftercast.v1.GetSeriesRequest
+	5, // 8: aftercast.v1.SeriesService.ListSeries:input_type -> aftercast.v1.ListSeriesRequest
+	2, // 9: aftercast.v1.SeriesService.CreateSeries:output_type -> aftercast.v1.CreateSeriesResponse
+	4, // 10: aftercast.v1.SeriesService.GetSeries:output_type -> aftercast.v1.GetSeriesResponse
+	6, // 11: aftercast.v1.SeriesService.ListSeries:output_type -> aftercast.v1.ListSeriesResponse
+	9, // [9:12] is the sub-list for method output_type
+	6, // [6:9] is the sub-list for method input_type
+	6, // [6:6] is the sub-list for extension type_name
+	6, // [6:6] is the sub-list for extension extendee
+	0, // [0:6] is the sub-list for field type_name
 }
 
 func init() { file_aftercast_v1_series_proto_init() }
