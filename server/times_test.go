@@ -24,7 +24,7 @@ func TestPushRefusesTimesOutsideRangeAndGrid(t *testing.T) {
 	}
 	ms := time.Date(2026, 1, 1, 0, 0, 0, 0, time.UTC).UnixMilli()
 	acts := []*aftercastv1.Actual{
-		{Series: "g", Time: &timestamppb.Timestamp{Seconds: ms}, Value: 1},                                // ms in seconds: year 58 000
+		{Series: "g", Time: &timestamppb.Timestamp{Seconds: ms}, Value: 1},                               // ms in seconds: year 58 000
 		{Series: "g", Time: timestamppb.New(time.Date(9999, 1, 1, 0, 0, 0, 0, time.UTC)), Value: 1},      // once stored as 1815
 		{Series: "g", Time: &timestamppb.Timestamp{Seconds: 1767225600, Nanos: 2_000_000_000}, Value: 1}, // nanos out of range
 		{Series: "g", Time: timestamppb.New(time.Date(1900, 1, 1, 0, 0, 0, 0, time.UTC)), Value: 1},      // the first instant
