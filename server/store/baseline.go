@@ -560,11 +560,13 @@ func (s *Store) ActiveScale(ctx context.Context, key, model string) (float64, er
 	var scale *float64
 	err = s.pool.QueryRow(ctx, `SELECT mase_scale FROM baselines WHERE series_id = $1 AND model = $2 ORDER BY version DESC LIMIT 1`,
 		se.ID, model).Scan(&scale)
-	if errors.Is(err, pgx.ErrNoRows) || scale == nil {
+	switch {
+	case errors.Is(err, pgx.ErrNoRows):
 		return math.NaN(), nil
-	}
-	if err != nil {
+	case err != nil:
 		return math.NaN(), fmt.Errorf("reading baseline scale: %w", err)
+	case scale == nil:
+		return math.NaN(), nil
 	}
 	return *scale, nil
 }

@@ -133,3 +133,20 @@ func TestShapeWarningsFollowProduction(t *testing.T) {
 		t.Error("hourly production against a daily backtest: no cadence warning")
 	}
 }
+
+// A failed read of the scale is an error, not an unknown scale: MASE must
+// not silently vanish when the database does.
+func TestActiveScaleReportsDatabaseErrors(t *testing.T) {
+	t.Parallel()
+	pool := storetest.Pool(t)
+	s := store.New(pool, store.Limits{})
+	ctx := ctxT(t)
+	mustSeries(t, s, "sc", "1h", 2) // cached by the store from here on
+	if scale, err := s.ActiveScale(ctx, "sc", "m"); err != nil || !math.IsNaN(scale) {
+		t.Fatalf("no baseline: %v %v, want NaN and no error", scale, err)
+	}
+	pool.Close()
+	if scale, err := s.ActiveScale(ctx, "sc", "m"); err == nil {
+		t.Errorf("closed pool: scale %v and no error", scale)
+	}
+}
