@@ -109,7 +109,7 @@ func (s *accuracyService) ListPairs(ctx context.Context, req *aftercastv1.ListPa
 	out := &aftercastv1.ListPairsResponse{NextPageToken: next, Pairs: make([]*aftercastv1.Pair, len(pairs))}
 	for i, p := range pairs {
 		out.Pairs[i] = &aftercastv1.Pair{OriginTime: timestamppb.New(p.Origin), TargetTime: timestamppb.New(p.Target), Lead: int32(p.Lead),
-			Forecast: p.Forecast, Actual: p.Actual, Error: p.Actual - p.Forecast, Late: p.Late,
+			Forecast: p.Forecast, Actual: p.Actual, Error: p.Actual - p.Forecast, Late: p.Late, LateReissue: p.Reissue,
 			ForecastReceiveTime: timestamppb.New(p.ForecastReceivedAt), ActualFirstReceiveTime: timestamppb.New(p.ActualFirstReceived)}
 	}
 	return out, nil

@@ -105,6 +105,7 @@ type forecastRow struct {
 	origin    time.Time
 	vals      []float64 // NaN = no value
 	late      []bool
+	lateVals  []float64 // late re-issues beside scored values; NaN = none
 	qLevels   []float64
 	qVals     [][]float64
 	issuedAt  time.Time
@@ -321,8 +322,8 @@ func items2spans[T any](items []T, f func(T) (*Series, time.Time, int)) map[int6
 // mergeForecast applies one pushed vector to the stored row (method.md
 // §3): an identical value is a duplicate; a value for a target whose actual
 // is already known is late — stored and flagged when the lead had no value,
-// not applied when it replaces one (a re-issue only replaces values whose
-// actual has not arrived); anything else is stored.
+// stored beside the scored value when it had one (a re-issue replaces only
+// values whose actual has not arrived); anything else is stored.
 func mergeForecast(r *forecastRow, v *ForecastVector, known map[int64]bool, now time.Time, ack *Ack) {
 	if n := len(v.Values); n > len(r.vals) {
 		grown := make([]float64, n)
@@ -335,16 +336,23 @@ func mergeForecast(r *forecastRow, v *ForecastVector, known map[int64]bool, now 
 			r.late = append(r.late, make([]bool, n-len(r.late))...)
 		}
 	}
+	for len(r.lateVals) < len(r.vals) {
+		r.lateVals = append(r.lateVals, math.NaN())
+	}
 	step := r.se.step
 	for i, x := range v.Values {
 		if math.IsNaN(x) {
 			continue
 		}
 		old := r.vals[i]
+		known := known[step.Add(r.origin, i+1).UnixNano()]
 		switch {
-		case old == x:
+		case old == x, known && r.lateVals[i] == x:
 			ack.Duplicate++
-		case known[step.Add(r.origin, i+1).UnixNano()]:
+		case known:
+			// Late (method.md §3): stored, flagged and never scored — as
+			// the lead's value when it had none, else beside the scored
+			// value, which stays.
 			ack.Late++
 			if math.IsNaN(old) {
 				r.vals[i] = x
@@ -352,8 +360,10 @@ func mergeForecast(r *forecastRow, v *ForecastVector, known map[int64]bool, now 
 					r.late = make([]bool, len(r.vals))
 				}
 				r.late[i] = true
-				r.changed = true
+			} else {
+				r.lateVals[i] = x
 			}
+			r.changed = true
 		default:
 			ack.Accepted++
 			r.vals[i] = x
@@ -416,7 +426,7 @@ func loadForecasts(ctx context.Context, tx pgx.Tx, keys []forecastKey) (map[fore
 	for i, k := range keys {
 		ids[i], models[i], origins[i] = k.series, k.model, time.Unix(0, k.origin)
 	}
-	rows, err := tx.Query(ctx, `SELECT f.series_id, f.model, f.origin, f.vals, f.late, f.quantile_levels, f.quantile_vals, f.issued_at, f.first_received_at
+	rows, err := tx.Query(ctx, `SELECT f.series_id, f.model, f.origin, f.vals, f.late, f.late_vals, f.quantile_levels, f.quantile_vals, f.issued_at, f.first_received_at
 		FROM forecasts f JOIN (SELECT DISTINCT * FROM unnest($1::bigint[], $2::text[], $3::timestamptz[])) AS k(series_id, model, origin)
 		USING (series_id, model, origin)`, ids, models, origins)
 	if err != nil {
@@ -429,13 +439,14 @@ func loadForecasts(ctx context.Context, tx pgx.Tx, keys []forecastKey) (map[fore
 			id     int64
 			r      = &forecastRow{exists: true}
 			vals   []pgtype.Float8
+			lateV  []pgtype.Float8
 			qVals  [][]pgtype.Float8
 			issued pgtype.Timestamptz
 		)
-		if err := rows.Scan(&id, &r.model, &r.origin, &vals, &r.late, &r.qLevels, &qVals, &issued, &r.firstRecv); err != nil {
+		if err := rows.Scan(&id, &r.model, &r.origin, &vals, &r.late, &lateV, &r.qLevels, &qVals, &issued, &r.firstRecv); err != nil {
 			return nil, fmt.Errorf("reading stored forecasts: %w", err)
 		}
-		r.vals = fromFloat8(vals)
+		r.vals, r.lateVals = fromFloat8(vals), fromFloat8(lateV)
 		for _, q := range qVals {
 			r.qVals = append(r.qVals, fromFloat8(q))
 		}
@@ -516,7 +527,7 @@ func fromFloat8(xs []pgtype.Float8) []float64 {
 	return out
 }
 
-var stageColumns = []string{"series_id", "model", "origin", "vals", "late", "quantile_levels", "quantile_vals", "issued_at", "first_received_at", "received_at"}
+var stageColumns = []string{"series_id", "model", "origin", "vals", "late", "quantile_levels", "quantile_vals", "issued_at", "first_received_at", "received_at", "late_vals"}
 
 // storeForecasts writes the changed rows: COPY into a session-local staging
 // table, then one upsert. COPY is the fastest way in; the upsert keeps the
@@ -540,7 +551,11 @@ func storeForecasts(ctx context.Context, tx pgx.Tx, rows map[forecastKey]*foreca
 			}
 			qVals = q
 		}
-		row := []any{r.se.ID, r.model, r.origin, toFloat8(r.vals), late, qLevels, qVals, r.issuedAt, r.firstRecv, now}
+		var lateVals any
+		if countPoints(r.lateVals) > 0 {
+			lateVals = toFloat8(padTo(r.lateVals, len(r.vals)))
+		}
+		row := []any{r.se.ID, r.model, r.origin, toFloat8(r.vals), late, qLevels, qVals, r.issuedAt, r.firstRecv, now, lateVals}
 		if r.exists {
 			src = append(src, row)
 		} else {
@@ -564,7 +579,7 @@ func storeForecasts(ctx context.Context, tx pgx.Tx, rows map[forecastKey]*foreca
 		return fmt.Errorf("copying forecasts: %w", err)
 	}
 	_, err := tx.Exec(ctx, `INSERT INTO forecasts SELECT * FROM forecast_stage
-		ON CONFLICT (series_id, model, origin) DO UPDATE SET vals = excluded.vals, late = excluded.late,
+		ON CONFLICT (series_id, model, origin) DO UPDATE SET vals = excluded.vals, late = excluded.late, late_vals = excluded.late_vals,
 			quantile_levels = excluded.quantile_levels, quantile_vals = excluded.quantile_vals,
 			issued_at = excluded.issued_at, received_at = excluded.received_at`)
 	if err != nil {

@@ -7,6 +7,7 @@ import (
 	"encoding/binary"
 	"errors"
 	"fmt"
+	"hash/fnv"
 	"math"
 	"slices"
 	"time"
@@ -36,6 +37,10 @@ type Pair struct {
 	ForecastReceivedAt  time.Time
 	ActualFirstReceived time.Time
 	Late                bool // excluded from scoring by the hindsight guard
+	// Reissue marks a late re-issue: a value that arrived after the actual
+	// and is stored beside the scored value of the same origin and lead,
+	// which it did not replace. It is late too, and listed after it.
+	Reissue bool
 }
 
 func (s *Store) checkSelection(se *Series, sel *Selection) error {
@@ -79,6 +84,7 @@ type storedForecast struct {
 	origin   time.Time
 	vals     []float64
 	late     []bool
+	lateVals []float64 // late re-issues beside scored values (method.md §3)
 	received time.Time
 }
 
@@ -153,6 +159,13 @@ func (s *Store) walk(ctx context.Context, se *Series, model string, sel *Selecti
 				if !fn(p) {
 					return nil
 				}
+				// A late re-issue follows the value it did not replace.
+				if i < len(f.lateVals) && !math.IsNaN(f.lateVals[i]) {
+					p.Forecast, p.Late, p.Reissue = f.lateVals[i], true, true
+					if !fn(p) {
+						return nil
+					}
+				}
 			}
 		}
 		if len(fs) < chunk {
@@ -195,10 +208,6 @@ func orMax(t time.Time) time.Time {
 // the end.
 type leadSpan struct{ first, last int }
 
-func readForecastsQ(ctx context.Context, q querier, seriesID int64, model string, lo, hi time.Time, desc bool) ([]storedForecast, error) {
-	return readForecastSpan(ctx, q, seriesID, model, lo, hi, desc, leadSpan{1, 0}, chunkOrigins)
-}
-
 // readForecastSpan reads up to limit vectors, only their leads in span:
 // element i of vals and late is lead span.first+i.
 func readForecastSpan(ctx context.Context, q querier, seriesID int64, model string, lo, hi time.Time, desc bool, span leadSpan, limit int) ([]storedForecast, error) {
@@ -206,9 +215,9 @@ func readForecastSpan(ctx context.Context, q querier, seriesID int64, model stri
 	if desc {
 		order = "DESC"
 	}
-	cols, args := "vals, late", []any{seriesID, model, orMin(lo), orMax(hi), limit}
+	cols, args := "vals, late, late_vals", []any{seriesID, model, orMin(lo), orMax(hi), limit}
 	if span.first > 1 || span.last > 0 {
-		cols, args = "vals[$6:$7], late[$6:$7]", append(args, span.first, cmp.Or(span.last, math.MaxInt32))
+		cols, args = "vals[$6:$7], late[$6:$7], late_vals[$6:$7]", append(args, span.first, cmp.Or(span.last, math.MaxInt32))
 	}
 	rows, err := q.Query(ctx, `SELECT origin, `+cols+`, received_at FROM forecasts
 		WHERE series_id = $1 AND model = $2 AND origin >= $3 AND origin < $4
@@ -220,11 +229,11 @@ func readForecastSpan(ctx context.Context, q querier, seriesID int64, model stri
 	var out []storedForecast
 	for rows.Next() {
 		var f storedForecast
-		var vals []pgtype.Float8
-		if err := rows.Scan(&f.origin, &vals, &f.late, &f.received); err != nil {
+		var vals, lateVals []pgtype.Float8
+		if err := rows.Scan(&f.origin, &vals, &f.late, &lateVals, &f.received); err != nil {
 			return nil, fmt.Errorf("reading forecasts: %w", err)
 		}
-		f.vals = fromFloat8(vals)
+		f.vals, f.lateVals = fromFloat8(vals), fromFloat8(lateVals)
 		out = append(out, f)
 	}
 	return out, rows.Err()
@@ -273,26 +282,44 @@ func (s *Store) selectPairs(ctx context.Context, se *Series, model string, sel *
 	}
 	var got []Pair
 	budget := s.limits.MaxScanPairs
+	// filled[h] is the origin whose pair filled lead h's window: a late
+	// re-issue beside that pair is listed with it, as in ascending order.
+	filled := map[int]time.Time{}
+	var last time.Time
 	err := s.walk(ctx, se, model, sel, true, time.Time{}, func(p Pair) bool {
+		if len(need) == 0 && !p.Origin.Equal(last) {
+			return false
+		}
 		budget--
-		if need[p.Lead] > 0 {
+		switch {
+		case need[p.Lead] > 0:
 			got = append(got, p)
 			if !p.Late {
 				if need[p.Lead]--; need[p.Lead] == 0 {
 					delete(need, p.Lead)
+					filled[p.Lead], last = p.Origin, p.Origin
 				}
 			}
+		case p.Reissue && filled[p.Lead].Equal(p.Origin):
+			got = append(got, p)
 		}
-		return len(need) > 0 && budget > 0
+		return budget > 0
 	})
 	if err != nil {
 		return err
 	}
 	slices.SortFunc(got, func(a, b Pair) int {
-		if c := a.Origin.Compare(b.Origin); c != 0 {
-			return c
+		switch {
+		case !a.Origin.Equal(b.Origin):
+			return a.Origin.Compare(b.Origin)
+		case a.Lead != b.Lead:
+			return a.Lead - b.Lead
+		case a.Reissue == b.Reissue:
+			return 0
+		case a.Reissue:
+			return 1
 		}
-		return a.Lead - b.Lead
+		return -1
 	})
 	for _, p := range got {
 		if !fn(p) {
@@ -370,14 +397,16 @@ func (s *Store) Pairs(ctx context.Context, key, model string, sel Selection, pag
 	if pageSize <= 0 || pageSize > s.limits.MaxPageSize {
 		pageSize = min(1000, s.limits.MaxPageSize)
 	}
-	after, afterLead, err := decodeToken(pageToken)
+	req := requestHash(key, model, sel)
+	pos, err := decodeToken(pageToken, req)
 	if err != nil {
 		return nil, "", err
 	}
+	after := pos.origin
 	var page []Pair
 	more := false
 	fn := func(p Pair) bool {
-		if !after.IsZero() && (p.Origin.Before(after) || p.Origin.Equal(after) && p.Lead <= afterLead) {
+		if pageToken != "" && !pos.before(p) {
 			return true
 		}
 		if len(page) == pageSize {
@@ -397,29 +426,70 @@ func (s *Store) Pairs(ctx context.Context, key, model string, sel Selection, pag
 	}
 	next := ""
 	if more {
-		last := page[len(page)-1]
-		next = encodeToken(last.Origin, last.Lead)
+		next = encodeToken(positionOf(page[len(page)-1]), req)
 	}
 	return page, next, nil
 }
 
-func encodeToken(origin time.Time, lead int) string {
-	b := binary.AppendVarint(nil, origin.UnixNano())
-	b = binary.AppendUvarint(b, uint64(lead))
+// pairPosition is where a page of pairs ended: the last pair's origin,
+// lead, and whether it was a late re-issue (listed after the lead's value).
+type pairPosition struct {
+	origin  time.Time
+	lead    int
+	reissue bool
+}
+
+func positionOf(p Pair) pairPosition { return pairPosition{p.Origin, p.Lead, p.Reissue} }
+
+// before reports whether the position lies before pair p in listing order.
+func (q pairPosition) before(p Pair) bool {
+	switch {
+	case !q.origin.Equal(p.Origin):
+		return q.origin.Before(p.Origin)
+	case q.lead != p.Lead:
+		return q.lead < p.Lead
+	}
+	return !q.reissue && p.Reissue
+}
+
+// requestHash ties a page token to the request it continues, so that a
+// token of another series or selection is refused instead of silently
+// skipping pairs.
+func requestHash(key, model string, sel Selection) uint32 {
+	h := fnv.New32a()
+	fmt.Fprintf(h, "%s\x00%s\x00%d\x00%d\x00%d\x00%d\x00%v\x00%d", key, model, sel.OriginFrom.UnixMicro(), sel.OriginTo.UnixMicro(),
+		sel.TargetFrom.UnixMicro(), sel.TargetTo.UnixMicro(), sel.Leads, sel.Window)
+	return h.Sum32()
+}
+
+// encodeToken is an opaque page token: the position and the request's hash.
+func encodeToken(p pairPosition, req uint32) string {
+	b := binary.AppendVarint(nil, p.origin.UnixNano())
+	b = binary.AppendUvarint(b, uint64(p.lead))
+	sub := uint64(0)
+	if p.reissue {
+		sub = 1
+	}
+	b = binary.AppendUvarint(b, sub)
+	b = binary.LittleEndian.AppendUint32(b, req)
 	return base64.RawURLEncoding.EncodeToString(b)
 }
 
-func decodeToken(tok string) (time.Time, int, error) {
+func decodeToken(tok string, req uint32) (pairPosition, error) {
 	if tok == "" {
-		return time.Time{}, 0, nil
+		return pairPosition{}, nil
 	}
 	b, err := base64.RawURLEncoding.DecodeString(tok)
 	if err == nil {
 		ns, n := binary.Varint(b)
 		lead, m := binary.Uvarint(b[max(n, 0):])
-		if n > 0 && m > 0 && n+m == len(b) && lead < 1<<20 {
-			return time.Unix(0, ns).UTC(), int(lead), nil
+		sub, k := binary.Uvarint(b[max(n+m, 0):])
+		if n > 0 && m > 0 && k > 0 && n+m+k+4 == len(b) && lead < 1<<20 && sub <= 1 && ns >= MinTime.UnixNano() && ns < MaxTime.UnixNano() {
+			if binary.LittleEndian.Uint32(b[n+m+k:]) != req {
+				return pairPosition{}, invalid("page_token", "this token continues another request (another series, model or selection): repeat that request, or start this one without a page token")
+			}
+			return pairPosition{time.Unix(0, ns).UTC(), int(lead), sub == 1}, nil
 		}
 	}
-	return time.Time{}, 0, invalid("page_token", "not a token this service issued")
+	return pairPosition{}, invalid("page_token", "not a token this service issued: start without a page token and pass on next_page_token")
 }

@@ -7,6 +7,7 @@ import (
 	"math"
 	"os"
 	"slices"
+	"strings"
 	"testing"
 	"time"
 
@@ -214,9 +215,14 @@ func TestReissueAndRevision(t *testing.T) {
 	if a := act(t0.Add(h), 12); a.Accepted != 1 {
 		t.Fatalf("actual %+v", a)
 	}
-	// Re-issue: lead 1's actual is known, so 11 is not applied (late); leads 2, 3 change.
+	// Re-issue: lead 1's actual is known, so 11 is stored beside the scored
+	// 10 as late (method.md §3); leads 2, 3 change.
 	if a := write(store.ForecastVector{Series: "p", Model: "m", Origin: t0, Values: []float64{11, 21, 30}}); a.Late != 1 || a.Accepted != 1 || a.Duplicate != 1 {
 		t.Fatalf("re-issue %+v, want 1 late 1 accepted 1 duplicate", a)
+	}
+	// Pushing that late value again is a duplicate; another one replaces it, late again.
+	if a := write(store.ForecastVector{Series: "p", Model: "m", Origin: t0, Values: []float64{11}}); a.Duplicate != 1 || a.Late != 0 {
+		t.Fatalf("late re-issue pushed again %+v, want 1 duplicate", a)
 	}
 	act(t0.Add(2*h), 25)
 	if a := act(t0.Add(2*h), 25); a.Duplicate != 1 {
@@ -234,16 +240,31 @@ func TestReissueAndRevision(t *testing.T) {
 	if !sameTable(res.Table, want) {
 		t.Errorf("table %+v, want %+v", res.Table, want)
 	}
+	if res.Late != 1 || res.LateBy[1] != 1 {
+		t.Errorf("late %d (by lead %v), want the late re-issue of lead 1", res.Late, res.LateBy)
+	}
+	// The pairs list the scored value, the late re-issue beside it, then
+	// lead 2, a page each.
 	pairs, next, err := s.Pairs(ctx, "p", "m", store.Selection{}, "", 1)
-	if err != nil || len(pairs) != 1 || next == "" || pairs[0].Lead != 1 {
+	if err != nil || len(pairs) != 1 || next == "" || pairs[0].Lead != 1 || pairs[0].Forecast != 10 || pairs[0].Late {
 		t.Fatalf("page 1: %+v %q %v", pairs, next, err)
+	}
+	first := next
+	pairs, next, err = s.Pairs(ctx, "p", "m", store.Selection{}, next, 1)
+	if err != nil || len(pairs) != 1 || next == "" || pairs[0].Lead != 1 || pairs[0].Forecast != 11 || !pairs[0].Late || !pairs[0].Reissue {
+		t.Fatalf("page 2: %+v %q %v", pairs, next, err)
 	}
 	pairs, next, err = s.Pairs(ctx, "p", "m", store.Selection{}, next, 1)
 	if err != nil || len(pairs) != 1 || next != "" || pairs[0].Lead != 2 || pairs[0].Actual != 19 {
-		t.Fatalf("page 2: %+v %q %v", pairs, next, err)
+		t.Fatalf("page 3: %+v %q %v", pairs, next, err)
 	}
-	if _, _, err := s.Pairs(ctx, "p", "m", store.Selection{}, "garbage!", 1); err == nil {
-		t.Error("bad page token accepted")
+	var inv *store.InvalidError
+	if _, _, err := s.Pairs(ctx, "p", "m", store.Selection{}, "garbage!", 1); !errors.As(err, &inv) || !strings.Contains(err.Error(), "not a token this service issued") {
+		t.Errorf("bad page token: %v", err)
+	}
+	// A token continues only its own request.
+	if _, _, err := s.Pairs(ctx, "p", "m", store.Selection{Leads: []int{2}}, first, 1); !errors.As(err, &inv) || !strings.Contains(err.Error(), "continues another request") {
+		t.Errorf("a token of another selection: %v", err)
 	}
 }
 

@@ -674,7 +674,13 @@ type Pair struct {
 	// True when the forecast arrived after the target's actual was already
 	// known (forecast_receive_time after actual_first_receive_time): the pair
 	// is excluded from live accuracy and drift.
-	Late          bool `protobuf:"varint,9,opt,name=late,proto3" json:"late,omitempty"`
+	Late bool `protobuf:"varint,9,opt,name=late,proto3" json:"late,omitempty"`
+	// True for a late re-issue (method.md §3): a value re-issued for this
+	// origin and lead after the actual was known, stored beside the value in
+	// use, which it did not replace. It is listed right after that value,
+	// with late set and the vector's latest receive time; pushing it again is
+	// a duplicate, and a later re-issue replaces it.
+	LateReissue   bool `protobuf:"varint,10,opt,name=late_reissue,json=lateReissue,proto3" json:"late_reissue,omitempty"`
 	unknownFields protoimpl.UnknownFields
 	sizeCache     protoimpl.SizeCache
 }
@@ -772,6 +778,13 @@ func (x *Pair) GetLate() bool {
 	return false
 }
 
+func (x *Pair) GetLateReissue() bool {
+	if x != nil {
+		return x.LateReissue
+	}
+	return false
+}
+
 var File_aftercast_v1_accuracy_proto protoreflect.FileDescriptor
 
 const file_aftercast_v1_accuracy_proto_rawDesc = "" +
@@ -821,7 +834,7 @@ const file_aftercast_v1_accuracy_proto_rawDesc = "" +
 	"page_token\x18\x05 \x01(\tR\tpageToken\"e\n" +
 	"\x11ListPairsResponse\x12(\n" +
 	"\x05pairs\x18\x01 \x03(\v2\x12.aftercast.v1.PairR\x05pairs\x12&\n" +
-	"\x0fnext_page_token\x18\x02 \x01(\tR\rnextPageToken\"\x99\x03\n" +
+	"\x0fnext_page_token\x18\x02 \x01(\tR\rnextPageToken\"\xbc\x03\n" +
 	"\x04Pair\x12;\n" +
 	"\vorigin_time\x18\x01 \x01(\v2\x1a.google.protobuf.TimestampR\n" +
 	"originTime\x12;\n" +
@@ -833,7 +846,9 @@ const file_aftercast_v1_accuracy_proto_rawDesc = "" +
 	"\x05error\x18\x06 \x01(\x01R\x05error\x12N\n" +
 	"\x15forecast_receive_time\x18\a \x01(\v2\x1a.google.protobuf.TimestampR\x13forecastReceiveTime\x12U\n" +
 	"\x19actual_first_receive_time\x18\b \x01(\v2\x1a.google.protobuf.TimestampR\x16actualFirstReceiveTime\x12\x12\n" +
-	"\x04late\x18\t \x01(\bR\x04late2\xb3\x01\n" +
+	"\x04late\x18\t \x01(\bR\x04late\x12!\n" +
+	"\flate_reissue\x18\n" +
+	" \x01(\bR\vlateReissue2\xb3\x01\n" +
 	"\x0fAccuracyService\x12R\n" +
 	"\vGetAccuracy\x12 .aftercast.v1.GetAccuracyRequest\x1a!.aftercast.v1.GetAccuracyResponse\x12L\n" +
 	"\tListPairs\x12\x1e.aftercast.v1.ListPairsRequest\x1a\x1f.aftercast.v1.ListPairsResponseB=Z;github.com/aftercast/aftercast/api/aftercast/v1;aftercastv1b\x06proto3"

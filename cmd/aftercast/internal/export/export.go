@@ -19,7 +19,7 @@ import (
 
 // PairColumns is the CSV header, and the key order of a JSON pair.
 var PairColumns = []string{"series", "model", "origin_time", "target_time", "lead", "forecast", "actual", "error",
-	"late", "forecast_received_at", "actual_first_received_at"}
+	"late", "forecast_received_at", "actual_first_received_at", "late_reissue"}
 
 // Formats lists the formats NewPairs accepts.
 var Formats = []string{"csv", "json"}
@@ -45,6 +45,7 @@ type jsonPair struct {
 	Late                  bool    `json:"late"`
 	ForecastReceivedAt    string  `json:"forecast_received_at"`
 	ActualFirstReceivedAt string  `json:"actual_first_received_at"`
+	LateReissue           bool    `json:"late_reissue"` // a late value stored beside the one in use (method.md §3)
 }
 
 // NewPairs starts an export in format (csv or json) by writing the CSV
@@ -75,12 +76,14 @@ func (p *Pairs) Write(pr *aftercastv1.Pair) error {
 		num := func(x float64) string { return strconv.FormatFloat(x, 'g', -1, 64) }
 		return p.csv.Write([]string{p.series, p.model, stamp(pr.GetOriginTime()), stamp(pr.GetTargetTime()),
 			strconv.Itoa(int(pr.GetLead())), num(pr.GetForecast()), num(pr.GetActual()), num(pr.GetError()),
-			strconv.FormatBool(pr.GetLate()), stamp(pr.GetForecastReceiveTime()), stamp(pr.GetActualFirstReceiveTime())})
+			strconv.FormatBool(pr.GetLate()), stamp(pr.GetForecastReceiveTime()), stamp(pr.GetActualFirstReceiveTime()),
+			strconv.FormatBool(pr.GetLateReissue())})
 	}
 	b, err := json.Marshal(jsonPair{
 		Series: p.series, Model: p.model, OriginTime: stamp(pr.GetOriginTime()), TargetTime: stamp(pr.GetTargetTime()),
 		Lead: pr.GetLead(), Forecast: pr.GetForecast(), Actual: pr.GetActual(), Error: pr.GetError(), Late: pr.GetLate(),
 		ForecastReceivedAt: stamp(pr.GetForecastReceiveTime()), ActualFirstReceivedAt: stamp(pr.GetActualFirstReceiveTime()),
+		LateReissue: pr.GetLateReissue(),
 	})
 	if err != nil {
 		return fmt.Errorf("encoding pair: %w", err)

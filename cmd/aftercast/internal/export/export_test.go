@@ -23,7 +23,7 @@ func pairs() []*aftercastv1.Pair {
 		{OriginTime: ts("2026-01-01T00:00:00Z"), TargetTime: ts("2026-01-01T01:00:00+01:00"), Lead: 1, Forecast: 0.1, Actual: 0.30000000000000004,
 			Error: 0.20000000000000004, ForecastReceiveTime: ts("2026-01-01T00:00:01.5Z"), ActualFirstReceiveTime: ts("2026-01-01T01:00:07Z")},
 		{OriginTime: ts("2026-01-01T00:00:00Z"), TargetTime: ts("2026-01-01T02:00:00Z"), Lead: 2, Forecast: 1e21, Actual: -3, Error: -1e21,
-			Late: true, ForecastReceiveTime: ts("2026-01-02T00:00:00Z"), ActualFirstReceiveTime: ts("2026-01-01T02:00:00Z")},
+			Late: true, LateReissue: true, ForecastReceiveTime: ts("2026-01-02T00:00:00Z"), ActualFirstReceiveTime: ts("2026-01-01T02:00:00Z")},
 	}
 }
 
@@ -47,9 +47,9 @@ func write(t *testing.T, format string, ps []*aftercastv1.Pair) string {
 
 func TestCSV(t *testing.T) {
 	t.Parallel()
-	want := "series,model,origin_time,target_time,lead,forecast,actual,error,late,forecast_received_at,actual_first_received_at\n" +
-		"plant-7/heat,m1,2026-01-01T00:00:00Z,2026-01-01T00:00:00Z,1,0.1,0.30000000000000004,0.20000000000000004,false,2026-01-01T00:00:01.5Z,2026-01-01T01:00:07Z\n" +
-		"plant-7/heat,m1,2026-01-01T00:00:00Z,2026-01-01T02:00:00Z,2,1e+21,-3,-1e+21,true,2026-01-02T00:00:00Z,2026-01-01T02:00:00Z\n"
+	want := "series,model,origin_time,target_time,lead,forecast,actual,error,late,forecast_received_at,actual_first_received_at,late_reissue\n" +
+		"plant-7/heat,m1,2026-01-01T00:00:00Z,2026-01-01T00:00:00Z,1,0.1,0.30000000000000004,0.20000000000000004,false,2026-01-01T00:00:01.5Z,2026-01-01T01:00:07Z,false\n" +
+		"plant-7/heat,m1,2026-01-01T00:00:00Z,2026-01-01T02:00:00Z,2,1e+21,-3,-1e+21,true,2026-01-02T00:00:00Z,2026-01-01T02:00:00Z,true\n"
 	if got := write(t, "csv", pairs()); got != want {
 		t.Errorf("CSV\n%s\nwant\n%s", got, want)
 	}
@@ -73,7 +73,7 @@ func TestJSON(t *testing.T) {
 			t.Errorf("pair lacks key %q", k)
 		}
 	}
-	if p["actual"] != 0.30000000000000004 || p["target_time"] != "2026-01-01T00:00:00Z" || p["late"] != false || doc.Pairs[1]["late"] != true {
+	if p["actual"] != 0.30000000000000004 || p["target_time"] != "2026-01-01T00:00:00Z" || p["late"] != false || doc.Pairs[1]["late"] != true || doc.Pairs[1]["late_reissue"] != true {
 		t.Errorf("first pair %v", p)
 	}
 	// Keys come in the CSV's column order.

@@ -1,0 +1,1 @@
+ALTER TABLE forecasts DROP COLUMN late_vals;
