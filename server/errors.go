@@ -3,9 +3,14 @@ package server
 import (
 	"context"
 	"errors"
+	"io"
 	"log/slog"
+	"net"
+	"strings"
+	"syscall"
 
 	"github.com/jackc/pgx/v5/pgconn"
+	"github.com/jackc/puddle/v2"
 	"google.golang.org/genproto/googleapis/rpc/errdetails"
 	"google.golang.org/grpc/codes"
 	"google.golang.org/grpc/status"
@@ -33,12 +38,35 @@ func toStatus(ctx context.Context, log *slog.Logger, err error) error {
 		return status.Error(codes.Canceled, "request cancelled")
 	case errors.Is(err, context.DeadlineExceeded):
 		return status.Error(codes.DeadlineExceeded, "deadline exceeded")
-	case errors.As(err, &ce):
+	case errors.As(err, &ce), dbUnavailable(err):
 		log.ErrorContext(ctx, "database unreachable", "err", err)
 		return status.Error(codes.Unavailable, "database unavailable, retry later")
 	}
 	log.ErrorContext(ctx, "internal error", "err", err)
 	return status.Error(codes.Internal, "internal error")
+}
+
+// dbUnavailable reports whether err says the database went away or is not
+// accepting work yet — connection lost mid-statement, administrator or
+// crash shutdown, recovery, too many connections, the pool closed at
+// shutdown — rather than that the request was wrong: a client should retry
+// (Unavailable), and an acknowledged write was either committed or not
+// acknowledged.
+func dbUnavailable(err error) bool {
+	var pe *pgconn.PgError
+	if errors.As(err, &pe) {
+		switch {
+		case strings.HasPrefix(pe.Code, "08"), // connection exception
+			pe.Code == "57P01", pe.Code == "57P02", pe.Code == "57P03", // admin, crash shutdown; cannot connect now
+			pe.Code == "53300": // too many connections
+			return true
+		}
+		return false
+	}
+	var ne net.Error
+	return errors.As(err, &ne) || errors.Is(err, io.ErrUnexpectedEOF) || errors.Is(err, io.EOF) ||
+		errors.Is(err, syscall.ECONNRESET) || errors.Is(err, syscall.ECONNREFUSED) || errors.Is(err, puddle.ErrClosedPool) ||
+		pgconn.SafeToRetry(err)
 }
 
 // badRequest is InvalidArgument with google.rpc.BadRequest field

@@ -25,9 +25,8 @@ func (s *Server) httpHandler() http.Handler {
 	mux.HandleFunc("GET /healthz", func(w http.ResponseWriter, _ *http.Request) {
 		w.Write([]byte("ok\n"))
 	})
-	ready := &readiness{srv: s}
 	mux.HandleFunc("GET /readyz", func(w http.ResponseWriter, r *http.Request) {
-		if err := ready.check(r.Context()); err != nil {
+		if err := s.ready.check(r.Context()); err != nil {
 			http.Error(w, "database unavailable", http.StatusServiceUnavailable)
 			return
 		}
@@ -43,12 +42,20 @@ type slogPrinter struct{ s *Server }
 func (p slogPrinter) Println(v ...any) { p.s.log.Error("metrics exposition", "err", v) }
 
 // readiness caches the database ping for a second, so that a probe storm
-// does not become a query storm.
+// does not become a query storm. A request that finds the database gone
+// drops the cache (lost), so that a success is never served across it.
 type readiness struct {
 	srv  *Server
 	mu   sync.Mutex
 	at   time.Time
 	last error
+}
+
+// lost forgets the cached result: the next probe pings again.
+func (r *readiness) lost() {
+	r.mu.Lock()
+	r.at = time.Time{}
+	r.mu.Unlock()
 }
 
 func (r *readiness) check(ctx context.Context) error {

@@ -21,11 +21,18 @@ type api struct {
 	// stopping is closed when the server starts shutting down, to end
 	// long-lived streams.
 	stopping chan struct{}
+	// dbLost is called when a request finds the database gone.
+	dbLost func()
 }
 
 func (a *api) metrics() *metrics { return a.m }
 
-func (a *api) status(ctx context.Context, err error) error { return toStatus(ctx, a.log, err) }
+func (a *api) status(ctx context.Context, err error) error {
+	if a.dbLost != nil && dbUnavailable(err) {
+		a.dbLost()
+	}
+	return toStatus(ctx, a.log, err)
+}
 
 type seriesService struct {
 	*api

@@ -12,6 +12,8 @@ import (
 	"net"
 	"net/http"
 	"path/filepath"
+	"runtime"
+	"strings"
 	"sync"
 	"time"
 
@@ -44,6 +46,9 @@ type Config struct {
 	DatabaseURL string
 	DataDir     string // for the private cluster; default under the user's state directory
 	SkipMigrate bool   // do not apply migrations at start (run `aftercast migrate` instead)
+	// DBMaxConns is the size of the PostgreSQL pool. Zero: the URL's
+	// pool_max_conns when it sets one, else DefaultDBMaxConns.
+	DBMaxConns int
 
 	// Retention deletes forecasts and actuals older than this, checked
 	// hourly. Zero keeps everything.
@@ -112,6 +117,7 @@ type Server struct {
 	grpcLis  net.Listener
 	httpLis  net.Listener
 	serveErr chan error
+	ready    *readiness
 	stopOnce sync.Once
 	bg       sync.WaitGroup
 	bgStop   context.CancelFunc
@@ -124,9 +130,19 @@ func New(cfg Config) (*Server, error) {
 	if err != nil {
 		return nil, err
 	}
-	return &Server{cfg: cfg, log: cfg.Logger, serveErr: make(chan error, 2),
-		metrics: newMetrics(cfg.Registry, cfg.Logger, leads, cfg.MetricsMaxSeries)}, nil
+	s := &Server{cfg: cfg, log: cfg.Logger, serveErr: make(chan error, 2),
+		metrics: newMetrics(cfg.Registry, cfg.Logger, leads, cfg.MetricsMaxSeries)}
+	s.ready = &readiness{srv: s}
+	return s, nil
 }
+
+// DefaultDBMaxConns is the pool size unless configured: pgx's own default
+// is max(4, CPUs), which left 16 concurrent producers queueing for 4
+// connections on two cores (a push waited seconds for one). A push holds a
+// connection for one transaction at a time; 16 lets that many producers and
+// the evaluator's workers proceed at once, far below PostgreSQL's default
+// max_connections of 100.
+func DefaultDBMaxConns() int32 { return int32(max(16, 4*runtime.NumCPU())) }
 
 // DefaultDataDir is where `aftercast serve` keeps its private cluster when
 // no database URL is given.
@@ -169,6 +185,12 @@ func (s *Server) Start(ctx context.Context) (err error) {
 	pcfg, err := pgxpool.ParseConfig(url)
 	if err != nil {
 		return fmt.Errorf("database URL: %w", err) // pgconn redacts the password
+	}
+	switch {
+	case s.cfg.DBMaxConns > 0:
+		pcfg.MaxConns = int32(s.cfg.DBMaxConns)
+	case !strings.Contains(url, "pool_max_conns"):
+		pcfg.MaxConns = DefaultDBMaxConns()
 	}
 	if s.pool, err = pgxpool.NewWithConfig(ctx, pcfg); err != nil {
 		return fmt.Errorf("opening database pool: %w", err)
@@ -264,7 +286,7 @@ func (s *Server) newGRPC() *grpc.Server {
 			recovery.StreamServerInterceptor(recoverOpt),
 		),
 	)
-	api := &api{store: s.store, drift: s.drift, log: s.log, m: s.metrics, stopping: make(chan struct{})}
+	api := &api{store: s.store, drift: s.drift, log: s.log, m: s.metrics, stopping: make(chan struct{}), dbLost: s.ready.lost}
 	s.api = api
 	aftercastv1.RegisterSeriesServiceServer(srv, &seriesService{api: api})
 	aftercastv1.RegisterForecastServiceServer(srv, &forecastService{api: api})
@@ -272,6 +294,7 @@ func (s *Server) newGRPC() *grpc.Server {
 	aftercastv1.RegisterAccuracyServiceServer(srv, &accuracyService{api: api})
 	aftercastv1.RegisterBaselineServiceServer(srv, &baselineService{api: api})
 	aftercastv1.RegisterDriftServiceServer(srv, &driftService{api: api})
+	aftercastv1.RegisterInfoServiceServer(srv, &infoService{api: api, maxMessageBytes: s.cfg.MaxMessageBytes})
 	s.health = health.NewServer()
 	healthpb.RegisterHealthServer(srv, s.health)
 	for name := range srv.GetServiceInfo() {

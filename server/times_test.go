@@ -1,13 +1,18 @@
 package server_test
 
 import (
+	"context"
+	"net/http"
 	"strings"
 	"testing"
 	"time"
 
+	"google.golang.org/grpc/codes"
+	"google.golang.org/grpc/status"
 	"google.golang.org/protobuf/types/known/timestamppb"
 
 	aftercastv1 "github.com/aftercast/aftercast/api/aftercast/v1"
+	"github.com/aftercast/aftercast/server/pglocal"
 	"github.com/aftercast/aftercast/server/store/storetest"
 )
 
@@ -57,5 +62,44 @@ func TestPushRefusesTimesOutsideRangeAndGrid(t *testing.T) {
 	_, as, err := srv.Store().Freshness(ctx)
 	if err != nil || len(as) != 1 || !as[0].LastTime.Equal(time.Date(1900, 1, 1, 0, 0, 0, 0, time.UTC)) {
 		t.Errorf("freshness %+v %v", as, err)
+	}
+}
+
+// With PostgreSQL gone mid-session (shut down under the running service),
+// a push fails with Unavailable — which clients retry — not Internal, and
+// /readyz reports the database down instead of a cached success.
+func TestPushWithTheDatabaseGoneIsUnavailable(t *testing.T) {
+	t.Parallel()
+	ctx := ctxT(t)
+	cl, err := pglocal.Start(ctx, pglocal.Options{Logger: storetest.Logger(t)})
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(func() { _ = cl.Stop(context.Background()) })
+	srv, c := start(t, cl.URL("postgres"))
+	if _, err := c.series.CreateSeries(ctx, &aftercastv1.CreateSeriesRequest{Series: &aftercastv1.Series{Key: "u", Step: "1h", Horizon: 1}}); err != nil {
+		t.Fatal(err)
+	}
+	ready := func() int {
+		resp, err := http.Get("http://" + srv.MetricsAddr() + "/readyz")
+		if err != nil {
+			t.Fatal(err)
+		}
+		resp.Body.Close()
+		return resp.StatusCode
+	}
+	if code := ready(); code != http.StatusOK {
+		t.Fatalf("readyz before: %d", code)
+	}
+	if err := cl.Stop(ctx); err != nil {
+		t.Fatal(err)
+	}
+	_, err = c.actual.PushActuals(ctx, &aftercastv1.PushActualsRequest{Actuals: []*aftercastv1.Actual{
+		{Series: "u", Time: timestamppb.New(time.Date(2026, 1, 1, 0, 0, 0, 0, time.UTC)), Value: 1}}})
+	if status.Code(err) != codes.Unavailable {
+		t.Errorf("push with the database gone: %v, want Unavailable", err)
+	}
+	if code := ready(); code != http.StatusServiceUnavailable {
+		t.Errorf("readyz with the database gone: %d, want 503", code)
 	}
 }

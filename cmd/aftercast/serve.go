@@ -32,6 +32,7 @@ func runServe(args []string, stdout, stderr io.Writer) error {
 	fs.IntVar(&cfg.Limits.MaxHorizon, "max-horizon", store.DefaultLimits.MaxHorizon, "largest horizon a series may have")
 	fs.IntVar(&cfg.Limits.MaxBatch, "max-batch", store.DefaultLimits.MaxBatch, "most forecast vectors or actuals in one message")
 	fs.IntVar(&cfg.MaxMessageBytes, "max-message-bytes", 16<<20, "largest gRPC message accepted")
+	fs.IntVar(&cfg.DBMaxConns, "db-max-conns", 0, fmt.Sprintf("PostgreSQL connections in the pool (default: the URL's pool_max_conns, else %d here)", server.DefaultDBMaxConns()))
 	fs.DurationVar(&cfg.ShutdownTimeout, "shutdown-timeout", 10*time.Second, "how long to drain RPCs at shutdown before cutting them")
 	fs.StringVar(&cfg.MetricsLeads, "metrics-leads", "decision", "leads with per-lead metric families: decision (each series' decision leads), all, or a list such as 1-24,48")
 	fs.IntVar(&cfg.MetricsMaxSeries, "metrics-max-series", 2000, "at most this many (series, model) pairs get per-lead metric families, in key order (-1: no cap; 0: the default)")

@@ -340,6 +340,7 @@ func mergeForecast(r *forecastRow, v *ForecastVector, known map[int64]bool, now 
 		r.lateVals = append(r.lateVals, math.NaN())
 	}
 	step := r.se.step
+	inUse := false // a value in use changed: the vector's issue time and quantiles follow this push
 	for i, x := range v.Values {
 		if math.IsNaN(x) {
 			continue
@@ -360,6 +361,7 @@ func mergeForecast(r *forecastRow, v *ForecastVector, known map[int64]bool, now 
 					r.late = make([]bool, len(r.vals))
 				}
 				r.late[i] = true
+				inUse = true
 			} else {
 				r.lateVals[i] = x
 			}
@@ -370,10 +372,10 @@ func mergeForecast(r *forecastRow, v *ForecastVector, known map[int64]bool, now 
 			if r.late != nil {
 				r.late[i] = false
 			}
-			r.changed = true
+			r.changed, inUse = true, true
 		}
 	}
-	if len(v.Quantiles) > 0 && r.changed {
+	if len(v.Quantiles) > 0 && inUse {
 		r.qLevels = r.qLevels[:0]
 		r.qVals = r.qVals[:0]
 		for _, q := range v.Quantiles {
@@ -381,7 +383,7 @@ func mergeForecast(r *forecastRow, v *ForecastVector, known map[int64]bool, now 
 			r.qVals = append(r.qVals, padTo(q.Values, len(r.vals)))
 		}
 	}
-	if r.changed {
+	if inUse || r.changed && r.issuedAt.IsZero() {
 		r.issuedAt = v.IssuedAt
 		if r.issuedAt.IsZero() {
 			r.issuedAt = now

@@ -493,3 +493,124 @@ func decodeToken(tok string, req uint32) (pairPosition, error) {
 	}
 	return pairPosition{}, invalid("page_token", "not a token this service issued: start without a page token and pass on next_page_token")
 }
+
+// StoredForecast is a forecast vector as stored, for reading back.
+type StoredForecast struct {
+	Origin                 time.Time
+	IssuedAt               time.Time
+	FirstReceived, Receive time.Time
+	Values                 []float64 // NaN: no value for that lead
+	Late                   []bool    // nil: none late
+	LateReissues           []float64 // NaN: none; nil: none at all
+}
+
+// ListForecasts reads the stored vectors of (key, model) with origins in
+// [from, to) (zero: open) after origin after (zero: from the start), by
+// origin ascending, at most limit.
+func (s *Store) ListForecasts(ctx context.Context, key, model string, from, to, after time.Time, limit int) ([]StoredForecast, error) {
+	se, err := s.seriesByKey(ctx, key)
+	if err != nil {
+		return nil, err
+	}
+	lo := orMin(from)
+	if !after.IsZero() && !after.Before(lo) {
+		lo = after.Add(time.Microsecond)
+	}
+	rows, err := s.pool.Query(ctx, `SELECT origin, issued_at, first_received_at, received_at, vals, late, late_vals FROM forecasts
+		WHERE series_id = $1 AND model = $2 AND origin >= $3 AND origin < $4 ORDER BY origin LIMIT $5`, se.ID, model, lo, orMax(to), limit)
+	if err != nil {
+		return nil, fmt.Errorf("reading forecasts: %w", err)
+	}
+	var out []StoredForecast
+	var f StoredForecast
+	var issued pgtype.Timestamptz
+	var vals, lateVals []pgtype.Float8
+	_, err = pgx.ForEachRow(rows, []any{&f.Origin, &issued, &f.FirstReceived, &f.Receive, &vals, &f.Late, &lateVals}, func() error {
+		f.Origin, f.IssuedAt = f.Origin.UTC(), issued.Time
+		f.Values = fromFloat8(vals)
+		f.LateReissues = nil
+		if len(lateVals) > 0 {
+			f.LateReissues = fromFloat8(lateVals)
+		}
+		out = append(out, f)
+		f.Late = nil
+		return nil
+	})
+	if err != nil {
+		return nil, fmt.Errorf("reading forecasts: %w", err)
+	}
+	return out, nil
+}
+
+// StoredActual is an actual as stored, for reading back.
+type StoredActual struct {
+	Time                   time.Time
+	Value                  float64
+	FirstReceived, Receive time.Time
+	Revisions              int
+}
+
+// ListActuals reads the stored actuals of a series with times in [from,
+// to) (zero: open) after time after (zero: from the start), by time
+// ascending, at most limit.
+func (s *Store) ListActuals(ctx context.Context, key string, from, to, after time.Time, limit int) ([]StoredActual, error) {
+	se, err := s.seriesByKey(ctx, key)
+	if err != nil {
+		return nil, err
+	}
+	lo := orMin(from)
+	if !after.IsZero() && !after.Before(lo) {
+		lo = after.Add(time.Microsecond)
+	}
+	rows, err := s.pool.Query(ctx, `SELECT time, value, first_received_at, received_at, revisions FROM actuals
+		WHERE series_id = $1 AND time >= $2 AND time < $3 ORDER BY time LIMIT $4`, se.ID, lo, orMax(to), limit)
+	if err != nil {
+		return nil, fmt.Errorf("reading actuals: %w", err)
+	}
+	out, err := pgx.CollectRows(rows, func(r pgx.CollectableRow) (StoredActual, error) {
+		var a StoredActual
+		err := r.Scan(&a.Time, &a.Value, &a.FirstReceived, &a.Receive, &a.Revisions)
+		a.Time = a.Time.UTC()
+		return a, err
+	})
+	if err != nil {
+		return nil, fmt.Errorf("reading actuals: %w", err)
+	}
+	return out, nil
+}
+
+// SeriesModel is one model of a series: its newest origin (zero without
+// forecasts) and active baseline version (0: none).
+type SeriesModel struct {
+	Model           string
+	LastOrigin      time.Time
+	BaselineVersion int
+}
+
+// ListModels lists the models with forecasts or a baseline for a series,
+// by name.
+func (s *Store) ListModels(ctx context.Context, key string) ([]SeriesModel, error) {
+	se, err := s.seriesByKey(ctx, key)
+	if err != nil {
+		return nil, err
+	}
+	rows, err := s.pool.Query(ctx, `SELECT m.model,
+			(SELECT origin FROM forecasts f WHERE f.series_id = $1 AND f.model = m.model ORDER BY origin DESC LIMIT 1),
+			coalesce((SELECT max(version) FROM baselines b WHERE b.series_id = $1 AND b.model = m.model), 0)
+		FROM (SELECT model FROM series_models WHERE series_id = $1 UNION SELECT model FROM baselines WHERE series_id = $1) m
+		ORDER BY m.model`, se.ID)
+	if err != nil {
+		return nil, fmt.Errorf("reading models: %w", err)
+	}
+	out, err := pgx.CollectRows(rows, func(r pgx.CollectableRow) (SeriesModel, error) {
+		var m SeriesModel
+		var last pgtype.Timestamptz
+		err := r.Scan(&m.Model, &last, &m.BaselineVersion)
+		m.LastOrigin = last.Time
+		return m, err
+	})
+	if err != nil {
+		return nil, fmt.Errorf("reading models: %w", err)
+	}
+	return out, nil
+}

@@ -432,6 +432,230 @@ func (x *StreamActualsResponse) GetSummary() *ActualPushSummary {
 	return nil
 }
 
+// ListActualsRequest is the request of ActualService.ListActuals.
+type ListActualsRequest struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// Key of the series.
+	Series string `protobuf:"bytes,1,opt,name=series,proto3" json:"series,omitempty"`
+	// Only times at or after this one; unset = from the first.
+	TimeFrom *timestamppb.Timestamp `protobuf:"bytes,2,opt,name=time_from,json=timeFrom,proto3" json:"time_from,omitempty"`
+	// Only times before this one; unset = to the last.
+	TimeTo *timestamppb.Timestamp `protobuf:"bytes,3,opt,name=time_to,json=timeTo,proto3" json:"time_to,omitempty"`
+	// Maximum number of actuals to return. 0 means the server default
+	// (1000); values above 10000 are treated as 10000. Negative is
+	// INVALID_ARGUMENT.
+	PageSize int32 `protobuf:"varint,4,opt,name=page_size,json=pageSize,proto3" json:"page_size,omitempty"`
+	// next_page_token of the previous page; empty for the first page. The
+	// other request fields must equal those of the first page's request
+	// (INVALID_ARGUMENT otherwise).
+	PageToken     string `protobuf:"bytes,5,opt,name=page_token,json=pageToken,proto3" json:"page_token,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *ListActualsRequest) Reset() {
+	*x = ListActualsRequest{}
+	mi := &file_aftercast_v1_actual_proto_msgTypes[7]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *ListActualsRequest) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*ListActualsRequest) ProtoMessage() {}
+
+func (x *ListActualsRequest) ProtoReflect() protoreflect.Message {
+	mi := &file_aftercast_v1_actual_proto_msgTypes[7]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use ListActualsRequest.ProtoReflect.Descriptor instead.
+func (*ListActualsRequest) Descriptor() ([]byte, []int) {
+	return file_aftercast_v1_actual_proto_rawDescGZIP(), []int{7}
+}
+
+func (x *ListActualsRequest) GetSeries() string {
+	if x != nil {
+		return x.Series
+	}
+	return ""
+}
+
+func (x *ListActualsRequest) GetTimeFrom() *timestamppb.Timestamp {
+	if x != nil {
+		return x.TimeFrom
+	}
+	return nil
+}
+
+func (x *ListActualsRequest) GetTimeTo() *timestamppb.Timestamp {
+	if x != nil {
+		return x.TimeTo
+	}
+	return nil
+}
+
+func (x *ListActualsRequest) GetPageSize() int32 {
+	if x != nil {
+		return x.PageSize
+	}
+	return 0
+}
+
+func (x *ListActualsRequest) GetPageToken() string {
+	if x != nil {
+		return x.PageToken
+	}
+	return ""
+}
+
+// ListActualsResponse is the response of ActualService.ListActuals.
+type ListActualsResponse struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// The actuals of this page, by time ascending.
+	Actuals []*StoredActual `protobuf:"bytes,1,rep,name=actuals,proto3" json:"actuals,omitempty"`
+	// Token for the next page; empty when this is the last page.
+	NextPageToken string `protobuf:"bytes,2,opt,name=next_page_token,json=nextPageToken,proto3" json:"next_page_token,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *ListActualsResponse) Reset() {
+	*x = ListActualsResponse{}
+	mi := &file_aftercast_v1_actual_proto_msgTypes[8]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *ListActualsResponse) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*ListActualsResponse) ProtoMessage() {}
+
+func (x *ListActualsResponse) ProtoReflect() protoreflect.Message {
+	mi := &file_aftercast_v1_actual_proto_msgTypes[8]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use ListActualsResponse.ProtoReflect.Descriptor instead.
+func (*ListActualsResponse) Descriptor() ([]byte, []int) {
+	return file_aftercast_v1_actual_proto_rawDescGZIP(), []int{8}
+}
+
+func (x *ListActualsResponse) GetActuals() []*StoredActual {
+	if x != nil {
+		return x.Actuals
+	}
+	return nil
+}
+
+func (x *ListActualsResponse) GetNextPageToken() string {
+	if x != nil {
+		return x.NextPageToken
+	}
+	return ""
+}
+
+// StoredActual is one actual as stored.
+type StoredActual struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// The time the value belongs to.
+	Time *timestamppb.Timestamp `protobuf:"bytes,1,opt,name=time,proto3" json:"time,omitempty"`
+	// The newest value, in the series' unit.
+	Value float64 `protobuf:"fixed64,2,opt,name=value,proto3" json:"value,omitempty"`
+	// When the first value for this time was committed; the hindsight guard
+	// compares forecasts with it. Revisions do not move it.
+	FirstReceiveTime *timestamppb.Timestamp `protobuf:"bytes,3,opt,name=first_receive_time,json=firstReceiveTime,proto3" json:"first_receive_time,omitempty"`
+	// When the newest value was committed.
+	ReceiveTime *timestamppb.Timestamp `protobuf:"bytes,4,opt,name=receive_time,json=receiveTime,proto3" json:"receive_time,omitempty"`
+	// How many times a changed value replaced the stored one.
+	Revisions     int32 `protobuf:"varint,5,opt,name=revisions,proto3" json:"revisions,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *StoredActual) Reset() {
+	*x = StoredActual{}
+	mi := &file_aftercast_v1_actual_proto_msgTypes[9]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *StoredActual) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*StoredActual) ProtoMessage() {}
+
+func (x *StoredActual) ProtoReflect() protoreflect.Message {
+	mi := &file_aftercast_v1_actual_proto_msgTypes[9]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use StoredActual.ProtoReflect.Descriptor instead.
+func (*StoredActual) Descriptor() ([]byte, []int) {
+	return file_aftercast_v1_actual_proto_rawDescGZIP(), []int{9}
+}
+
+func (x *StoredActual) GetTime() *timestamppb.Timestamp {
+	if x != nil {
+		return x.Time
+	}
+	return nil
+}
+
+func (x *StoredActual) GetValue() float64 {
+	if x != nil {
+		return x.Value
+	}
+	return 0
+}
+
+func (x *StoredActual) GetFirstReceiveTime() *timestamppb.Timestamp {
+	if x != nil {
+		return x.FirstReceiveTime
+	}
+	return nil
+}
+
+func (x *StoredActual) GetReceiveTime() *timestamppb.Timestamp {
+	if x != nil {
+		return x.ReceiveTime
+	}
+	return nil
+}
+
+func (x *StoredActual) GetRevisions() int32 {
+	if x != nil {
+		return x.Revisions
+	}
+	return 0
+}
+
 var File_aftercast_v1_actual_proto protoreflect.FileDescriptor
 
 const file_aftercast_v1_actual_proto_rawDesc = "" +
@@ -461,10 +685,27 @@ const file_aftercast_v1_actual_proto_rawDesc = "" +
 	"\x14StreamActualsRequest\x12.\n" +
 	"\aactuals\x18\x01 \x03(\v2\x14.aftercast.v1.ActualR\aactuals\"R\n" +
 	"\x15StreamActualsResponse\x129\n" +
-	"\asummary\x18\x01 \x01(\v2\x1f.aftercast.v1.ActualPushSummaryR\asummary2\xbf\x01\n" +
+	"\asummary\x18\x01 \x01(\v2\x1f.aftercast.v1.ActualPushSummaryR\asummary\"\xd6\x01\n" +
+	"\x12ListActualsRequest\x12\x16\n" +
+	"\x06series\x18\x01 \x01(\tR\x06series\x127\n" +
+	"\ttime_from\x18\x02 \x01(\v2\x1a.google.protobuf.TimestampR\btimeFrom\x123\n" +
+	"\atime_to\x18\x03 \x01(\v2\x1a.google.protobuf.TimestampR\x06timeTo\x12\x1b\n" +
+	"\tpage_size\x18\x04 \x01(\x05R\bpageSize\x12\x1d\n" +
+	"\n" +
+	"page_token\x18\x05 \x01(\tR\tpageToken\"s\n" +
+	"\x13ListActualsResponse\x124\n" +
+	"\aactuals\x18\x01 \x03(\v2\x1a.aftercast.v1.StoredActualR\aactuals\x12&\n" +
+	"\x0fnext_page_token\x18\x02 \x01(\tR\rnextPageToken\"\xfb\x01\n" +
+	"\fStoredActual\x12.\n" +
+	"\x04time\x18\x01 \x01(\v2\x1a.google.protobuf.TimestampR\x04time\x12\x14\n" +
+	"\x05value\x18\x02 \x01(\x01R\x05value\x12H\n" +
+	"\x12first_receive_time\x18\x03 \x01(\v2\x1a.google.protobuf.TimestampR\x10firstReceiveTime\x12=\n" +
+	"\freceive_time\x18\x04 \x01(\v2\x1a.google.protobuf.TimestampR\vreceiveTime\x12\x1c\n" +
+	"\trevisions\x18\x05 \x01(\x05R\trevisions2\x93\x02\n" +
 	"\rActualService\x12R\n" +
 	"\vPushActuals\x12 .aftercast.v1.PushActualsRequest\x1a!.aftercast.v1.PushActualsResponse\x12Z\n" +
-	"\rStreamActuals\x12\".aftercast.v1.StreamActualsRequest\x1a#.aftercast.v1.StreamActualsResponse(\x01B=Z;github.com/aftercast/aftercast/api/aftercast/v1;aftercastv1b\x06proto3"
+	"\rStreamActuals\x12\".aftercast.v1.StreamActualsRequest\x1a#.aftercast.v1.StreamActualsResponse(\x01\x12R\n" +
+	"\vListActuals\x12 .aftercast.v1.ListActualsRequest\x1a!.aftercast.v1.ListActualsResponseB=Z;github.com/aftercast/aftercast/api/aftercast/v1;aftercastv1b\x06proto3"
 
 var (
 	file_aftercast_v1_actual_proto_rawDescOnce sync.Once
@@ -478,7 +719,7 @@ func file_aftercast_v1_actual_proto_rawDescGZIP() []byte {
 	return file_aftercast_v1_actual_proto_rawDescData
 }
 
-var file_aftercast_v1_actual_proto_msgTypes = make([]protoimpl.MessageInfo, 7)
+var file_aftercast_v1_actual_proto_msgTypes = make([]protoimpl.MessageInfo, 10)
 var file_aftercast_v1_actual_proto_goTypes = []any{
 	(*Actual)(nil),                // 0: aftercast.v1.Actual
 	(*ActualRejection)(nil),       // 1: aftercast.v1.ActualRejection
@@ -487,24 +728,35 @@ var file_aftercast_v1_actual_proto_goTypes = []any{
 	(*PushActualsResponse)(nil),   // 4: aftercast.v1.PushActualsResponse
 	(*StreamActualsRequest)(nil),  // 5: aftercast.v1.StreamActualsRequest
 	(*StreamActualsResponse)(nil), // 6: aftercast.v1.StreamActualsResponse
-	(*timestamppb.Timestamp)(nil), // 7: google.protobuf.Timestamp
+	(*ListActualsRequest)(nil),    // 7: aftercast.v1.ListActualsRequest
+	(*ListActualsResponse)(nil),   // 8: aftercast.v1.ListActualsResponse
+	(*StoredActual)(nil),          // 9: aftercast.v1.StoredActual
+	(*timestamppb.Timestamp)(nil), // 10: google.protobuf.Timestamp
 }
 var file_aftercast_v1_actual_proto_depIdxs = []int32{
-	7, // 0: aftercast.v1.Actual.time:type_name -> google.protobuf.Timestamp
-	1, // 1: aftercast.v1.ActualPushSummary.rejections:type_name -> aftercast.v1.ActualRejection
-	0, // 2: aftercast.v1.PushActualsRequest.actuals:type_name -> aftercast.v1.Actual
-	2, // 3: aftercast.v1.PushActualsResponse.summary:type_name -> aftercast.v1.ActualPushSummary
-	0, // 4: aftercast.v1.StreamActualsRequest.actuals:type_name -> aftercast.v1.Actual
-	2, // 5: aftercast.v1.StreamActualsResponse.summary:type_name -> aftercast.v1.ActualPushSummary
-	3, // 6: aftercast.v1.ActualService.PushActuals:input_type -> aftercast.v1.PushActualsRequest
-	5, // 7: aftercast.v1.ActualService.StreamActuals:input_type -> aftercast.v1.StreamActualsRequest
-	4, // 8: aftercast.v1.ActualService.PushActuals:output_type -> aftercast.v1.PushActualsResponse
-	6, // 9: aftercast.v1.ActualService.StreamActuals:output_type -> aftercast.v1.StreamActualsResponse
-	8, // [8:10] is the sub-list for method output_type
-	6, // [6:8] is the sub-list for method input_type
-	6, // [6:6] is the sub-list for extension type_name
-	6, // [6:6] is the sub-list for extension extendee
-	0, // [0:6] is the sub-list for field type_name
+	10, // 0: aftercast.v1.Actual.time:type_name -> google.protobuf.Timestamp
+	1,  // 1: aftercast.v1.ActualPushSummary.rejections:type_name -> aftercast.v1.ActualRejection
+	0,  // 2: aftercast.v1.PushActualsRequest.actuals:type_name -> aftercast.v1.Actual
+	2,  // 3: aftercast.v1.PushActualsResponse.summary:type_name -> aftercast.v1.ActualPushSummary
+	0,  // 4: aftercast.v1.StreamActualsRequest.actuals:type_name -> aftercast.v1.Actual
+	2,  // 5: aftercast.v1.StreamActualsResponse.summary:type_name -> aftercast.v1.ActualPushSummary
+	10, // 6: aftercast.v1.ListActualsRequest.time_from:type_name -> google.protobuf.Timestamp
+	10, // 7: aftercast.v1.ListActualsRequest.time_to:type_name -> google.protobuf.Timestamp
+	9,  // 8: aftercast.v1.ListActualsResponse.actuals:type_name -> aftercast.v1.StoredActual
+	10, // 9: aftercast.v1.StoredActual.time:type_name -> google.protobuf.Timestamp
+	10, // 10: aftercast.v1.StoredActual.first_receive_time:type_name -> google.protobuf.Timestamp
+	10, // 11: aftercast.v1.StoredActual.receive_time:type_name -> google.protobuf.Timestamp
+	3,  // 12: aftercast.v1.ActualService.PushActuals:input_type -> aftercast.v1.PushActualsRequest
+	5,  // 13: aftercast.v1.ActualService.StreamActuals:input_type -> aftercast.v1.StreamActualsRequest
+	7,  // 14: aftercast.v1.ActualService.ListActuals:input_type -> aftercast.v1.ListActualsRequest
+	4,  // 15: aftercast.v1.ActualService.PushActuals:output_type -> aftercast.v1.PushActualsResponse
+	6,  // 16: aftercast.v1.ActualService.StreamActuals:output_type -> aftercast.v1.StreamActualsResponse
+	8,  // 17: aftercast.v1.ActualService.ListActuals:output_type -> aftercast.v1.ListActualsResponse
+	15, // [15:18] is the sub-list for method output_type
+	12, // [12:15] is the sub-list for method input_type
+	12, // [12:12] is the sub-list for extension type_name
+	12, // [12:12] is the sub-list for extension extendee
+	0,  // [0:12] is the sub-list for field type_name
 }
 
 func init() { file_aftercast_v1_actual_proto_init() }
@@ -518,7 +770,7 @@ func file_aftercast_v1_actual_proto_init() {
 			GoPackagePath: reflect.TypeOf(x{}).PkgPath(),
 			RawDescriptor: unsafe.Slice(unsafe.StringData(file_aftercast_v1_actual_proto_rawDesc), len(file_aftercast_v1_actual_proto_rawDesc)),
 			NumEnums:      0,
-			NumMessages:   7,
+			NumMessages:   10,
 			NumExtensions: 0,
 			NumServices:   1,
 		},

@@ -21,6 +21,7 @@ const _ = grpc.SupportPackageIsVersion9
 const (
 	ActualService_PushActuals_FullMethodName   = "/aftercast.v1.ActualService/PushActuals"
 	ActualService_StreamActuals_FullMethodName = "/aftercast.v1.ActualService/StreamActuals"
+	ActualService_ListActuals_FullMethodName   = "/aftercast.v1.ActualService/ListActuals"
 )
 
 // ActualServiceClient is the client API for ActualService service.
@@ -57,6 +58,10 @@ type ActualServiceClient interface {
 	// batch is committed; it covers the whole stream. Rejection indexes count
 	// actuals from 0 across all batches of the stream.
 	StreamActuals(ctx context.Context, opts ...grpc.CallOption) (grpc.ClientStreamingClient[StreamActualsRequest, StreamActualsResponse], error)
+	// ListActuals reads back the stored actuals of one series, by time
+	// ascending: the newest value of each time, when the first value for it
+	// arrived and how often it was revised. NOT_FOUND for an unknown series.
+	ListActuals(ctx context.Context, in *ListActualsRequest, opts ...grpc.CallOption) (*ListActualsResponse, error)
 }
 
 type actualServiceClient struct {
@@ -89,6 +94,16 @@ func (c *actualServiceClient) StreamActuals(ctx context.Context, opts ...grpc.Ca
 
 // This type alias is provided for backwards compatibility with existing code that references the prior non-generic stream type by name.
 type ActualService_StreamActualsClient = grpc.ClientStreamingClient[StreamActualsRequest, StreamActualsResponse]
+
+func (c *actualServiceClient) ListActuals(ctx context.Context, in *ListActualsRequest, opts ...grpc.CallOption) (*ListActualsResponse, error) {
+	cOpts := append([]grpc.CallOption{grpc.StaticMethod()}, opts...)
+	out := new(ListActualsResponse)
+	err := c.cc.Invoke(ctx, ActualService_ListActuals_FullMethodName, in, out, cOpts...)
+	if err != nil {
+		return nil, err
+	}
+	return out, nil
+}
 
 // ActualServiceServer is the server API for ActualService service.
 // All implementations must embed UnimplementedActualServiceServer
@@ -124,6 +139,10 @@ type ActualServiceServer interface {
 	// batch is committed; it covers the whole stream. Rejection indexes count
 	// actuals from 0 across all batches of the stream.
 	StreamActuals(grpc.ClientStreamingServer[StreamActualsRequest, StreamActualsResponse]) error
+	// ListActuals reads back the stored actuals of one series, by time
+	// ascending: the newest value of each time, when the first value for it
+	// arrived and how often it was revised. NOT_FOUND for an unknown series.
+	ListActuals(context.Context, *ListActualsRequest) (*ListActualsResponse, error)
 	mustEmbedUnimplementedActualServiceServer()
 }
 
@@ -139,6 +158,9 @@ func (UnimplementedActualServiceServer) PushActuals(context.Context, *PushActual
 }
 func (UnimplementedActualServiceServer) StreamActuals(grpc.ClientStreamingServer[StreamActualsRequest, StreamActualsResponse]) error {
 	return status.Error(codes.Unimplemented, "method StreamActuals not implemented")
+}
+func (UnimplementedActualServiceServer) ListActuals(context.Context, *ListActualsRequest) (*ListActualsResponse, error) {
+	return nil, status.Error(codes.Unimplemented, "method ListActuals not implemented")
 }
 func (UnimplementedActualServiceServer) mustEmbedUnimplementedActualServiceServer() {}
 func (UnimplementedActualServiceServer) testEmbeddedByValue()                       {}
@@ -186,6 +208,24 @@ func _ActualService_StreamActuals_Handler(srv interface{}, stream grpc.ServerStr
 // This type alias is provided for backwards compatibility with existing code that references the prior non-generic stream type by name.
 type ActualService_StreamActualsServer = grpc.ClientStreamingServer[StreamActualsRequest, StreamActualsResponse]
 
+func _ActualService_ListActuals_Handler(srv interface{}, ctx context.Context, dec func(interface{}) error, interceptor grpc.UnaryServerInterceptor) (interface{}, error) {
+	in := new(ListActualsRequest)
+	if err := dec(in); err != nil {
+		return nil, err
+	}
+	if interceptor == nil {
+		return srv.(ActualServiceServer).ListActuals(ctx, in)
+	}
+	info := &grpc.UnaryServerInfo{
+		Server:     srv,
+		FullMethod: ActualService_ListActuals_FullMethodName,
+	}
+	handler := func(ctx context.Context, req interface{}) (interface{}, error) {
+		return srv.(ActualServiceServer).ListActuals(ctx, req.(*ListActualsRequest))
+	}
+	return interceptor(ctx, in, info, handler)
+}
+
 // ActualService_ServiceDesc is the grpc.ServiceDesc for ActualService service.
 // It's only intended for direct use with grpc.RegisterService,
 // and not to be introspected or modified (even as a copy)
@@ -196,6 +236,10 @@ var ActualService_ServiceDesc = grpc.ServiceDesc{
 		{
 			MethodName: "PushActuals",
 			Handler:    _ActualService_PushActuals_Handler,
+		},
+		{
+			MethodName: "ListActuals",
+			Handler:    _ActualService_ListActuals_Handler,
 		},
 	},
 	Streams: []grpc.StreamDesc{

@@ -377,13 +377,19 @@ type ForecastRejection struct {
 	// counts across all batches of the stream: the 3rd vector of the 2nd
 	// batch after a batch of 10 has index 12.
 	Index int64 `protobuf:"varint,1,opt,name=index,proto3" json:"index,omitempty"`
-	// The lead of the rejected point; 0 when the whole vector was rejected.
+	// The lead of the rejected point as sent (for a sparse point, its lead
+	// field, whatever its value); 0 when whole_vector is true.
 	Lead int32 `protobuf:"varint,2,opt,name=lead,proto3" json:"lead,omitempty"`
-	// Path of the offending field within the vector, such as "origin_time",
-	// "dense.values[3]" or "quantiles[1].level".
+	// Path of the offending field within the vector, with indexes as sent:
+	// "series", "model", "origin_time", "issue_time", "values" (neither form
+	// set), "dense.values[3]" (lead 4), "sparse.points[2].lead",
+	// "sparse.points[2].value", "quantiles[1].level", "quantiles[1].values".
 	Field string `protobuf:"bytes,3,opt,name=field,proto3" json:"field,omitempty"`
 	// Human-readable reason, such as "lead 30 is beyond the horizon 24".
-	Reason        string `protobuf:"bytes,4,opt,name=reason,proto3" json:"reason,omitempty"`
+	Reason string `protobuf:"bytes,4,opt,name=reason,proto3" json:"reason,omitempty"`
+	// True when the whole vector was rejected (every point it carried is
+	// counted in rejected); false when one point was.
+	WholeVector   bool `protobuf:"varint,5,opt,name=whole_vector,json=wholeVector,proto3" json:"whole_vector,omitempty"`
 	unknownFields protoimpl.UnknownFields
 	sizeCache     protoimpl.SizeCache
 }
@@ -446,6 +452,13 @@ func (x *ForecastRejection) GetReason() string {
 	return ""
 }
 
+func (x *ForecastRejection) GetWholeVector() bool {
+	if x != nil {
+		return x.WholeVector
+	}
+	return false
+}
+
 // ForecastPushSummary is the acknowledgement of pushed forecasts. Its
 // counts are forecast points (one value for one origin and lead); each
 // point received is counted exactly once, so accepted + duplicate + late +
@@ -461,7 +474,8 @@ type ForecastPushSummary struct {
 	// the hindsight guard (method.md §3) they are stored but marked late and
 	// excluded from live accuracy and drift.
 	Late int64 `protobuf:"varint,3,opt,name=late,proto3" json:"late,omitempty"`
-	// Points not stored, including every point of a vector rejected whole.
+	// Points not stored, including every point of a vector rejected whole;
+	// a vector rejected whole that carried no point counts as one.
 	Rejected int64 `protobuf:"varint,4,opt,name=rejected,proto3" json:"rejected,omitempty"`
 	// The first 1000 rejections, in index order. rejected counts all of them.
 	Rejections []*ForecastRejection `protobuf:"bytes,5,rep,name=rejections,proto3" json:"rejections,omitempty"`
@@ -729,6 +743,313 @@ func (x *StreamForecastsResponse) GetSummary() *ForecastPushSummary {
 	return nil
 }
 
+// ListForecastsRequest is the request of ForecastService.ListForecasts.
+type ListForecastsRequest struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// Key of the series.
+	Series string `protobuf:"bytes,1,opt,name=series,proto3" json:"series,omitempty"`
+	// The model.
+	Model string `protobuf:"bytes,2,opt,name=model,proto3" json:"model,omitempty"`
+	// Only origins at or after this time; unset = from the first.
+	OriginFromTime *timestamppb.Timestamp `protobuf:"bytes,3,opt,name=origin_from_time,json=originFromTime,proto3" json:"origin_from_time,omitempty"`
+	// Only origins before this time; unset = to the last.
+	OriginToTime *timestamppb.Timestamp `protobuf:"bytes,4,opt,name=origin_to_time,json=originToTime,proto3" json:"origin_to_time,omitempty"`
+	// Maximum number of vectors to return. 0 means the server default (100);
+	// values above 1000 are treated as 1000. Negative is INVALID_ARGUMENT.
+	PageSize int32 `protobuf:"varint,5,opt,name=page_size,json=pageSize,proto3" json:"page_size,omitempty"`
+	// next_page_token of the previous page; empty for the first page. The
+	// other request fields must equal those of the first page's request
+	// (INVALID_ARGUMENT otherwise).
+	PageToken     string `protobuf:"bytes,6,opt,name=page_token,json=pageToken,proto3" json:"page_token,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *ListForecastsRequest) Reset() {
+	*x = ListForecastsRequest{}
+	mi := &file_aftercast_v1_forecast_proto_msgTypes[11]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *ListForecastsRequest) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*ListForecastsRequest) ProtoMessage() {}
+
+func (x *ListForecastsRequest) ProtoReflect() protoreflect.Message {
+	mi := &file_aftercast_v1_forecast_proto_msgTypes[11]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use ListForecastsRequest.ProtoReflect.Descriptor instead.
+func (*ListForecastsRequest) Descriptor() ([]byte, []int) {
+	return file_aftercast_v1_forecast_proto_rawDescGZIP(), []int{11}
+}
+
+func (x *ListForecastsRequest) GetSeries() string {
+	if x != nil {
+		return x.Series
+	}
+	return ""
+}
+
+func (x *ListForecastsRequest) GetModel() string {
+	if x != nil {
+		return x.Model
+	}
+	return ""
+}
+
+func (x *ListForecastsRequest) GetOriginFromTime() *timestamppb.Timestamp {
+	if x != nil {
+		return x.OriginFromTime
+	}
+	return nil
+}
+
+func (x *ListForecastsRequest) GetOriginToTime() *timestamppb.Timestamp {
+	if x != nil {
+		return x.OriginToTime
+	}
+	return nil
+}
+
+func (x *ListForecastsRequest) GetPageSize() int32 {
+	if x != nil {
+		return x.PageSize
+	}
+	return 0
+}
+
+func (x *ListForecastsRequest) GetPageToken() string {
+	if x != nil {
+		return x.PageToken
+	}
+	return ""
+}
+
+// ListForecastsResponse is the response of ForecastService.ListForecasts.
+type ListForecastsResponse struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// The vectors of this page, by origin ascending.
+	Forecasts []*StoredForecast `protobuf:"bytes,1,rep,name=forecasts,proto3" json:"forecasts,omitempty"`
+	// Token for the next page; empty when this is the last page.
+	NextPageToken string `protobuf:"bytes,2,opt,name=next_page_token,json=nextPageToken,proto3" json:"next_page_token,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *ListForecastsResponse) Reset() {
+	*x = ListForecastsResponse{}
+	mi := &file_aftercast_v1_forecast_proto_msgTypes[12]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *ListForecastsResponse) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*ListForecastsResponse) ProtoMessage() {}
+
+func (x *ListForecastsResponse) ProtoReflect() protoreflect.Message {
+	mi := &file_aftercast_v1_forecast_proto_msgTypes[12]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use ListForecastsResponse.ProtoReflect.Descriptor instead.
+func (*ListForecastsResponse) Descriptor() ([]byte, []int) {
+	return file_aftercast_v1_forecast_proto_rawDescGZIP(), []int{12}
+}
+
+func (x *ListForecastsResponse) GetForecasts() []*StoredForecast {
+	if x != nil {
+		return x.Forecasts
+	}
+	return nil
+}
+
+func (x *ListForecastsResponse) GetNextPageToken() string {
+	if x != nil {
+		return x.NextPageToken
+	}
+	return ""
+}
+
+// StoredForecast is one forecast vector as stored.
+type StoredForecast struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// The origin.
+	OriginTime *timestamppb.Timestamp `protobuf:"bytes,1,opt,name=origin_time,json=originTime,proto3" json:"origin_time,omitempty"`
+	// The issue time as sent, or the receive time of the first push that
+	// stored a value when none was sent.
+	IssueTime *timestamppb.Timestamp `protobuf:"bytes,2,opt,name=issue_time,json=issueTime,proto3" json:"issue_time,omitempty"`
+	// When the first value of this vector was committed.
+	FirstReceiveTime *timestamppb.Timestamp `protobuf:"bytes,3,opt,name=first_receive_time,json=firstReceiveTime,proto3" json:"first_receive_time,omitempty"`
+	// When a value of this vector was last committed.
+	ReceiveTime *timestamppb.Timestamp `protobuf:"bytes,4,opt,name=receive_time,json=receiveTime,proto3" json:"receive_time,omitempty"`
+	// One entry per lead with a value, ascending by lead.
+	Points        []*StoredPoint `protobuf:"bytes,5,rep,name=points,proto3" json:"points,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *StoredForecast) Reset() {
+	*x = StoredForecast{}
+	mi := &file_aftercast_v1_forecast_proto_msgTypes[13]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *StoredForecast) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*StoredForecast) ProtoMessage() {}
+
+func (x *StoredForecast) ProtoReflect() protoreflect.Message {
+	mi := &file_aftercast_v1_forecast_proto_msgTypes[13]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use StoredForecast.ProtoReflect.Descriptor instead.
+func (*StoredForecast) Descriptor() ([]byte, []int) {
+	return file_aftercast_v1_forecast_proto_rawDescGZIP(), []int{13}
+}
+
+func (x *StoredForecast) GetOriginTime() *timestamppb.Timestamp {
+	if x != nil {
+		return x.OriginTime
+	}
+	return nil
+}
+
+func (x *StoredForecast) GetIssueTime() *timestamppb.Timestamp {
+	if x != nil {
+		return x.IssueTime
+	}
+	return nil
+}
+
+func (x *StoredForecast) GetFirstReceiveTime() *timestamppb.Timestamp {
+	if x != nil {
+		return x.FirstReceiveTime
+	}
+	return nil
+}
+
+func (x *StoredForecast) GetReceiveTime() *timestamppb.Timestamp {
+	if x != nil {
+		return x.ReceiveTime
+	}
+	return nil
+}
+
+func (x *StoredForecast) GetPoints() []*StoredPoint {
+	if x != nil {
+		return x.Points
+	}
+	return nil
+}
+
+// StoredPoint is the stored value of one lead of a forecast vector.
+type StoredPoint struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// The lead.
+	Lead int32 `protobuf:"varint,1,opt,name=lead,proto3" json:"lead,omitempty"`
+	// The value in use, in the series' unit.
+	Value float64 `protobuf:"fixed64,2,opt,name=value,proto3" json:"value,omitempty"`
+	// True when the value arrived after its target's actual was known: it is
+	// never scored (method.md §3).
+	Late bool `protobuf:"varint,3,opt,name=late,proto3" json:"late,omitempty"`
+	// A late re-issue stored beside the value in use, which it did not
+	// replace; absent when there is none.
+	LateReissue   *float64 `protobuf:"fixed64,4,opt,name=late_reissue,json=lateReissue,proto3,oneof" json:"late_reissue,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *StoredPoint) Reset() {
+	*x = StoredPoint{}
+	mi := &file_aftercast_v1_forecast_proto_msgTypes[14]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *StoredPoint) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*StoredPoint) ProtoMessage() {}
+
+func (x *StoredPoint) ProtoReflect() protoreflect.Message {
+	mi := &file_aftercast_v1_forecast_proto_msgTypes[14]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use StoredPoint.ProtoReflect.Descriptor instead.
+func (*StoredPoint) Descriptor() ([]byte, []int) {
+	return file_aftercast_v1_forecast_proto_rawDescGZIP(), []int{14}
+}
+
+func (x *StoredPoint) GetLead() int32 {
+	if x != nil {
+		return x.Lead
+	}
+	return 0
+}
+
+func (x *StoredPoint) GetValue() float64 {
+	if x != nil {
+		return x.Value
+	}
+	return 0
+}
+
+func (x *StoredPoint) GetLate() bool {
+	if x != nil {
+		return x.Late
+	}
+	return false
+}
+
+func (x *StoredPoint) GetLateReissue() float64 {
+	if x != nil && x.LateReissue != nil {
+		return *x.LateReissue
+	}
+	return 0
+}
+
 var File_aftercast_v1_forecast_proto protoreflect.FileDescriptor
 
 const file_aftercast_v1_forecast_proto_rawDesc = "" +
@@ -754,12 +1075,13 @@ const file_aftercast_v1_forecast_proto_rawDesc = "" +
 	"\x05value\x18\x02 \x01(\x01R\x05value\">\n" +
 	"\x0eQuantileValues\x12\x14\n" +
 	"\x05level\x18\x01 \x01(\x01R\x05level\x12\x16\n" +
-	"\x06values\x18\x02 \x03(\x01R\x06values\"k\n" +
+	"\x06values\x18\x02 \x03(\x01R\x06values\"\x8e\x01\n" +
 	"\x11ForecastRejection\x12\x14\n" +
 	"\x05index\x18\x01 \x01(\x03R\x05index\x12\x12\n" +
 	"\x04lead\x18\x02 \x01(\x05R\x04lead\x12\x14\n" +
 	"\x05field\x18\x03 \x01(\tR\x05field\x12\x16\n" +
-	"\x06reason\x18\x04 \x01(\tR\x06reason\"\xf3\x01\n" +
+	"\x06reason\x18\x04 \x01(\tR\x06reason\x12!\n" +
+	"\fwhole_vector\x18\x05 \x01(\bR\vwholeVector\"\xf3\x01\n" +
 	"\x13ForecastPushSummary\x12\x1a\n" +
 	"\baccepted\x18\x01 \x01(\x03R\baccepted\x12\x1c\n" +
 	"\tduplicate\x18\x02 \x01(\x03R\tduplicate\x12\x12\n" +
@@ -776,10 +1098,36 @@ const file_aftercast_v1_forecast_proto_rawDesc = "" +
 	"\x16StreamForecastsRequest\x124\n" +
 	"\tforecasts\x18\x01 \x03(\v2\x16.aftercast.v1.ForecastR\tforecasts\"V\n" +
 	"\x17StreamForecastsResponse\x12;\n" +
-	"\asummary\x18\x01 \x01(\v2!.aftercast.v1.ForecastPushSummaryR\asummary2\xcd\x01\n" +
+	"\asummary\x18\x01 \x01(\v2!.aftercast.v1.ForecastPushSummaryR\asummary\"\x88\x02\n" +
+	"\x14ListForecastsRequest\x12\x16\n" +
+	"\x06series\x18\x01 \x01(\tR\x06series\x12\x14\n" +
+	"\x05model\x18\x02 \x01(\tR\x05model\x12D\n" +
+	"\x10origin_from_time\x18\x03 \x01(\v2\x1a.google.protobuf.TimestampR\x0eoriginFromTime\x12@\n" +
+	"\x0eorigin_to_time\x18\x04 \x01(\v2\x1a.google.protobuf.TimestampR\foriginToTime\x12\x1b\n" +
+	"\tpage_size\x18\x05 \x01(\x05R\bpageSize\x12\x1d\n" +
+	"\n" +
+	"page_token\x18\x06 \x01(\tR\tpageToken\"{\n" +
+	"\x15ListForecastsResponse\x12:\n" +
+	"\tforecasts\x18\x01 \x03(\v2\x1c.aftercast.v1.StoredForecastR\tforecasts\x12&\n" +
+	"\x0fnext_page_token\x18\x02 \x01(\tR\rnextPageToken\"\xc4\x02\n" +
+	"\x0eStoredForecast\x12;\n" +
+	"\vorigin_time\x18\x01 \x01(\v2\x1a.google.protobuf.TimestampR\n" +
+	"originTime\x129\n" +
+	"\n" +
+	"issue_time\x18\x02 \x01(\v2\x1a.google.protobuf.TimestampR\tissueTime\x12H\n" +
+	"\x12first_receive_time\x18\x03 \x01(\v2\x1a.google.protobuf.TimestampR\x10firstReceiveTime\x12=\n" +
+	"\freceive_time\x18\x04 \x01(\v2\x1a.google.protobuf.TimestampR\vreceiveTime\x121\n" +
+	"\x06points\x18\x05 \x03(\v2\x19.aftercast.v1.StoredPointR\x06points\"\x84\x01\n" +
+	"\vStoredPoint\x12\x12\n" +
+	"\x04lead\x18\x01 \x01(\x05R\x04lead\x12\x14\n" +
+	"\x05value\x18\x02 \x01(\x01R\x05value\x12\x12\n" +
+	"\x04late\x18\x03 \x01(\bR\x04late\x12&\n" +
+	"\flate_reissue\x18\x04 \x01(\x01H\x00R\vlateReissue\x88\x01\x01B\x0f\n" +
+	"\r_late_reissue2\xa7\x02\n" +
 	"\x0fForecastService\x12X\n" +
 	"\rPushForecasts\x12\".aftercast.v1.PushForecastsRequest\x1a#.aftercast.v1.PushForecastsResponse\x12`\n" +
-	"\x0fStreamForecasts\x12$.aftercast.v1.StreamForecastsRequest\x1a%.aftercast.v1.StreamForecastsResponse(\x01B=Z;github.com/aftercast/aftercast/api/aftercast/v1;aftercastv1b\x06proto3"
+	"\x0fStreamForecasts\x12$.aftercast.v1.StreamForecastsRequest\x1a%.aftercast.v1.StreamForecastsResponse(\x01\x12X\n" +
+	"\rListForecasts\x12\".aftercast.v1.ListForecastsRequest\x1a#.aftercast.v1.ListForecastsResponseB=Z;github.com/aftercast/aftercast/api/aftercast/v1;aftercastv1b\x06proto3"
 
 var (
 	file_aftercast_v1_forecast_proto_rawDescOnce sync.Once
@@ -793,7 +1141,7 @@ func file_aftercast_v1_forecast_proto_rawDescGZIP() []byte {
 	return file_aftercast_v1_forecast_proto_rawDescData
 }
 
-var file_aftercast_v1_forecast_proto_msgTypes = make([]protoimpl.MessageInfo, 11)
+var file_aftercast_v1_forecast_proto_msgTypes = make([]protoimpl.MessageInfo, 15)
 var file_aftercast_v1_forecast_proto_goTypes = []any{
 	(*Forecast)(nil),                // 0: aftercast.v1.Forecast
 	(*DenseValues)(nil),             // 1: aftercast.v1.DenseValues
@@ -806,11 +1154,15 @@ var file_aftercast_v1_forecast_proto_goTypes = []any{
 	(*PushForecastsResponse)(nil),   // 8: aftercast.v1.PushForecastsResponse
 	(*StreamForecastsRequest)(nil),  // 9: aftercast.v1.StreamForecastsRequest
 	(*StreamForecastsResponse)(nil), // 10: aftercast.v1.StreamForecastsResponse
-	(*timestamppb.Timestamp)(nil),   // 11: google.protobuf.Timestamp
+	(*ListForecastsRequest)(nil),    // 11: aftercast.v1.ListForecastsRequest
+	(*ListForecastsResponse)(nil),   // 12: aftercast.v1.ListForecastsResponse
+	(*StoredForecast)(nil),          // 13: aftercast.v1.StoredForecast
+	(*StoredPoint)(nil),             // 14: aftercast.v1.StoredPoint
+	(*timestamppb.Timestamp)(nil),   // 15: google.protobuf.Timestamp
 }
 var file_aftercast_v1_forecast_proto_depIdxs = []int32{
-	11, // 0: aftercast.v1.Forecast.origin_time:type_name -> google.protobuf.Timestamp
-	11, // 1: aftercast.v1.Forecast.issue_time:type_name -> google.protobuf.Timestamp
+	15, // 0: aftercast.v1.Forecast.origin_time:type_name -> google.protobuf.Timestamp
+	15, // 1: aftercast.v1.Forecast.issue_time:type_name -> google.protobuf.Timestamp
 	1,  // 2: aftercast.v1.Forecast.dense:type_name -> aftercast.v1.DenseValues
 	2,  // 3: aftercast.v1.Forecast.sparse:type_name -> aftercast.v1.SparseValues
 	4,  // 4: aftercast.v1.Forecast.quantiles:type_name -> aftercast.v1.QuantileValues
@@ -820,15 +1172,25 @@ var file_aftercast_v1_forecast_proto_depIdxs = []int32{
 	6,  // 8: aftercast.v1.PushForecastsResponse.summary:type_name -> aftercast.v1.ForecastPushSummary
 	0,  // 9: aftercast.v1.StreamForecastsRequest.forecasts:type_name -> aftercast.v1.Forecast
 	6,  // 10: aftercast.v1.StreamForecastsResponse.summary:type_name -> aftercast.v1.ForecastPushSummary
-	7,  // 11: aftercast.v1.ForecastService.PushForecasts:input_type -> aftercast.v1.PushForecastsRequest
-	9,  // 12: aftercast.v1.ForecastService.StreamForecasts:input_type -> aftercast.v1.StreamForecastsRequest
-	8,  // 13: aftercast.v1.ForecastService.PushForecasts:output_type -> aftercast.v1.PushForecastsResponse
-	10, // 14: aftercast.v1.ForecastService.StreamForecasts:output_type -> aftercast.v1.StreamForecastsResponse
-	13, // [13:15] is the sub-list for method output_type
-	11, // [11:13] is the sub-list for method input_type
-	11, // [11:11] is the sub-list for extension type_name
-	11, // [11:11] is the sub-list for extension extendee
-	0,  // [0:11] is the sub-list for field type_name
+	15, // 11: aftercast.v1.ListForecastsRequest.origin_from_time:type_name -> google.protobuf.Timestamp
+	15, // 12: aftercast.v1.ListForecastsRequest.origin_to_time:type_name -> google.protobuf.Timestamp
+	13, // 13: aftercast.v1.ListForecastsResponse.forecasts:type_name -> aftercast.v1.StoredForecast
+	15, // 14: aftercast.v1.StoredForecast.origin_time:type_name -> google.protobuf.Timestamp
+	15, // 15: aftercast.v1.StoredForecast.issue_time:type_name -> google.protobuf.Timestamp
+	15, // 16: aftercast.v1.StoredForecast.first_receive_time:type_name -> google.protobuf.Timestamp
+	15, // 17: aftercast.v1.StoredForecast.receive_time:type_name -> google.protobuf.Timestamp
+	14, // 18: aftercast.v1.StoredForecast.points:type_name -> aftercast.v1.StoredPoint
+	7,  // 19: aftercast.v1.ForecastService.PushForecasts:input_type -> aftercast.v1.PushForecastsRequest
+	9,  // 20: aftercast.v1.ForecastService.StreamForecasts:input_type -> aftercast.v1.StreamForecastsRequest
+	11, // 21: aftercast.v1.ForecastService.ListForecasts:input_type -> aftercast.v1.ListForecastsRequest
+	8,  // 22: aftercast.v1.ForecastService.PushForecasts:output_type -> aftercast.v1.PushForecastsResponse
+	10, // 23: aftercast.v1.ForecastService.StreamForecasts:output_type -> aftercast.v1.StreamForecastsResponse
+	12, // 24: aftercast.v1.ForecastService.ListForecasts:output_type -> aftercast.v1.ListForecastsResponse
+	22, // [22:25] is the sub-list for method output_type
+	19, // [19:22] is the sub-list for method input_type
+	19, // [19:19] is the sub-list for extension type_name
+	19, // [19:19] is the sub-list for extension extendee
+	0,  // [0:19] is the sub-list for field type_name
 }
 
 func init() { file_aftercast_v1_forecast_proto_init() }
@@ -840,13 +1202,14 @@ func file_aftercast_v1_forecast_proto_init() {
 		(*Forecast_Dense)(nil),
 		(*Forecast_Sparse)(nil),
 	}
+	file_aftercast_v1_forecast_proto_msgTypes[14].OneofWrappers = []any{}
 	type x struct{}
 	out := protoimpl.TypeBuilder{
 		File: protoimpl.DescBuilder{
 			GoPackagePath: reflect.TypeOf(x{}).PkgPath(),
 			RawDescriptor: unsafe.Slice(unsafe.StringData(file_aftercast_v1_forecast_proto_rawDesc), len(file_aftercast_v1_forecast_proto_rawDesc)),
 			NumEnums:      0,
-			NumMessages:   11,
+			NumMessages:   15,
 			NumExtensions: 0,
 			NumServices:   1,
 		},

@@ -21,6 +21,7 @@ const _ = grpc.SupportPackageIsVersion9
 const (
 	ForecastService_PushForecasts_FullMethodName   = "/aftercast.v1.ForecastService/PushForecasts"
 	ForecastService_StreamForecasts_FullMethodName = "/aftercast.v1.ForecastService/StreamForecasts"
+	ForecastService_ListForecasts_FullMethodName   = "/aftercast.v1.ForecastService/ListForecasts"
 )
 
 // ForecastServiceClient is the client API for ForecastService service.
@@ -60,6 +61,11 @@ type ForecastServiceClient interface {
 	// batch is committed; it covers the whole stream. Rejection indexes count
 	// vectors from 0 across all batches of the stream.
 	StreamForecasts(ctx context.Context, opts ...grpc.CallOption) (grpc.ClientStreamingClient[StreamForecastsRequest, StreamForecastsResponse], error)
+	// ListForecasts reads back the stored forecast vectors of one (series,
+	// model), by origin ascending: exactly the values stored, the late ones
+	// flagged, late re-issues beside the values they did not replace, and the
+	// issue and receive times. NOT_FOUND for an unknown series.
+	ListForecasts(ctx context.Context, in *ListForecastsRequest, opts ...grpc.CallOption) (*ListForecastsResponse, error)
 }
 
 type forecastServiceClient struct {
@@ -92,6 +98,16 @@ func (c *forecastServiceClient) StreamForecasts(ctx context.Context, opts ...grp
 
 // This type alias is provided for backwards compatibility with existing code that references the prior non-generic stream type by name.
 type ForecastService_StreamForecastsClient = grpc.ClientStreamingClient[StreamForecastsRequest, StreamForecastsResponse]
+
+func (c *forecastServiceClient) ListForecasts(ctx context.Context, in *ListForecastsRequest, opts ...grpc.CallOption) (*ListForecastsResponse, error) {
+	cOpts := append([]grpc.CallOption{grpc.StaticMethod()}, opts...)
+	out := new(ListForecastsResponse)
+	err := c.cc.Invoke(ctx, ForecastService_ListForecasts_FullMethodName, in, out, cOpts...)
+	if err != nil {
+		return nil, err
+	}
+	return out, nil
+}
 
 // ForecastServiceServer is the server API for ForecastService service.
 // All implementations must embed UnimplementedForecastServiceServer
@@ -130,6 +146,11 @@ type ForecastServiceServer interface {
 	// batch is committed; it covers the whole stream. Rejection indexes count
 	// vectors from 0 across all batches of the stream.
 	StreamForecasts(grpc.ClientStreamingServer[StreamForecastsRequest, StreamForecastsResponse]) error
+	// ListForecasts reads back the stored forecast vectors of one (series,
+	// model), by origin ascending: exactly the values stored, the late ones
+	// flagged, late re-issues beside the values they did not replace, and the
+	// issue and receive times. NOT_FOUND for an unknown series.
+	ListForecasts(context.Context, *ListForecastsRequest) (*ListForecastsResponse, error)
 	mustEmbedUnimplementedForecastServiceServer()
 }
 
@@ -145,6 +166,9 @@ func (UnimplementedForecastServiceServer) PushForecasts(context.Context, *PushFo
 }
 func (UnimplementedForecastServiceServer) StreamForecasts(grpc.ClientStreamingServer[StreamForecastsRequest, StreamForecastsResponse]) error {
 	return status.Error(codes.Unimplemented, "method StreamForecasts not implemented")
+}
+func (UnimplementedForecastServiceServer) ListForecasts(context.Context, *ListForecastsRequest) (*ListForecastsResponse, error) {
+	return nil, status.Error(codes.Unimplemented, "method ListForecasts not implemented")
 }
 func (UnimplementedForecastServiceServer) mustEmbedUnimplementedForecastServiceServer() {}
 func (UnimplementedForecastServiceServer) testEmbeddedByValue()                         {}
@@ -192,6 +216,24 @@ func _ForecastService_StreamForecasts_Handler(srv interface{}, stream grpc.Serve
 // This type alias is provided for backwards compatibility with existing code that references the prior non-generic stream type by name.
 type ForecastService_StreamForecastsServer = grpc.ClientStreamingServer[StreamForecastsRequest, StreamForecastsResponse]
 
+func _ForecastService_ListForecasts_Handler(srv interface{}, ctx context.Context, dec func(interface{}) error, interceptor grpc.UnaryServerInterceptor) (interface{}, error) {
+	in := new(ListForecastsRequest)
+	if err := dec(in); err != nil {
+		return nil, err
+	}
+	if interceptor == nil {
+		return srv.(ForecastServiceServer).ListForecasts(ctx, in)
+	}
+	info := &grpc.UnaryServerInfo{
+		Server:     srv,
+		FullMethod: ForecastService_ListForecasts_FullMethodName,
+	}
+	handler := func(ctx context.Context, req interface{}) (interface{}, error) {
+		return srv.(ForecastServiceServer).ListForecasts(ctx, req.(*ListForecastsRequest))
+	}
+	return interceptor(ctx, in, info, handler)
+}
+
 // ForecastService_ServiceDesc is the grpc.ServiceDesc for ForecastService service.
 // It's only intended for direct use with grpc.RegisterService,
 // and not to be introspected or modified (even as a copy)
@@ -202,6 +244,10 @@ var ForecastService_ServiceDesc = grpc.ServiceDesc{
 		{
 			MethodName: "PushForecasts",
 			Handler:    _ForecastService_PushForecasts_Handler,
+		},
+		{
+			MethodName: "ListForecasts",
+			Handler:    _ForecastService_ListForecasts_Handler,
 		},
 	},
 	Streams: []grpc.StreamDesc{

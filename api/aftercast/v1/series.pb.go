@@ -480,6 +480,162 @@ func (x *ListSeriesResponse) GetNextPageToken() string {
 	return ""
 }
 
+// ListModelsRequest is the request of SeriesService.ListModels.
+type ListModelsRequest struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// Key of the series.
+	Series        string `protobuf:"bytes,1,opt,name=series,proto3" json:"series,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *ListModelsRequest) Reset() {
+	*x = ListModelsRequest{}
+	mi := &file_aftercast_v1_series_proto_msgTypes[7]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *ListModelsRequest) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*ListModelsRequest) ProtoMessage() {}
+
+func (x *ListModelsRequest) ProtoReflect() protoreflect.Message {
+	mi := &file_aftercast_v1_series_proto_msgTypes[7]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use ListModelsRequest.ProtoReflect.Descriptor instead.
+func (*ListModelsRequest) Descriptor() ([]byte, []int) {
+	return file_aftercast_v1_series_proto_rawDescGZIP(), []int{7}
+}
+
+func (x *ListModelsRequest) GetSeries() string {
+	if x != nil {
+		return x.Series
+	}
+	return ""
+}
+
+// ListModelsResponse is the response of SeriesService.ListModels.
+type ListModelsResponse struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// Every model of the series, by name.
+	Models        []*SeriesModel `protobuf:"bytes,1,rep,name=models,proto3" json:"models,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *ListModelsResponse) Reset() {
+	*x = ListModelsResponse{}
+	mi := &file_aftercast_v1_series_proto_msgTypes[8]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *ListModelsResponse) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*ListModelsResponse) ProtoMessage() {}
+
+func (x *ListModelsResponse) ProtoReflect() protoreflect.Message {
+	mi := &file_aftercast_v1_series_proto_msgTypes[8]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use ListModelsResponse.ProtoReflect.Descriptor instead.
+func (*ListModelsResponse) Descriptor() ([]byte, []int) {
+	return file_aftercast_v1_series_proto_rawDescGZIP(), []int{8}
+}
+
+func (x *ListModelsResponse) GetModels() []*SeriesModel {
+	if x != nil {
+		return x.Models
+	}
+	return nil
+}
+
+// SeriesModel is one model of a series.
+type SeriesModel struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// The model.
+	Model string `protobuf:"bytes,1,opt,name=model,proto3" json:"model,omitempty"`
+	// The newest origin of a stored forecast; unset without forecasts.
+	LastOriginTime *timestamppb.Timestamp `protobuf:"bytes,2,opt,name=last_origin_time,json=lastOriginTime,proto3" json:"last_origin_time,omitempty"`
+	// The active baseline version; 0 without a baseline.
+	BaselineVersion int32 `protobuf:"varint,3,opt,name=baseline_version,json=baselineVersion,proto3" json:"baseline_version,omitempty"`
+	unknownFields   protoimpl.UnknownFields
+	sizeCache       protoimpl.SizeCache
+}
+
+func (x *SeriesModel) Reset() {
+	*x = SeriesModel{}
+	mi := &file_aftercast_v1_series_proto_msgTypes[9]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *SeriesModel) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*SeriesModel) ProtoMessage() {}
+
+func (x *SeriesModel) ProtoReflect() protoreflect.Message {
+	mi := &file_aftercast_v1_series_proto_msgTypes[9]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use SeriesModel.ProtoReflect.Descriptor instead.
+func (*SeriesModel) Descriptor() ([]byte, []int) {
+	return file_aftercast_v1_series_proto_rawDescGZIP(), []int{9}
+}
+
+func (x *SeriesModel) GetModel() string {
+	if x != nil {
+		return x.Model
+	}
+	return ""
+}
+
+func (x *SeriesModel) GetLastOriginTime() *timestamppb.Timestamp {
+	if x != nil {
+		return x.LastOriginTime
+	}
+	return nil
+}
+
+func (x *SeriesModel) GetBaselineVersion() int32 {
+	if x != nil {
+		return x.BaselineVersion
+	}
+	return 0
+}
+
 var File_aftercast_v1_series_proto protoreflect.FileDescriptor
 
 const file_aftercast_v1_series_proto_rawDesc = "" +
@@ -513,12 +669,22 @@ const file_aftercast_v1_series_proto_rawDesc = "" +
 	"key_prefix\x18\x03 \x01(\tR\tkeyPrefix\"j\n" +
 	"\x12ListSeriesResponse\x12,\n" +
 	"\x06series\x18\x01 \x03(\v2\x14.aftercast.v1.SeriesR\x06series\x12&\n" +
-	"\x0fnext_page_token\x18\x02 \x01(\tR\rnextPageToken2\x85\x02\n" +
+	"\x0fnext_page_token\x18\x02 \x01(\tR\rnextPageToken\"+\n" +
+	"\x11ListModelsRequest\x12\x16\n" +
+	"\x06series\x18\x01 \x01(\tR\x06series\"G\n" +
+	"\x12ListModelsResponse\x121\n" +
+	"\x06models\x18\x01 \x03(\v2\x19.aftercast.v1.SeriesModelR\x06models\"\x94\x01\n" +
+	"\vSeriesModel\x12\x14\n" +
+	"\x05model\x18\x01 \x01(\tR\x05model\x12D\n" +
+	"\x10last_origin_time\x18\x02 \x01(\v2\x1a.google.protobuf.TimestampR\x0elastOriginTime\x12)\n" +
+	"\x10baseline_version\x18\x03 \x01(\x05R\x0fbaselineVersion2\xd6\x02\n" +
 	"\rSeriesService\x12U\n" +
 	"\fCreateSeries\x12!.aftercast.v1.CreateSeriesRequest\x1a\".aftercast.v1.CreateSeriesResponse\x12L\n" +
 	"\tGetSeries\x12\x1e.aftercast.v1.GetSeriesRequest\x1a\x1f.aftercast.v1.GetSeriesResponse\x12O\n" +
 	"\n" +
-	"ListSeries\x12\x1f.aftercast.v1.ListSeriesRequest\x1a .aftercast.v1.ListSeriesResponseB=Z;github.com/aftercast/aftercast/api/aftercast/v1;aftercastv1b\x06proto3"
+	"ListSeries\x12\x1f.aftercast.v1.ListSeriesRequest\x1a .aftercast.v1.ListSeriesResponse\x12O\n" +
+	"\n" +
+	"ListModels\x12\x1f.aftercast.v1.ListModelsRequest\x1a .aftercast.v1.ListModelsResponseB=Z;github.com/aftercast/aftercast/api/aftercast/v1;aftercastv1b\x06proto3"
 
 var (
 	file_aftercast_v1_series_proto_rawDescOnce sync.Once
@@ -532,7 +698,7 @@ func file_aftercast_v1_series_proto_rawDescGZIP() []byte {
 	return file_aftercast_v1_series_proto_rawDescData
 }
 
-var file_aftercast_v1_series_proto_msgTypes = make([]protoimpl.MessageInfo, 7)
+var file_aftercast_v1_series_proto_msgTypes = make([]protoimpl.MessageInfo, 10)
 var file_aftercast_v1_series_proto_goTypes = []any{
 	(*Series)(nil),                // 0: aftercast.v1.Series
 	(*CreateSeriesRequest)(nil),   // 1: aftercast.v1.CreateSeriesRequest
@@ -541,26 +707,33 @@ var file_aftercast_v1_series_proto_goTypes = []any{
 	(*GetSeriesResponse)(nil),     // 4: aftercast.v1.GetSeriesResponse
 	(*ListSeriesRequest)(nil),     // 5: aftercast.v1.ListSeriesRequest
 	(*ListSeriesResponse)(nil),    // 6: aftercast.v1.ListSeriesResponse
-	(*timestamppb.Timestamp)(nil), // 7: google.protobuf.Timestamp
+	(*ListModelsRequest)(nil),     // 7: aftercast.v1.ListModelsRequest
+	(*ListModelsResponse)(nil),    // 8: aftercast.v1.ListModelsResponse
+	(*SeriesModel)(nil),           // 9: aftercast.v1.SeriesModel
+	(*timestamppb.Timestamp)(nil), // 10: google.protobuf.Timestamp
 }
 var file_aftercast_v1_series_proto_depIdxs = []int32{
-	7, // 0: aftercast.v1.Series.create_time:type_name -> google.protobuf.Timestamp
-	7, // 1: aftercast.v1.Series.grid_anchor_time:type_name -> google.protobuf.Timestamp
-	0, // 2: aftercast.v1.CreateSeriesRequest.series:type_name -> aftercast.v1.Series
-	0, // 3: aftercast.v1.CreateSeriesResponse.series:type_name -> aftercast.v1.Series
-	0, // 4: aftercast.v1.GetSeriesResponse.series:type_name -> aftercast.v1.Series
-	0, // 5: aftercast.v1.ListSeriesResponse.series:type_name -> aftercast.v1.Series
-	1, // 6: aftercast.v1.SeriesService.CreateSeries:input_type -> aftercast.v1.CreateSeriesRequest
-	3, // 7: aftercast.v1.SeriesService.GetSeries:input_type -> aftercast.v1.GetSeriesRequest
-	5, // 8: aftercast.v1.SeriesService.ListSeries:input_type -> aftercast.v1.ListSeriesRequest
-	2, // 9: aftercast.v1.SeriesService.CreateSeries:output_type -> aftercast.v1.CreateSeriesResponse
-	4, // 10: aftercast.v1.SeriesService.GetSeries:output_type -> aftercast.v1.GetSeriesResponse
-	6, // 11: aftercast.v1.SeriesService.ListSeries:output_type -> aftercast.v1.ListSeriesResponse
-	9, // [9:12] is the sub-list for method output_type
-	6, // [6:9] is the sub-list for method input_type
-	6, // [6:6] is the sub-list for extension type_name
-	6, // [6:6] is the sub-list for extension extendee
-	0, // [0:6] is the sub-list for field type_name
+	10, // 0: aftercast.v1.Series.create_time:type_name -> google.protobuf.Timestamp
+	10, // 1: aftercast.v1.Series.grid_anchor_time:type_name -> google.protobuf.Timestamp
+	0,  // 2: aftercast.v1.CreateSeriesRequest.series:type_name -> aftercast.v1.Series
+	0,  // 3: aftercast.v1.CreateSeriesResponse.series:type_name -> aftercast.v1.Series
+	0,  // 4: aftercast.v1.GetSeriesResponse.series:type_name -> aftercast.v1.Series
+	0,  // 5: aftercast.v1.ListSeriesResponse.series:type_name -> aftercast.v1.Series
+	9,  // 6: aftercast.v1.ListModelsResponse.models:type_name -> aftercast.v1.SeriesModel
+	10, // 7: aftercast.v1.SeriesModel.last_origin_time:type_name -> google.protobuf.Timestamp
+	1,  // 8: aftercast.v1.SeriesService.CreateSeries:input_type -> aftercast.v1.CreateSeriesRequest
+	3,  // 9: aftercast.v1.SeriesService.GetSeries:input_type -> aftercast.v1.GetSeriesRequest
+	5,  // 10: aftercast.v1.SeriesService.ListSeries:input_type -> aftercast.v1.ListSeriesRequest
+	7,  // 11: aftercast.v1.SeriesService.ListModels:input_type -> aftercast.v1.ListModelsRequest
+	2,  // 12: aftercast.v1.SeriesService.CreateSeries:output_type -> aftercast.v1.CreateSeriesResponse
+	4,  // 13: aftercast.v1.SeriesService.GetSeries:output_type -> aftercast.v1.GetSeriesResponse
+	6,  // 14: aftercast.v1.SeriesService.ListSeries:output_type -> aftercast.v1.ListSeriesResponse
+	8,  // 15: aftercast.v1.SeriesService.ListModels:output_type -> aftercast.v1.ListModelsResponse
+	12, // [12:16] is the sub-list for method output_type
+	8,  // [8:12] is the sub-list for method input_type
+	8,  // [8:8] is the sub-list for extension type_name
+	8,  // [8:8] is the sub-list for extension extendee
+	0,  // [0:8] is the sub-list for field type_name
 }
 
 func init() { file_aftercast_v1_series_proto_init() }
@@ -574,7 +747,7 @@ func file_aftercast_v1_series_proto_init() {
 			GoPackagePath: reflect.TypeOf(x{}).PkgPath(),
 			RawDescriptor: unsafe.Slice(unsafe.StringData(file_aftercast_v1_series_proto_rawDesc), len(file_aftercast_v1_series_proto_rawDesc)),
 			NumEnums:      0,
-			NumMessages:   7,
+			NumMessages:   10,
 			NumExtensions: 0,
 			NumServices:   1,
 		},

@@ -22,6 +22,7 @@ const (
 	SeriesService_CreateSeries_FullMethodName = "/aftercast.v1.SeriesService/CreateSeries"
 	SeriesService_GetSeries_FullMethodName    = "/aftercast.v1.SeriesService/GetSeries"
 	SeriesService_ListSeries_FullMethodName   = "/aftercast.v1.SeriesService/ListSeries"
+	SeriesService_ListModels_FullMethodName   = "/aftercast.v1.SeriesService/ListModels"
 )
 
 // SeriesServiceClient is the client API for SeriesService service.
@@ -46,6 +47,9 @@ type SeriesServiceClient interface {
 	GetSeries(ctx context.Context, in *GetSeriesRequest, opts ...grpc.CallOption) (*GetSeriesResponse, error)
 	// ListSeries pages through all series in ascending key order.
 	ListSeries(ctx context.Context, in *ListSeriesRequest, opts ...grpc.CallOption) (*ListSeriesResponse, error)
+	// ListModels lists the models with forecasts or a baseline for one
+	// series, by name. NOT_FOUND for an unknown series.
+	ListModels(ctx context.Context, in *ListModelsRequest, opts ...grpc.CallOption) (*ListModelsResponse, error)
 }
 
 type seriesServiceClient struct {
@@ -86,6 +90,16 @@ func (c *seriesServiceClient) ListSeries(ctx context.Context, in *ListSeriesRequ
 	return out, nil
 }
 
+func (c *seriesServiceClient) ListModels(ctx context.Context, in *ListModelsRequest, opts ...grpc.CallOption) (*ListModelsResponse, error) {
+	cOpts := append([]grpc.CallOption{grpc.StaticMethod()}, opts...)
+	out := new(ListModelsResponse)
+	err := c.cc.Invoke(ctx, SeriesService_ListModels_FullMethodName, in, out, cOpts...)
+	if err != nil {
+		return nil, err
+	}
+	return out, nil
+}
+
 // SeriesServiceServer is the server API for SeriesService service.
 // All implementations must embed UnimplementedSeriesServiceServer
 // for forward compatibility.
@@ -108,6 +122,9 @@ type SeriesServiceServer interface {
 	GetSeries(context.Context, *GetSeriesRequest) (*GetSeriesResponse, error)
 	// ListSeries pages through all series in ascending key order.
 	ListSeries(context.Context, *ListSeriesRequest) (*ListSeriesResponse, error)
+	// ListModels lists the models with forecasts or a baseline for one
+	// series, by name. NOT_FOUND for an unknown series.
+	ListModels(context.Context, *ListModelsRequest) (*ListModelsResponse, error)
 	mustEmbedUnimplementedSeriesServiceServer()
 }
 
@@ -126,6 +143,9 @@ func (UnimplementedSeriesServiceServer) GetSeries(context.Context, *GetSeriesReq
 }
 func (UnimplementedSeriesServiceServer) ListSeries(context.Context, *ListSeriesRequest) (*ListSeriesResponse, error) {
 	return nil, status.Error(codes.Unimplemented, "method ListSeries not implemented")
+}
+func (UnimplementedSeriesServiceServer) ListModels(context.Context, *ListModelsRequest) (*ListModelsResponse, error) {
+	return nil, status.Error(codes.Unimplemented, "method ListModels not implemented")
 }
 func (UnimplementedSeriesServiceServer) mustEmbedUnimplementedSeriesServiceServer() {}
 func (UnimplementedSeriesServiceServer) testEmbeddedByValue()                       {}
@@ -202,6 +222,24 @@ func _SeriesService_ListSeries_Handler(srv interface{}, ctx context.Context, dec
 	return interceptor(ctx, in, info, handler)
 }
 
+func _SeriesService_ListModels_Handler(srv interface{}, ctx context.Context, dec func(interface{}) error, interceptor grpc.UnaryServerInterceptor) (interface{}, error) {
+	in := new(ListModelsRequest)
+	if err := dec(in); err != nil {
+		return nil, err
+	}
+	if interceptor == nil {
+		return srv.(SeriesServiceServer).ListModels(ctx, in)
+	}
+	info := &grpc.UnaryServerInfo{
+		Server:     srv,
+		FullMethod: SeriesService_ListModels_FullMethodName,
+	}
+	handler := func(ctx context.Context, req interface{}) (interface{}, error) {
+		return srv.(SeriesServiceServer).ListModels(ctx, req.(*ListModelsRequest))
+	}
+	return interceptor(ctx, in, info, handler)
+}
+
 // SeriesService_ServiceDesc is the grpc.ServiceDesc for SeriesService service.
 // It's only intended for direct use with grpc.RegisterService,
 // and not to be introspected or modified (even as a copy)
@@ -220,6 +258,10 @@ var SeriesService_ServiceDesc = grpc.ServiceDesc{
 		{
 			MethodName: "ListSeries",
 			Handler:    _SeriesService_ListSeries_Handler,
+		},
+		{
+			MethodName: "ListModels",
+			Handler:    _SeriesService_ListModels_Handler,
 		},
 	},
 	Streams:  []grpc.StreamDesc{},
