@@ -2,12 +2,13 @@ package server
 
 import (
 	"context"
+	"encoding/binary"
 	"errors"
 	"fmt"
 	"io"
 	"math"
-	"strconv"
 
+	"google.golang.org/protobuf/proto"
 	"google.golang.org/protobuf/types/known/timestamppb"
 
 	aftercastv1 "github.com/aftercast/aftercast/api/aftercast/v1"
@@ -131,24 +132,32 @@ func pageSize(req int32, def, limit int) (int, error) {
 }
 
 // offsetPage is a page of a listing small enough to read whole and page in
-// memory: the token is the offset of the page's first item.
-type offsetPage struct{ size, off int }
+// memory: the token's position is the offset of the page's first item.
+type offsetPage struct {
+	size, off int
+	req       proto.Message
+}
 
 // offsetPaging reads a request's page size (default 100, at most 1000) and
 // offset token.
 func offsetPaging(req interface {
+	proto.Message
 	GetPageSize() int32
 	GetPageToken() string
 }) (offsetPage, error) {
 	size, err := pageSize(req.GetPageSize(), 100, 1000)
-	if err != nil || req.GetPageToken() == "" {
-		return offsetPage{size: size}, err
+	if err != nil {
+		return offsetPage{}, err
 	}
-	off, err := strconv.Atoi(req.GetPageToken())
-	if err != nil || off < 0 {
-		return offsetPage{}, invalidArg("page_token", "not a token this service issued")
+	pos, err := decodePage(req)
+	if err != nil || pos == nil {
+		return offsetPage{size: size, req: req}, err
 	}
-	return offsetPage{size, off}, nil
+	off, n := binary.Uvarint(pos)
+	if n != len(pos) || off > 1<<31 {
+		return offsetPage{}, badToken()
+	}
+	return offsetPage{size, int(off), req}, nil
 }
 
 // pageOf returns the page of items and the token of the next page, "" on
@@ -156,7 +165,7 @@ func offsetPaging(req interface {
 func pageOf[T any](items []T, p offsetPage) ([]T, string) {
 	lo, hi := min(p.off, len(items)), min(p.off+p.size, len(items))
 	if hi < len(items) {
-		return items[lo:hi], strconv.Itoa(hi)
+		return items[lo:hi], encodePage(binary.AppendUvarint(nil, uint64(hi)), p.req)
 	}
 	return items[lo:hi], ""
 }

@@ -2,6 +2,8 @@ package server
 
 import (
 	"context"
+	"encoding/binary"
+	"fmt"
 	"math"
 	"strconv"
 	"time"
@@ -149,13 +151,24 @@ func eventToProto(ev store.DriftEvent) *aftercastv1.DriftEvent {
 		WindowN: int32(ev.WindowN), KEff: optNaN(ev.KEff)}
 }
 
-func eventToken(tok string) (int64, error) {
+// eventToken reads an event's token (its sequence number), refusing one
+// this service never issued: a resume token from another deployment, or
+// made up, would otherwise deliver nothing and say nothing.
+func (s *driftService) eventToken(ctx context.Context, field, tok string) (int64, error) {
 	if tok == "" {
 		return 0, nil
 	}
 	n, err := strconv.ParseInt(tok, 10, 64)
-	if err != nil || n < 0 {
-		return 0, invalidArg("token", "not a token this service issued")
+	if err != nil || n < 1 {
+		return 0, invalidArg(field, "not an event token: pass the token of the last event processed, or none to start with new events")
+	}
+	last, err := s.store.LastEventSeq(ctx)
+	if err != nil {
+		return 0, s.status(ctx, err)
+	}
+	if n > last {
+		return 0, invalidArg(field, fmt.Sprintf("no event %d was ever issued here (the newest is %d): "+
+			"pass the token of the last event processed, or none to start with new events", n, last))
 	}
 	return n, nil
 }
@@ -165,7 +178,18 @@ func (s *driftService) ListDriftEvents(ctx context.Context, req *aftercastv1.Lis
 	if err != nil {
 		return nil, err
 	}
-	after, err := eventToken(req.GetPageToken())
+	var after int64
+	pos, err := decodePage(req)
+	if err != nil {
+		return nil, err
+	}
+	if pos != nil {
+		seq, n := binary.Varint(pos)
+		if n != len(pos) || seq < 0 {
+			return nil, badToken()
+		}
+		after = seq
+	}
 	if err != nil {
 		return nil, err
 	}
@@ -194,7 +218,7 @@ func (s *driftService) ListDriftEvents(ctx context.Context, req *aftercastv1.Lis
 	resp := &aftercastv1.ListDriftEventsResponse{}
 	for i, ev := range evs {
 		if i == size {
-			resp.NextPageToken = strconv.FormatInt(evs[i-1].Seq, 10)
+			resp.NextPageToken = encodePage(binary.AppendVarint(nil, evs[i-1].Seq), req)
 			break
 		}
 		resp.Events = append(resp.Events, eventToProto(ev))
@@ -211,7 +235,7 @@ const watchPoll = 500 * time.Millisecond
 // as they are committed, until the client goes away.
 func (s *driftService) WatchDriftEvents(req *aftercastv1.WatchDriftEventsRequest, stream aftercastv1.DriftService_WatchDriftEventsServer) error {
 	ctx := stream.Context()
-	after, err := eventToken(req.GetResumeToken())
+	after, err := s.eventToken(ctx, "resume_token", req.GetResumeToken())
 	if err != nil {
 		return err
 	}

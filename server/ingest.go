@@ -23,13 +23,22 @@ type forecastService struct {
 	aftercastv1.UnimplementedForecastServiceServer
 }
 
+// pointPaths names the fields of a vector's points as sent: per lead, the
+// path of its value ("dense.values[3]", "sparse.points[2].value").
+type pointPaths map[int]string
+
 // toVectors converts a batch. Values the store cannot represent (NaN in a
 // dense list, sparse leads out of range or repeated) are rejected here, with
-// the same index and lead conventions as the store's rejections.
-func (a *api) toVectors(fs []*aftercastv1.Forecast, first int) ([]store.ForecastVector, store.Ack) {
+// the store's conventions: the index of the vector in the push, the lead of
+// a rejected point, and the path of the field as sent. It returns, per
+// vector, where each lead's value was sent, so that the store's rejections
+// of points can name it. Quantile values, sent in the order of the points,
+// are laid out per lead as the store keeps them.
+func (a *api) toVectors(fs []*aftercastv1.Forecast, first int) ([]store.ForecastVector, []pointPaths, store.Ack) {
 	var ack store.Ack
 	maxH := a.store.Limits().MaxHorizon
 	out := make([]store.ForecastVector, len(fs))
+	paths := make([]pointPaths, len(fs))
 	reject := func(i, lead int, field, reason string) {
 		ack.Rejected++
 		ack.Rejections = append(ack.Rejections, store.Rejection{Index: first + i, Lead: lead, Field: field, Reason: reason})
@@ -38,46 +47,76 @@ func (a *api) toVectors(fs []*aftercastv1.Forecast, first int) ([]store.Forecast
 		v := store.ForecastVector{Series: f.GetSeries(), Model: f.GetModel()}
 		v.Origin, v.OriginInvalid = wireTime(f.GetOriginTime())
 		v.IssuedAt, v.IssueInvalid = wireTime(f.GetIssueTime())
+		paths[i] = pointPaths{}
 		switch {
 		case f.GetDense() != nil:
 			v.Values = append([]float64(nil), f.GetDense().GetValues()...)
-			for h, x := range v.Values {
+			for k, x := range v.Values {
+				paths[i][k+1] = fmt.Sprintf("dense.values[%d]", k)
 				if math.IsNaN(x) {
-					reject(i, h+1, "dense.values", "NaN is not a forecast: leave the lead out with sparse values instead")
+					reject(i, k+1, paths[i][k+1], "NaN is not a forecast: leave the lead out with sparse values instead")
 				}
 			}
 		case f.GetSparse() != nil:
-			for _, p := range f.GetSparse().GetPoints() {
+			for k, p := range f.GetSparse().GetPoints() {
 				h := int(p.GetLead())
 				switch {
 				case h < 1 || h > maxH:
-					reject(i, h, "sparse.points.lead", fmt.Sprintf("lead must be 1..%d", maxH))
+					reject(i, h, fmt.Sprintf("sparse.points[%d].lead", k), fmt.Sprintf("lead %d is outside 1..%d", h, maxH))
 					continue
 				case math.IsNaN(p.GetValue()):
-					reject(i, h, "sparse.points.value", "NaN is not a forecast")
+					reject(i, h, fmt.Sprintf("sparse.points[%d].value", k), "NaN is not a forecast")
 					continue
 				}
 				for len(v.Values) < h {
 					v.Values = append(v.Values, math.NaN())
 				}
 				if !math.IsNaN(v.Values[h-1]) {
-					reject(i, h, "sparse.points.lead", "lead appears twice in one vector")
+					reject(i, h, fmt.Sprintf("sparse.points[%d].lead", k), fmt.Sprintf("lead %d appears twice in one vector", h))
 					continue
 				}
-				v.Values[h-1] = p.GetValue()
+				v.Values[h-1], paths[i][h] = p.GetValue(), fmt.Sprintf("sparse.points[%d].value", k)
 			}
 		}
 		for _, q := range f.GetQuantiles() {
-			v.Quantiles = append(v.Quantiles, store.Quantile{Level: q.GetLevel(), Values: q.GetValues()})
+			v.Quantiles = append(v.Quantiles, store.Quantile{Level: q.GetLevel(), Values: perLead(f, q.GetValues(), len(v.Values))})
 		}
 		out[i] = v
 	}
-	return out, ack
+	return out, paths, ack
+}
+
+// perLead lays quantile values, sent in the order of a sparse vector's
+// points, out per lead (NaN where a lead has none); dense values and
+// values that do not match the points are passed on for the store to judge.
+func perLead(f *aftercastv1.Forecast, vals []float64, leads int) []float64 {
+	points := f.GetSparse().GetPoints()
+	if f.GetSparse() == nil || len(vals) != len(points) {
+		return vals
+	}
+	out := make([]float64, leads)
+	for j := range out {
+		out[j] = math.NaN()
+	}
+	for j, x := range vals {
+		if h := int(points[j].GetLead()); h >= 1 && h <= leads {
+			out[h-1] = x
+		}
+	}
+	return out
 }
 
 func (a *api) writeForecasts(ctx context.Context, fs []*aftercastv1.Forecast, first int) (store.Ack, error) {
-	vs, ack := a.toVectors(fs, first)
+	vs, paths, ack := a.toVectors(fs, first)
 	stored, err := a.store.WriteForecasts(ctx, vs, first)
+	// The store names a rejected point "values" and its lead: name the
+	// field as it was sent.
+	for j := range stored.Rejections {
+		r := &stored.Rejections[j]
+		if p, ok := paths[r.Index-first][r.Lead]; ok && r.Field == "values" && !r.Whole {
+			r.Field = p
+		}
+	}
 	ack.Add(stored)
 	if err == nil {
 		a.metrics().countForecasts(ack)
@@ -117,7 +156,8 @@ func forecastSummary(ack store.Ack) *aftercastv1.ForecastPushSummary {
 			s.RejectionsTruncated = true
 			break
 		}
-		s.Rejections = append(s.Rejections, &aftercastv1.ForecastRejection{Index: int64(r.Index), Lead: int32(r.Lead), Field: r.Field, Reason: r.Reason})
+		s.Rejections = append(s.Rejections, &aftercastv1.ForecastRejection{Index: int64(r.Index), Lead: int32(r.Lead), Field: r.Field,
+			Reason: r.Reason, WholeVector: r.Whole})
 	}
 	return s
 }

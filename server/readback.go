@@ -2,57 +2,35 @@ package server
 
 import (
 	"context"
-	"encoding/base64"
 	"encoding/binary"
-	"fmt"
-	"hash/fnv"
 	"math"
 	"time"
 
+	"google.golang.org/protobuf/proto"
 	"google.golang.org/protobuf/types/known/timestamppb"
 
 	aftercastv1 "github.com/aftercast/aftercast/api/aftercast/v1"
 	"github.com/aftercast/aftercast/server/store"
 )
 
-// timeCursor is the page token of a listing by time: the last time sent and
-// a hash of the request it continues, so that a token is refused for any
-// other request instead of silently skipping items.
-type timeCursor struct {
-	after time.Time
-	req   uint32
+// afterTime reads the position of a listing by time: the last time sent.
+func afterTime(req interface {
+	proto.Message
+	GetPageToken() string
+}) (time.Time, error) {
+	pos, err := decodePage(req)
+	if err != nil || pos == nil {
+		return time.Time{}, err
+	}
+	ns, n := binary.Varint(pos)
+	if n != len(pos) || ns < store.MinTime.UnixNano() || ns >= store.MaxTime.UnixNano() {
+		return time.Time{}, badToken()
+	}
+	return time.Unix(0, ns).UTC(), nil
 }
 
-func requestKey(parts ...any) uint32 {
-	h := fnv.New32a()
-	for _, p := range parts {
-		fmt.Fprintf(h, "%v\x00", p)
-	}
-	return h.Sum32()
-}
-
-func (c timeCursor) token() string {
-	b := binary.AppendVarint(nil, c.after.UnixNano())
-	b = binary.LittleEndian.AppendUint32(b, c.req)
-	return base64.RawURLEncoding.EncodeToString(b)
-}
-
-// readCursor decodes a page token of the request whose key is req.
-func readCursor(tok string, req uint32) (time.Time, error) {
-	if tok == "" {
-		return time.Time{}, nil
-	}
-	b, err := base64.RawURLEncoding.DecodeString(tok)
-	if err == nil {
-		ns, n := binary.Varint(b)
-		if n > 0 && len(b) == n+4 && ns >= store.MinTime.UnixNano() && ns < store.MaxTime.UnixNano() {
-			if binary.LittleEndian.Uint32(b[n:]) != req {
-				return time.Time{}, invalidArg("page_token", "this token continues another request: repeat that request, or start this one without a page token")
-			}
-			return time.Unix(0, ns).UTC(), nil
-		}
-	}
-	return time.Time{}, invalidArg("page_token", "not a token this service issued: start without a page token and pass on next_page_token")
+func timeToken(t time.Time, req proto.Message) string {
+	return encodePage(binary.AppendVarint(nil, t.UnixNano()), req)
 }
 
 // timeRange reads an optional [from, to) pair of timestamps.
@@ -86,8 +64,7 @@ func (s *forecastService) ListForecasts(ctx context.Context, req *aftercastv1.Li
 	if err != nil {
 		return nil, err
 	}
-	key := requestKey("forecasts", req.GetSeries(), req.GetModel(), from.UnixMicro(), to.UnixMicro())
-	after, err := readCursor(req.GetPageToken(), key)
+	after, err := afterTime(req)
 	if err != nil {
 		return nil, err
 	}
@@ -98,7 +75,7 @@ func (s *forecastService) ListForecasts(ctx context.Context, req *aftercastv1.Li
 	resp := &aftercastv1.ListForecastsResponse{}
 	for i, f := range fs {
 		if i == size {
-			resp.NextPageToken = timeCursor{fs[i-1].Origin, key}.token()
+			resp.NextPageToken = timeToken(fs[i-1].Origin, req)
 			break
 		}
 		resp.Forecasts = append(resp.Forecasts, storedForecastToProto(f))
@@ -132,8 +109,7 @@ func (s *actualService) ListActuals(ctx context.Context, req *aftercastv1.ListAc
 	if err != nil {
 		return nil, err
 	}
-	key := requestKey("actuals", req.GetSeries(), from.UnixMicro(), to.UnixMicro())
-	after, err := readCursor(req.GetPageToken(), key)
+	after, err := afterTime(req)
 	if err != nil {
 		return nil, err
 	}
@@ -144,7 +120,7 @@ func (s *actualService) ListActuals(ctx context.Context, req *aftercastv1.ListAc
 	resp := &aftercastv1.ListActualsResponse{}
 	for i, a := range as {
 		if i == size {
-			resp.NextPageToken = timeCursor{as[i-1].Time, key}.token()
+			resp.NextPageToken = timeToken(as[i-1].Time, req)
 			break
 		}
 		resp.Actuals = append(resp.Actuals, &aftercastv1.StoredActual{Time: timestamppb.New(a.Time), Value: a.Value,

@@ -78,15 +78,20 @@ func (s *seriesService) GetSeries(ctx context.Context, req *aftercastv1.GetSerie
 	return &aftercastv1.GetSeriesResponse{Series: seriesToProto(se)}, nil
 }
 
-// ListSeries pages by key; the page token is the last key of the page.
+// ListSeries pages by key; the page token's position is the last key of
+// the page.
 func (s *seriesService) ListSeries(ctx context.Context, req *aftercastv1.ListSeriesRequest) (*aftercastv1.ListSeriesResponse, error) {
 	size, err := pageSize(req.GetPageSize(), 100, 1000)
 	if err != nil {
 		return nil, err
 	}
-	after := req.GetPageToken()
+	pos, err := decodePage(req)
+	if err != nil {
+		return nil, err
+	}
+	after := string(pos)
 	if after != "" && !store.ValidKey(after) {
-		return nil, invalidArg("page_token", "not a token this service issued")
+		return nil, badToken()
 	}
 	prefix := req.GetKeyPrefix()
 	if after < prefix {
@@ -124,5 +129,9 @@ func (s *seriesService) ListSeries(ctx context.Context, req *aftercastv1.ListSer
 			}
 		}
 	}
-	return &aftercastv1.ListSeriesResponse{Series: out, NextPageToken: next}, nil
+	resp := &aftercastv1.ListSeriesResponse{Series: out}
+	if next != "" {
+		resp.NextPageToken = encodePage([]byte(next), req)
+	}
+	return resp, nil
 }

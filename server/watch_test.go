@@ -3,6 +3,7 @@ package server_test
 import (
 	"context"
 	"math/rand/v2"
+	"strings"
 	"testing"
 	"time"
 
@@ -93,9 +94,18 @@ func TestWatchDriftEventsResumes(t *testing.T) {
 	cancel()
 
 	// Resume after the first event received: the rest, no gap, no repeat.
-	want, err := drift.ListDriftEvents(ctx, &aftercastv1.ListDriftEventsRequest{PageToken: first.GetEvent().GetToken(), PageSize: 1000})
-	if err != nil || len(want.GetEvents()) == 0 {
-		t.Fatalf("events after the first: %d, %v", len(want.GetEvents()), err)
+	all, err := drift.ListDriftEvents(ctx, &aftercastv1.ListDriftEventsRequest{PageSize: 1000})
+	if err != nil {
+		t.Fatal(err)
+	}
+	var want []*aftercastv1.DriftEvent
+	for i, ev := range all.GetEvents() {
+		if ev.GetToken() == first.GetEvent().GetToken() {
+			want = all.GetEvents()[i+1:]
+		}
+	}
+	if len(want) == 0 {
+		t.Fatalf("no events listed after the first one watched (%d listed)", len(all.GetEvents()))
 	}
 	rctx, rcancel := context.WithTimeout(ctx, 20*time.Second)
 	defer rcancel()
@@ -103,7 +113,7 @@ func TestWatchDriftEventsResumes(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	for i, w := range want.GetEvents() {
+	for i, w := range want {
 		got, err := resumed.Recv()
 		if err != nil {
 			t.Fatalf("event %d: %v", i, err)
@@ -195,5 +205,44 @@ func TestFailedActualsStreamStillJudgesWhatItCommitted(t *testing.T) {
 		if !s.LastOrigin.Equal(last) {
 			t.Errorf("lead %d judged up to origin %v, want the last committed %v", s.Lead, s.LastOrigin, last)
 		}
+	}
+}
+
+// A resume token this service never issued is refused with a message, not
+// answered with an endless silence; so are page tokens passed with another
+// request than the one they continue.
+func TestUnknownTokensAreRefused(t *testing.T) {
+	t.Parallel()
+	srv, _ := start(t, storetest.URL(t))
+	ctx := ctxT(t)
+	conn := dialT(t, srv.GRPCAddr())
+	drift := aftercastv1.NewDriftServiceClient(conn)
+	w, err := drift.WatchDriftEvents(ctx, &aftercastv1.WatchDriftEventsRequest{ResumeToken: "123456"})
+	if err == nil {
+		_, err = w.Recv()
+	}
+	if status.Code(err) != codes.InvalidArgument || !strings.Contains(err.Error(), "no event 123456 was ever issued") {
+		t.Errorf("unknown resume token: %v", err)
+	}
+	series := aftercastv1.NewSeriesServiceClient(conn)
+	for _, k := range []string{"a/1", "a/2", "a/3", "b/1"} {
+		if _, err := series.CreateSeries(ctx, &aftercastv1.CreateSeriesRequest{Series: &aftercastv1.Series{Key: k, Step: "1h", Horizon: 1}}); err != nil {
+			t.Fatal(err)
+		}
+	}
+	page, err := series.ListSeries(ctx, &aftercastv1.ListSeriesRequest{KeyPrefix: "a/", PageSize: 1})
+	if err != nil || page.GetNextPageToken() == "" {
+		t.Fatalf("first page: %v %v", page, err)
+	}
+	if _, err := series.ListSeries(ctx, &aftercastv1.ListSeriesRequest{KeyPrefix: "b/", PageSize: 1, PageToken: page.GetNextPageToken()}); status.Code(err) != codes.InvalidArgument ||
+		!strings.Contains(err.Error(), "continues another request") {
+		t.Errorf("a token of another prefix: %v", err)
+	}
+	// The same request with another page size continues fine.
+	if next, err := series.ListSeries(ctx, &aftercastv1.ListSeriesRequest{KeyPrefix: "a/", PageSize: 5, PageToken: page.GetNextPageToken()}); err != nil || len(next.GetSeries()) != 2 {
+		t.Errorf("continuing with another page size: %v %v", next, err)
+	}
+	if _, err := drift.ListDriftStates(ctx, &aftercastv1.ListDriftStatesRequest{Series: "a/1", PageToken: page.GetNextPageToken()}); status.Code(err) != codes.InvalidArgument {
+		t.Errorf("a ListSeries token passed to ListDriftStates: %v", err)
 	}
 }

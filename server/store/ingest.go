@@ -49,9 +49,10 @@ type Actual struct {
 // Rejection says why one item, or one lead of it, was not stored.
 type Rejection struct {
 	Index  int // position of the item in the whole push, from 0
-	Lead   int // 0 when the whole item was rejected
+	Lead   int // the lead of a rejected point; 0 when Whole
 	Field  string
 	Reason string
+	Whole  bool // the whole item (vector) was rejected
 }
 
 // Ack is what a write did, counted in points (one forecast value for one
@@ -133,7 +134,7 @@ func (s *Store) WriteForecasts(ctx context.Context, vs []ForecastVector, firstIn
 		return ack, err
 	}
 	reject := func(i, lead int, field, format string, args ...any) {
-		ack.Rejections = append(ack.Rejections, Rejection{firstIndex + i, lead, field, fmt.Sprintf(format, args...)})
+		ack.Rejections = append(ack.Rejections, Rejection{firstIndex + i, lead, field, fmt.Sprintf(format, args...), lead == 0})
 	}
 	type item struct {
 		i  int
@@ -163,8 +164,9 @@ func (s *Store) WriteForecasts(ctx context.Context, vs []ForecastVector, firstIn
 		case n == 0:
 			// Every lead was rejected already (by the caller's conversion).
 			continue
-		case !validQuantiles(v):
-			reject(i, 0, "quantiles", "each level must lie in (0, 1), once, with one value per lead of the vector")
+		case quantileProblem(v) != nil:
+			q := quantileProblem(v)
+			reject(i, 0, q.Field, "%s", q.Reason)
 		default:
 			// Leads beyond the horizon and infinite values are rejected one by one.
 			for h := 1; h <= len(v.Values); h++ {
@@ -191,7 +193,8 @@ func (s *Store) WriteForecasts(ctx context.Context, vs []ForecastVector, firstIn
 			}
 			continue
 		}
-		ack.Rejected += n
+		// A vector rejected whole counts its points, and one when it had none.
+		ack.Rejected += max(n, 1)
 	}
 	if len(items) == 0 {
 		return ack, nil
@@ -278,15 +281,22 @@ func (s *Store) WriteForecasts(ctx context.Context, vs []ForecastVector, firstIn
 	return done, nil
 }
 
-func validQuantiles(v *ForecastVector) bool {
+// quantileProblem says which quantile of a vector cannot be stored and
+// why; nil when all can. Values are per lead, as the vector's Values.
+func quantileProblem(v *ForecastVector) *FieldViolation {
 	seen := map[float64]bool{}
-	for _, q := range v.Quantiles {
-		if !(q.Level > 0 && q.Level < 1) || seen[q.Level] || len(q.Values) != len(v.Values) {
-			return false
+	for k, q := range v.Quantiles {
+		switch {
+		case !(q.Level > 0 && q.Level < 1):
+			return &FieldViolation{fmt.Sprintf("quantiles[%d].level", k), fmt.Sprintf("%v must lie strictly between 0 and 1", q.Level)}
+		case seen[q.Level]:
+			return &FieldViolation{fmt.Sprintf("quantiles[%d].level", k), fmt.Sprintf("level %v appears twice in the vector", q.Level)}
+		case len(q.Values) != len(v.Values):
+			return &FieldViolation{fmt.Sprintf("quantiles[%d].values", k), fmt.Sprintf("%d values for %d leads", len(q.Values), len(v.Values))}
 		}
 		seen[q.Level] = true
 	}
-	return true
+	return nil
 }
 
 func items2keys[T any](items []T, f func(T) (*Series, string, time.Time)) []forecastKey {
@@ -650,7 +660,7 @@ func (s *Store) WriteActuals(ctx context.Context, as []Actual, firstIndex int) (
 		}
 		if field != "" {
 			ack.Rejected++
-			ack.Rejections = append(ack.Rejections, Rejection{firstIndex + i, 0, field, reason})
+			ack.Rejections = append(ack.Rejections, Rejection{firstIndex + i, 0, field, reason, true})
 			continue
 		}
 		k := key{se.ID, a.Time.UnixNano()}
