@@ -3,6 +3,7 @@ package server
 import (
 	"context"
 	"math"
+	"slices"
 
 	"google.golang.org/protobuf/types/known/timestamppb"
 
@@ -87,7 +88,7 @@ func (s *accuracyService) GetAccuracy(ctx context.Context, req *aftercastv1.GetA
 			states[st.Lead] = st
 		}
 	}
-	for _, l := range res.Table.Leads {
+	for _, l := range withLateOnlyLeads(res) {
 		la := &aftercastv1.LeadAccuracy{Lead: int32(l.Lead), Metrics: metricsToProto(l.Metrics), LateCount: res.LateBy[l.Lead]}
 		if v, ok := views[l.Lead]; ok {
 			la.Baseline = &aftercastv1.LeadBaselineComparison{BaselineVersion: int32(version), K: int32(v.K), KEff: v.KEff,
@@ -96,6 +97,21 @@ func (s *accuracyService) GetAccuracy(ctx context.Context, req *aftercastv1.GetA
 		out.Leads = append(out.Leads, la)
 	}
 	return out, nil
+}
+
+// withLateOnlyLeads is the table's rows plus a row, with no scored pair,
+// for each lead that has only late pairs: the response lists every lead
+// with a scored or a late pair.
+func withLateOnlyLeads(res store.AccuracyResult) []scoring.LeadMetrics {
+	rows := slices.Clone(res.Table.Leads)
+	var empty scoring.Accumulator
+	for h, n := range res.LateBy {
+		if n > 0 && !slices.ContainsFunc(rows, func(l scoring.LeadMetrics) bool { return l.Lead == h }) {
+			rows = append(rows, scoring.LeadMetrics{Lead: h, Metrics: empty.Metrics(math.NaN())})
+		}
+	}
+	slices.SortFunc(rows, func(a, b scoring.LeadMetrics) int { return a.Lead - b.Lead })
+	return rows
 }
 
 func (s *accuracyService) ListPairs(ctx context.Context, req *aftercastv1.ListPairsRequest) (*aftercastv1.ListPairsResponse, error) {

@@ -72,8 +72,10 @@ func statusToProto(st store.DriftStatus) *aftercastv1.DriftStatus {
 	return p
 }
 
-// ListDriftStates groups the stored states per (series, model): the
-// series-level state and every lead's. Pages by offset over the groups.
+// ListDriftStates lists every (series, model) with forecasts or a
+// baseline, with its stored states: the series-level state and every
+// lead's. One without a baseline, or whose baseline was not judged yet,
+// has a series-level state saying so and no lead states. Pages by offset.
 func (s *driftService) ListDriftStates(ctx context.Context, req *aftercastv1.ListDriftStatesRequest) (*aftercastv1.ListDriftStatesResponse, error) {
 	pg, err := offsetPaging(req)
 	if err != nil {
@@ -83,27 +85,23 @@ func (s *driftService) ListDriftStates(ctx context.Context, req *aftercastv1.Lis
 	if err != nil {
 		return nil, s.status(ctx, err)
 	}
-	var groups []*aftercastv1.SeriesModelDrift
+	models, err := s.store.Models(ctx, req.GetSeries(), req.GetModel())
+	if err != nil {
+		return nil, s.status(ctx, err)
+	}
+	type key struct{ series, model string }
+	byKey := map[key][]store.DriftStatus{}
 	for _, st := range sts {
-		g := groups
-		if len(g) == 0 || g[len(g)-1].GetSeries() != st.Series || g[len(g)-1].GetModel() != st.Model {
-			se, err := s.store.GetSeries(ctx, st.Series)
-			if err != nil {
-				return nil, s.status(ctx, err)
-			}
-			dec := make([]int32, 0, len(se.Decision()))
-			for _, h := range se.Decision() {
-				dec = append(dec, int32(h))
-			}
-			groups = append(groups, &aftercastv1.SeriesModelDrift{Series: st.Series, Model: st.Model,
-				BaselineVersion: int32(st.BaselineVersion), DecisionLeads: dec})
+		k := key{st.Series, st.Model}
+		byKey[k] = append(byKey[k], st)
+	}
+	groups := make([]*aftercastv1.SeriesModelDrift, 0, len(models))
+	for _, m := range models {
+		g, err := s.group(ctx, m, byKey[key{m.Series, m.Model}])
+		if err != nil {
+			return nil, s.status(ctx, err)
 		}
-		cur := groups[len(groups)-1]
-		if st.Lead == 0 {
-			cur.SeriesStatus = statusToProto(st)
-		} else {
-			cur.LeadStatuses = append(cur.LeadStatuses, statusToProto(st))
-		}
+		groups = append(groups, g)
 	}
 	resp := &aftercastv1.ListDriftStatesResponse{}
 	if resp.PendingEvaluations, _, err = s.store.DriftBacklog(ctx); err != nil {
@@ -114,6 +112,38 @@ func (s *driftService) ListDriftStates(ctx context.Context, req *aftercastv1.Lis
 	}
 	resp.States, resp.NextPageToken = pageOf(groups, pg)
 	return resp, nil
+}
+
+// group is the drift picture of one (series, model) from its stored
+// states (by lead, the series level first).
+func (s *driftService) group(ctx context.Context, m store.ModelOf, sts []store.DriftStatus) (*aftercastv1.SeriesModelDrift, error) {
+	se, err := s.store.GetSeries(ctx, m.Series)
+	if err != nil {
+		return nil, err
+	}
+	dec := make([]int32, 0, len(se.Decision()))
+	for _, h := range se.Decision() {
+		dec = append(dec, int32(h))
+	}
+	g := &aftercastv1.SeriesModelDrift{Series: m.Series, Model: m.Model, BaselineVersion: int32(m.BaselineVersion), DecisionLeads: dec}
+	for _, st := range sts {
+		if st.Lead == 0 {
+			g.SeriesStatus = statusToProto(st)
+			g.BaselineVersion = int32(st.BaselineVersion)
+		} else {
+			g.LeadStatuses = append(g.LeadStatuses, statusToProto(st))
+		}
+	}
+	switch {
+	case g.SeriesStatus != nil:
+	case m.BaselineVersion == 0:
+		g.SeriesStatus = &aftercastv1.DriftStatus{State: aftercastv1.DriftState_DRIFT_STATE_INSUFFICIENT_BASELINE,
+			Reason: "no baseline imported for this model: aftercast baseline import"}
+	default:
+		g.SeriesStatus = &aftercastv1.DriftStatus{State: aftercastv1.DriftState_DRIFT_STATE_INSUFFICIENT_DATA,
+			Reason: "the baseline has not been judged against production yet"}
+	}
+	return g, nil
 }
 
 // chancePages is the pages the (series, model) groups that can page are

@@ -286,7 +286,7 @@ func TestPairsPagesToCSV(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	if len(rows) != 6 || strings.Join(rows[0], ",") != "series,model,origin_time,target_time,lead,forecast,actual,error,late,forecast_received_at,actual_first_received_at" {
+	if len(rows) != 6 || strings.Join(rows[0], ",") != "series,model,origin_time,target_time,lead,forecast,actual,error,late,forecast_received_at,actual_first_received_at,late_reissue" {
 		t.Fatalf("got %d rows, header %v; want a header and 5 pairs", len(rows), rows[0])
 	}
 	if r := rows[5]; r[0] != "h" || r[1] != "m1" || r[4] != "5" || r[5] != "1.5" || r[7] != "0.5" || r[8] != "false" {

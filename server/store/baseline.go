@@ -471,7 +471,10 @@ func (s *Store) baselineVersion(ctx context.Context, q querier, se *Series, mode
 	v, err := scanBaseline(q.QueryRow(ctx, `SELECT `+baselineColumns+` FROM baselines WHERE series_id = $1 AND model = $2 AND version = $3`,
 		se.ID, model, version), se, model)
 	if errors.Is(err, pgx.ErrNoRows) {
-		return v, fmt.Errorf("baseline of model %q for series %q (version %d): %w", model, se.Key, version, ErrNotFound)
+		if version == 0 {
+			return v, fmt.Errorf("no baseline of model %q for series %q: %w", model, se.Key, ErrNotFound)
+		}
+		return v, fmt.Errorf("no version %d of the baseline of model %q for series %q: %w", version, model, se.Key, ErrNotFound)
 	}
 	if err != nil {
 		return v, fmt.Errorf("reading baseline: %w", err)

@@ -739,3 +739,33 @@ func markArgs(byID map[int64]*Series, times map[int64][]time.Time) []any {
 	}
 	return []any{ids, froms}
 }
+
+// ModelOf is a (series, model) pair that has forecasts or a baseline, with
+// its active baseline version (0: none).
+type ModelOf struct {
+	Series, Model   string
+	BaselineVersion int
+}
+
+// Models lists the (series, model) pairs with forecasts or a baseline,
+// optionally of one series and/or model ("" = all), by series key and
+// model.
+func (s *Store) Models(ctx context.Context, seriesKey, model string) ([]ModelOf, error) {
+	rows, err := s.pool.Query(ctx, `SELECT s.key, m.model, coalesce((SELECT max(version) FROM baselines b
+			WHERE b.series_id = m.series_id AND b.model = m.model), 0)
+		FROM (SELECT series_id, model FROM series_models UNION SELECT series_id, model FROM baselines) m
+		JOIN series s ON s.id = m.series_id
+		WHERE ($1 = '' OR s.key = $1) AND ($2 = '' OR m.model = $2)
+		ORDER BY s.key, m.model`, seriesKey, model)
+	if err != nil {
+		return nil, fmt.Errorf("reading models: %w", err)
+	}
+	out, err := pgx.CollectRows(rows, func(r pgx.CollectableRow) (ModelOf, error) {
+		var m ModelOf
+		return m, r.Scan(&m.Series, &m.Model, &m.BaselineVersion)
+	})
+	if err != nil {
+		return nil, fmt.Errorf("reading models: %w", err)
+	}
+	return out, nil
+}

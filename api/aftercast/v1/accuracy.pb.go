@@ -323,8 +323,10 @@ type LeadAccuracy struct {
 	Metrics *AccuracyMetrics `protobuf:"bytes,2,opt,name=metrics,proto3" json:"metrics,omitempty"`
 	// Pairs of this lead that the selection's ranges and leads match but the
 	// hindsight guard excluded: their forecast arrived after the actual was
-	// known. The live window never contains late pairs, so they are counted
-	// within the ranges regardless of window_origins.
+	// known (late re-issues included). They never count towards
+	// window_origins; with a window, the late pairs counted are those among
+	// the origins the window reaches back over. A lead with late pairs only
+	// has a row with metrics.n = 0.
 	LateCount int64 `protobuf:"varint,3,opt,name=late_count,json=lateCount,proto3" json:"late_count,omitempty"`
 	// The comparison with the active baseline of (series, model). Absent when
 	// no baseline exists for this series and model.

@@ -34,9 +34,11 @@ const (
 //
 // Problems with individual actuals do not fail the call: they are counted
 // as rejected and listed in the response, and the rest is stored. The call
-// itself fails only when it cannot be processed at all (for example
-// INVALID_ARGUMENT for a request over the size limit, UNAVAILABLE when the
-// database is down); then nothing of that request was acknowledged.
+// itself fails only when it cannot be processed at all: RESOURCE_EXHAUSTED
+// for a message over the server's size limit, INVALID_ARGUMENT for more
+// actuals in one message than max_batch, UNAVAILABLE when the database is
+// down (retry); then nothing of that message was acknowledged. The limits
+// are in InfoService.GetServerInfo.
 //
 // Durability and retries: a response is sent only after everything it
 // counts is committed; an acknowledged actual is never lost. Pushing is
@@ -50,8 +52,8 @@ const (
 // the later one wins.
 type ActualServiceClient interface {
 	// PushActuals stores one batch of actuals. Meant for small pushes: the
-	// request must fit the server's message size limit (4 MiB by default).
-	// Use StreamActuals for more.
+	// request must fit the server's message size limit (16 MiB by default)
+	// and its batch limit (10 000). Use StreamActuals for more.
 	PushActuals(ctx context.Context, in *PushActualsRequest, opts ...grpc.CallOption) (*PushActualsResponse, error)
 	// StreamActuals stores any number of batches sent as one client stream.
 	// The single response is sent after the client closes its side and every
@@ -115,9 +117,11 @@ func (c *actualServiceClient) ListActuals(ctx context.Context, in *ListActualsRe
 //
 // Problems with individual actuals do not fail the call: they are counted
 // as rejected and listed in the response, and the rest is stored. The call
-// itself fails only when it cannot be processed at all (for example
-// INVALID_ARGUMENT for a request over the size limit, UNAVAILABLE when the
-// database is down); then nothing of that request was acknowledged.
+// itself fails only when it cannot be processed at all: RESOURCE_EXHAUSTED
+// for a message over the server's size limit, INVALID_ARGUMENT for more
+// actuals in one message than max_batch, UNAVAILABLE when the database is
+// down (retry); then nothing of that message was acknowledged. The limits
+// are in InfoService.GetServerInfo.
 //
 // Durability and retries: a response is sent only after everything it
 // counts is committed; an acknowledged actual is never lost. Pushing is
@@ -131,8 +135,8 @@ func (c *actualServiceClient) ListActuals(ctx context.Context, in *ListActualsRe
 // the later one wins.
 type ActualServiceServer interface {
 	// PushActuals stores one batch of actuals. Meant for small pushes: the
-	// request must fit the server's message size limit (4 MiB by default).
-	// Use StreamActuals for more.
+	// request must fit the server's message size limit (16 MiB by default)
+	// and its batch limit (10 000). Use StreamActuals for more.
 	PushActuals(context.Context, *PushActualsRequest) (*PushActualsResponse, error)
 	// StreamActuals stores any number of batches sent as one client stream.
 	// The single response is sent after the client closes its side and every

@@ -486,8 +486,8 @@ type DriftEvent struct {
 	// change was not caused by a metric value (entering or leaving an
 	// insufficient state).
 	Metric DriftMetric `protobuf:"varint,7,opt,name=metric,proto3,enum=aftercast.v1.DriftMetric" json:"metric,omitempty"`
-	// State before the change; DRIFT_STATE_UNSPECIFIED for the first
-	// evaluation.
+	// The state announced before the change. Never unspecified: a lead's
+	// first event starts from DRIFT_STATE_INSUFFICIENT_DATA.
 	PreviousState DriftState `protobuf:"varint,8,opt,name=previous_state,json=previousState,proto3,enum=aftercast.v1.DriftState" json:"previous_state,omitempty"`
 	// State after the change.
 	NewState DriftState `protobuf:"varint,9,opt,name=new_state,json=newState,proto3,enum=aftercast.v1.DriftState" json:"new_state,omitempty"`

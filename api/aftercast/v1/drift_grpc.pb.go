@@ -43,7 +43,10 @@ const (
 // of a current state is stored as a DriftEvent.
 type DriftServiceClient interface {
 	// ListDriftStates pages through the current drift states, one entry per
-	// (series, model) with live pairs, ordered by series, then model.
+	// (series, model) with forecasts or a baseline, ordered by series, then
+	// model. An entry without a baseline has the series-level state
+	// DRIFT_STATE_INSUFFICIENT_BASELINE (reason says so) and no lead states;
+	// one whose new baseline is not judged yet, DRIFT_STATE_INSUFFICIENT_DATA.
 	ListDriftStates(ctx context.Context, in *ListDriftStatesRequest, opts ...grpc.CallOption) (*ListDriftStatesResponse, error)
 	// ListDriftEvents pages through stored drift events, oldest first (in
 	// the order they were committed).
@@ -141,7 +144,10 @@ func (c *driftServiceClient) GetDriftHistory(ctx context.Context, in *GetDriftHi
 // of a current state is stored as a DriftEvent.
 type DriftServiceServer interface {
 	// ListDriftStates pages through the current drift states, one entry per
-	// (series, model) with live pairs, ordered by series, then model.
+	// (series, model) with forecasts or a baseline, ordered by series, then
+	// model. An entry without a baseline has the series-level state
+	// DRIFT_STATE_INSUFFICIENT_BASELINE (reason says so) and no lead states;
+	// one whose new baseline is not judged yet, DRIFT_STATE_INSUFFICIENT_DATA.
 	ListDriftStates(context.Context, *ListDriftStatesRequest) (*ListDriftStatesResponse, error)
 	// ListDriftEvents pages through stored drift events, oldest first (in
 	// the order they were committed).

@@ -36,10 +36,11 @@ const (
 //
 // Problems with individual vectors or points do not fail the call: they are
 // counted as rejected and listed in the response, and the rest is stored.
-// The call itself fails only when it cannot be processed at all (for
-// example INVALID_ARGUMENT for a request over the size limit, UNAVAILABLE
-// when the database is down); then nothing of that request was
-// acknowledged.
+// The call itself fails only when it cannot be processed at all:
+// RESOURCE_EXHAUSTED for a message over the server's size limit,
+// INVALID_ARGUMENT for more vectors in one message than max_batch,
+// UNAVAILABLE when the database is down (retry); then nothing of that
+// message was acknowledged. The limits are in InfoService.GetServerInfo.
 //
 // Durability and retries: a response is sent only after everything it
 // counts is committed; an acknowledged point is never lost. Pushing is
@@ -53,8 +54,9 @@ const (
 // values, the later one wins (a re-issue, method.md §3).
 type ForecastServiceClient interface {
 	// PushForecasts stores one batch of forecast vectors. Meant for small
-	// pushes: the request must fit the server's message size limit (4 MiB by
-	// default). Use StreamForecasts for more.
+	// pushes: the request must fit the server's message size limit (16 MiB
+	// by default) and its batch limit (10 000 vectors). Use StreamForecasts
+	// for more.
 	PushForecasts(ctx context.Context, in *PushForecastsRequest, opts ...grpc.CallOption) (*PushForecastsResponse, error)
 	// StreamForecasts stores any number of batches sent as one client stream.
 	// The single response is sent after the client closes its side and every
@@ -121,10 +123,11 @@ func (c *forecastServiceClient) ListForecasts(ctx context.Context, in *ListForec
 //
 // Problems with individual vectors or points do not fail the call: they are
 // counted as rejected and listed in the response, and the rest is stored.
-// The call itself fails only when it cannot be processed at all (for
-// example INVALID_ARGUMENT for a request over the size limit, UNAVAILABLE
-// when the database is down); then nothing of that request was
-// acknowledged.
+// The call itself fails only when it cannot be processed at all:
+// RESOURCE_EXHAUSTED for a message over the server's size limit,
+// INVALID_ARGUMENT for more vectors in one message than max_batch,
+// UNAVAILABLE when the database is down (retry); then nothing of that
+// message was acknowledged. The limits are in InfoService.GetServerInfo.
 //
 // Durability and retries: a response is sent only after everything it
 // counts is committed; an acknowledged point is never lost. Pushing is
@@ -138,8 +141,9 @@ func (c *forecastServiceClient) ListForecasts(ctx context.Context, in *ListForec
 // values, the later one wins (a re-issue, method.md §3).
 type ForecastServiceServer interface {
 	// PushForecasts stores one batch of forecast vectors. Meant for small
-	// pushes: the request must fit the server's message size limit (4 MiB by
-	// default). Use StreamForecasts for more.
+	// pushes: the request must fit the server's message size limit (16 MiB
+	// by default) and its batch limit (10 000 vectors). Use StreamForecasts
+	// for more.
 	PushForecasts(context.Context, *PushForecastsRequest) (*PushForecastsResponse, error)
 	// StreamForecasts stores any number of batches sent as one client stream.
 	// The single response is sent after the client closes its side and every
