@@ -8,6 +8,7 @@ import (
 	"io"
 	"os"
 	"time"
+	"unicode/utf8"
 
 	aftercastv1 "github.com/aftercast/aftercast/api/aftercast/v1"
 	"github.com/aftercast/aftercast/cmd/aftercast/internal/push"
@@ -39,6 +40,9 @@ func pushForecasts(args []string, stdout, stderr io.Writer) error {
 		fs.Usage()
 		return errUsage
 	}
+	if !utf8.ValidString(*model) {
+		return fmt.Errorf("--model %q is not valid UTF-8", *model)
+	}
 	conn, err := cf.dial()
 	if err != nil {
 		return err
@@ -68,14 +72,18 @@ func pushForecasts(args []string, stdout, stderr io.Writer) error {
 		}
 		prog := newProgress(stderr, "vectors")
 		defer prog.done()
-		resp, err := streamBatches(forecasts.StreamForecasts, cf.timeout, *batch, src.Next,
+		resp, err := pushBatches(forecasts.StreamForecasts, cf.timeout, *batch, src.Next,
 			func(fs []*aftercastv1.Forecast) *aftercastv1.StreamForecastsRequest {
 				return &aftercastv1.StreamForecastsRequest{Forecasts: fs}
 			},
 			func() { prog.update(src.Rows, src.Vectors) })
 		return resp.GetSummary(), err
 	})
-	if err != nil {
+	stop, stopped := errors.AsType[*pushStop](err)
+	if err != nil && (!stopped || !stop.confirmed) {
+		if stopped {
+			return stop.report(cf, fmt.Sprintf("%s in %s", plural(src.Points, "point"), plural(src.Vectors, "vector")), "")
+		}
 		return cf.rpcError(err, "")
 	}
 
@@ -87,8 +95,14 @@ func pushForecasts(args []string, stdout, stderr io.Writer) error {
 		src.Rows, inputName(file), src.Points, src.Vectors, *model)
 	fmt.Fprintf(stdout, "accepted %d, duplicate %d, late %d, rejected %d\n", sum.GetAccepted(),
 		sum.GetDuplicate()+src.Duplicates, sum.GetLate(), sum.GetRejected()+src.Rejected.N)
-	return reportRejected(stdout, rejected, src.Rejected.Truncated, sum.GetRejectionsTruncated(),
+	err = reportRejected(stdout, rejected, src.Rejected.Truncated, sum.GetRejectionsTruncated(),
 		sum.GetRejected()+src.Rejected.N, src.Rows)
+	if stopped {
+		return stop.report(cf, fmt.Sprintf("%s in %s", plural(src.Points, "point"), plural(src.Vectors, "vector")),
+			fmt.Sprintf("accepted %d, duplicate %d, late %d, rejected %d",
+				sum.GetAccepted(), sum.GetDuplicate(), sum.GetLate(), sum.GetRejected()))
+	}
+	return err
 }
 
 func pushActuals(args []string, stdout, stderr io.Writer) error {
@@ -114,14 +128,18 @@ func pushActuals(args []string, stdout, stderr io.Writer) error {
 		}
 		prog := newProgress(stderr, "actuals")
 		defer prog.done()
-		resp, err := streamBatches(actuals.StreamActuals, cf.timeout, *batch, src.Next,
+		resp, err := pushBatches(actuals.StreamActuals, cf.timeout, *batch, src.Next,
 			func(as []*aftercastv1.Actual) *aftercastv1.StreamActualsRequest {
 				return &aftercastv1.StreamActualsRequest{Actuals: as}
 			},
 			func() { prog.update(src.Rows, src.Sent) })
 		return resp.GetSummary(), err
 	})
-	if err != nil {
+	stop, stopped := errors.AsType[*pushStop](err)
+	if err != nil && (!stopped || !stop.confirmed) {
+		if stopped {
+			return stop.report(cf, plural(src.Sent, "actual"), "")
+		}
 		return cf.rpcError(err, "")
 	}
 
@@ -132,8 +150,71 @@ func pushActuals(args []string, stdout, stderr io.Writer) error {
 	fmt.Fprintf(stdout, "read %d rows of %s: sent %d actuals\n", src.Rows, inputName(file), src.Sent)
 	fmt.Fprintf(stdout, "accepted %d, duplicate %d, revised %d, rejected %d\n", sum.GetAccepted(),
 		sum.GetDuplicate(), sum.GetRevised(), sum.GetRejected()+src.Rejected.N)
-	return reportRejected(stdout, rejected, src.Rejected.Truncated, sum.GetRejectionsTruncated(),
+	err = reportRejected(stdout, rejected, src.Rejected.Truncated, sum.GetRejectionsTruncated(),
 		sum.GetRejected()+src.Rejected.N, src.Rows)
+	if stopped {
+		return stop.report(cf, plural(src.Sent, "actual"), fmt.Sprintf("accepted %d, duplicate %d, revised %d, rejected %d",
+			sum.GetAccepted(), sum.GetDuplicate(), sum.GetRevised(), sum.GetRejected()))
+	}
+	return err
+}
+
+// pushStop is a push that an error of its input (a broken line of the
+// file) or of a series lookup ended before the end of the file. What had
+// been read before it was sent and the stream closed, so that the server's
+// response says what it committed (see pushBatches).
+type pushStop struct {
+	cause error
+	// messages counts the stream messages sent, or being sent when
+	// sending failed.
+	messages int
+	// confirmed is set when the server answered after the stream was
+	// closed: everything sent is committed.
+	confirmed bool
+	// unconfirmed is why the server did not answer, when it did not.
+	unconfirmed error
+}
+
+func (e *pushStop) Error() string { return e.cause.Error() }
+
+func (e *pushStop) Unwrap() error { return e.cause }
+
+// GRPCStatus is the cause's status, so that a lookup that failed with
+// UNAVAILABLE is retried like a broken stream.
+func (e *pushStop) GRPCStatus() *status.Status {
+	if st, ok := status.FromError(e.cause); ok {
+		return st
+	}
+	return status.New(codes.Unknown, e.cause.Error())
+}
+
+// report says why the push stopped and what the server holds of it. sent
+// is what was sent ("5000 actuals"); counts, when the server confirmed it,
+// what the server made of it ("accepted 4990, duplicate 0, …").
+func (e *pushStop) report(cf *clientFlags, sent, counts string) error {
+	cause := e.cause
+	if _, ok := status.FromError(cause); ok {
+		cause = cf.rpcError(cause, "")
+	}
+	const again = "Pushing the whole file again once it is fixed is safe: the rows already stored count as duplicates."
+	messages := plural(int64(e.messages), "message")
+	switch {
+	case e.confirmed:
+		return fmt.Errorf("%w\nThe push stopped there. The server committed the %s sent before it, in %s (%s); nothing else was sent. %s",
+			cause, sent, messages, counts, again)
+	case e.messages == 0 && e.unconfirmed == nil:
+		return fmt.Errorf("%w\nThe push stopped there, before sending anything: the server stored nothing of this file.", cause)
+	}
+	return fmt.Errorf("%w\nThe push stopped there after sending %s (up to %s), but the server did not confirm them (%v): some or all of them may be stored. %s",
+		cause, messages, sent, cf.rpcError(e.unconfirmed, ""), again)
+}
+
+// plural is "1 actual", "2 actuals".
+func plural(n int64, noun string) string {
+	if n == 1 {
+		return "1 " + noun
+	}
+	return fmt.Sprintf("%d %ss", n, noun)
 }
 
 // pushArgs parses the flags of a push command and returns its file.
@@ -242,10 +323,33 @@ var errStalled = errors.New("stalled")
 // stream as a whole has no deadline, since a large file (or a slow
 // producer piping into stdin) takes as long as it takes; instead it is
 // abandoned when opening it, sending one message or waiting for the final
-// acknowledgement takes longer than timeout.
+// acknowledgement takes longer than timeout. When next fails the stream is
+// abandoned: the server commits nothing of it when it commits only at the
+// end (a baseline import).
 func streamBatches[Item proto.Message, Req, Resp any](
 	open func(context.Context, ...grpc.CallOption) (grpc.ClientStreamingClient[Req, Resp], error),
 	timeout time.Duration, batch int, next func() (Item, error), wrap func([]Item) *Req, sent func(),
+) (*Resp, error) {
+	return sendBatches(open, timeout, batch, next, wrap, sent, false)
+}
+
+// pushBatches is streamBatches for a push, whose messages the server
+// commits one by one. When next fails (a broken line of the file, a failed
+// series lookup) it sends what next had returned before, closes the
+// stream and waits for the server's response, so that what is committed
+// is known rather than cut off at an unknown message: it returns that
+// response with a *pushStop.
+func pushBatches[Item proto.Message, Req, Resp any](
+	open func(context.Context, ...grpc.CallOption) (grpc.ClientStreamingClient[Req, Resp], error),
+	timeout time.Duration, batch int, next func() (Item, error), wrap func([]Item) *Req, sent func(),
+) (*Resp, error) {
+	return sendBatches(open, timeout, batch, next, wrap, sent, true)
+}
+
+func sendBatches[Item proto.Message, Req, Resp any](
+	open func(context.Context, ...grpc.CallOption) (grpc.ClientStreamingClient[Req, Resp], error),
+	timeout time.Duration, batch int, next func() (Item, error), wrap func([]Item) *Req, sent func(),
+	closeOnStop bool,
 ) (*Resp, error) {
 	ctx, cancel := context.WithCancelCause(context.Background())
 	defer cancel(nil)
@@ -264,12 +368,13 @@ func streamBatches[Item proto.Message, Req, Resp any](
 	if err = waited(err); err != nil {
 		return nil, err
 	}
-	items, size := make([]Item, 0, batch), 0
+	items, size, messages := make([]Item, 0, batch), 0, 0
 	flush := func() error {
 		if len(items) == 0 {
 			return nil
 		}
 		watchdog.Reset(timeout)
+		messages++
 		// A message must not change after Send, so every batch gets a
 		// new slice.
 		err := stream.Send(wrap(items))
@@ -285,13 +390,37 @@ func streamBatches[Item proto.Message, Req, Resp any](
 		items, size = make([]Item, 0, batch), 0
 		return nil
 	}
+	// stop ends a push at a failure of next (see pushBatches).
+	stop := func(cause error) (*Resp, error) {
+		if !closeOnStop {
+			return nil, cause
+		}
+		st := &pushStop{cause: cause}
+		if messages == 0 && len(items) == 0 {
+			return nil, st
+		}
+		err := flush()
+		st.messages = messages
+		if err != nil {
+			st.unconfirmed = err
+			return nil, st
+		}
+		watchdog.Reset(timeout)
+		resp, err := stream.CloseAndRecv()
+		if err = waited(err); err != nil {
+			st.unconfirmed = err
+			return nil, st
+		}
+		st.confirmed = true
+		return resp, st
+	}
 	for {
 		it, err := next()
 		if err == io.EOF {
 			break
 		}
 		if err != nil {
-			return nil, err
+			return stop(err)
 		}
 		n := proto.Size(it)
 		if len(items) > 0 && size+n > maxMessage {

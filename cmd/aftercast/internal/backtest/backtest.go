@@ -13,11 +13,13 @@
 package backtest
 
 import (
+	"errors"
 	"fmt"
 	"io"
 	"strconv"
 	"strings"
 	"time"
+	"unicode/utf8"
 
 	aftercastv1 "github.com/aftercast/aftercast/api/aftercast/v1"
 	"github.com/aftercast/aftercast/cmd/aftercast/internal/records"
@@ -178,19 +180,25 @@ func (im *Import) ReadTraining(r io.Reader, file string) error {
 	})
 }
 
-// eachRow calls parse on every data row of rd. A row that parse refuses
-// is gathered into a *BadRows returned at the end, so one pass reports
-// every bad row of the file rather than the first.
+// eachRow calls parse on every data row of rd. A row that the reader
+// (records.ErrRow) or parse refuses is gathered into a *BadRows returned
+// at the end, so one pass reports every bad row of the file rather than
+// the first.
 func eachRow(rd *records.Reader, file string, parse func() error) error {
 	bad := &BadRows{File: file}
 	for {
-		if err := rd.Next(); err == io.EOF {
+		err := rd.Next()
+		if err == io.EOF {
 			break
-		} else if err != nil {
+		}
+		if err != nil && !errors.Is(err, records.ErrRow) {
 			return err
 		}
 		bad.Rows++
-		if err := parse(); err != nil {
+		if err == nil {
+			err = parse()
+		}
+		if err != nil {
 			bad.add(err)
 		}
 	}
@@ -210,12 +218,16 @@ func line(rd *records.Reader) (int32, error) {
 // Messages returns the stream's messages one by one, then io.EOF: first
 // the backtest rows in file order, then the training actuals, at most
 // batch items and about maxBytes encoded per message. The model is named
-// in the first message only. Each call of Messages starts the stream
-// anew, so a failed stream can be sent again.
+// in the first message only; a model name that is not UTF-8 (which no
+// message can carry) is the first call's error. Each call of Messages
+// starts the stream anew, so a failed stream can be sent again.
 func (im *Import) Messages(model string, batch, maxBytes int) func() (*aftercastv1.ImportBaselineRequest, error) {
 	batch = max(batch, 1)
 	nextRow, nextTraining, first := 0, 0, true
 	return func() (*aftercastv1.ImportBaselineRequest, error) {
+		if first && !utf8.ValidString(model) {
+			return nil, fmt.Errorf("model %q is not valid UTF-8", model)
+		}
 		if nextRow == len(im.rows) && nextTraining == len(im.training) && !first {
 			return nil, io.EOF
 		}

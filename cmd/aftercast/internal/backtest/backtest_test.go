@@ -196,3 +196,49 @@ func collect(t *testing.T, next func() (*aftercastv1.ImportBaselineRequest, erro
 		}
 	}
 }
+
+func TestReadIsStrict(t *testing.T) {
+	t.Parallel()
+	const head = "series,origin_time,target_time,forecast,actual\n"
+	for _, c := range []struct{ name, row, want string }{
+		{"a field more", "h,2026-01-01T00:00:00Z,2026-01-01T02:00:00Z,1,2,5", "bt.csv:3: row has 6 fields, the header has 5 (quote a field that contains a comma)"},
+		{"a field less", "h,2026-01-01T00:00:00Z,2026-01-01T02:00:00Z,1", "bt.csv:3: row has 4 fields, the header has 5"},
+		{"latin-1 key", "h\xe9,2026-01-01T00:00:00Z,2026-01-01T02:00:00Z,1,2", `bt.csv:3: column series: "h\xe9" is not valid UTF-8 (byte 0xe9 at offset 1; the file must be UTF-8)`},
+		{"hexadecimal", "h,2026-01-01T00:00:00Z,2026-01-01T02:00:00Z,0x1p3,2", `bt.csv:3: column forecast: "0x1p3" is not a plain decimal number (hexadecimal is refused)`},
+		{"digit separator", "h,2026-01-01T00:00:00Z,2026-01-01T02:00:00Z,1,1_000", `bt.csv:3: column actual: "1_000" is not a plain decimal number ("_" between digits is refused)`},
+		{"underflow", "h,2026-01-01T00:00:00Z,2026-01-01T02:00:00Z,1e-400,2", `bt.csv:3: column forecast: "1e-400" underflows float64: it is not zero but rounds to 0`},
+		{"overflow", "h,2026-01-01T00:00:00Z,2026-01-01T02:00:00Z,1,1e400", `bt.csv:3: column actual: "1e400" overflows float64 (its magnitude is above 1.8e308)`},
+		{"NaN", "h,2026-01-01T00:00:00Z,2026-01-01T02:00:00Z,NaN,2", `bt.csv:3: column forecast: "NaN" is not a finite number (NaN and Inf are refused)`},
+	} {
+		t.Run(c.name, func(t *testing.T) {
+			t.Parallel()
+			// Every bad row is reported, and the good ones around it are read.
+			var im Import
+			err := im.ReadBacktest(strings.NewReader(head+
+				"h,2026-01-01T00:00:00Z,2026-01-01T01:00:00Z,1,2\n"+c.row+"\n"+
+				"h,2026-01-01T00:00:00Z,2026-01-01T03:00:00Z,1e-320,2\n"), "bt.csv")
+			bad, ok := errors.AsType[*BadRows](err)
+			if !ok || bad.N != 1 || bad.Rows != 3 || !strings.HasPrefix(bad.List[0].Error(), c.want) {
+				t.Fatalf("err = %v\nwant 1 of 3 rows bad: %s", err, c.want)
+			}
+			if im.Rows() != 2 || im.rows[1].forecast != 1e-320 {
+				t.Errorf("kept %d rows %+v, want lines 2 and 4", im.Rows(), im.rows)
+			}
+		})
+	}
+	var im Import
+	err := im.ReadTraining(strings.NewReader("series,time,value\nh,2026-01-01T00:00:00Z,1,\nh,2026-01-01T01:00:00Z,1_0\n"), "hist.csv")
+	if bad, ok := errors.AsType[*BadRows](err); !ok || bad.N != 2 ||
+		bad.List[0].Error() != "hist.csv:2: row has 4 fields, the header has 3 (quote a field that contains a comma)" ||
+		bad.List[1].Error() != `hist.csv:3: column value: "1_0" is not a plain decimal number ("_" between digits is refused)` {
+		t.Errorf("training: %v", err)
+	}
+}
+
+func TestMessagesRefuseAModelThatIsNotUTF8(t *testing.T) {
+	t.Parallel()
+	im := readTest(t)
+	if _, err := im.Messages("m\xff", 10, 1<<20)(); err == nil || err.Error() != `model "m\xff" is not valid UTF-8` {
+		t.Errorf("err = %v, want the model refused", err)
+	}
+}

@@ -204,12 +204,18 @@ func (e *evaluation) inferSteps(path string) error {
 	guesses := make(map[groupKey]*scoring.StepGuess)
 	rr := newRowReader(rd)
 	for {
-		if err := rd.Next(); err == io.EOF {
+		err := rd.Next()
+		if err == io.EOF {
 			break
-		} else if err != nil {
+		}
+		if err != nil && !errors.Is(err, records.ErrRow) {
 			return err
 		}
-		k, o, t, err := rr.times()
+		var k groupKey
+		var o, t time.Time
+		if err == nil {
+			k, o, t, err = rr.times()
+		}
 		if err != nil {
 			if err := e.fail(err); err != nil {
 				return err
@@ -274,12 +280,18 @@ func (e *evaluation) pass(path string, holdAll bool) error {
 	rr := newRowReader(rd)
 	var last *group
 	for {
-		if err := rd.Next(); err == io.EOF {
+		err := rd.Next()
+		if err == io.EOF {
 			break
-		} else if err != nil {
+		}
+		if err != nil && !errors.Is(err, records.ErrRow) {
 			return err // a broken CSV structure: later lines cannot be trusted
 		}
-		k, o, t, err := rr.times()
+		var k groupKey
+		var o, t time.Time
+		if err == nil { // else a row refused on its own (records.ErrRow)
+			k, o, t, err = rr.times()
+		}
 		var fc, y float64
 		if err == nil {
 			fc, err = rr.Float(rr.forecast)

@@ -36,14 +36,19 @@ func readHistory(path string) (map[string]history, error) {
 	var errs []error
 	cSeries, cTime, cValue := rd.Column("series"), rd.Column("time"), rd.Column("value")
 	for len(errs) < maxErrors {
-		if err := rd.Next(); err == io.EOF {
+		err := rd.Next()
+		if err == io.EOF {
 			break
-		} else if err != nil {
+		}
+		if err != nil && !errors.Is(err, records.ErrRow) {
 			return nil, err
 		}
-		s, err := rd.Required(cSeries)
+		var s string
 		var t time.Time
 		var v float64
+		if err == nil { // else a row refused on its own (records.ErrRow)
+			s, err = rd.Required(cSeries)
+		}
 		if err == nil {
 			t, err = rd.Time(cTime)
 		}

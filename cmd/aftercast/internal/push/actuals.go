@@ -2,6 +2,7 @@ package push
 
 import (
 	"cmp"
+	"errors"
 	"fmt"
 	"io"
 	"strings"
@@ -40,14 +41,21 @@ func NewActuals(r io.Reader, file string) (*Actuals, error) {
 }
 
 // Next returns the next actual to send, io.EOF after the last. Its index
-// in the stream is the number of actuals returned before it.
+// in the stream is the number of actuals returned before it. A row that is
+// bad on its own is rejected and skipped; an error other than io.EOF
+// (broken quoting, unreadable input) ends the reading.
 func (a *Actuals) Next() (*aftercastv1.Actual, error) {
 	rd := a.rd
 	for {
-		if err := rd.Next(); err != nil {
+		err := rd.Next()
+		if err != nil && !errors.Is(err, records.ErrRow) {
 			return nil, err
 		}
 		a.Rows++
+		if err != nil {
+			a.Rejected.add(rd.Line(), "%s", reason(err))
+			continue
+		}
 		series, err := rd.Required(a.series)
 		if err != nil {
 			a.Rejected.add(rd.Line(), "%s", reason(err))

@@ -150,15 +150,20 @@ func (f *Forecasts) Next() (*aftercastv1.Forecast, error) {
 // read reads one row into its open vector, or rejects it.
 func (f *Forecasts) read() error {
 	rd := f.rd
-	switch err := rd.Next(); {
+	err := rd.Next()
+	switch {
 	case err == io.EOF:
 		f.eof = true
 		return nil
-	case err != nil:
+	case err != nil && !errors.Is(err, records.ErrRow):
 		return err
 	}
 	f.Rows++
 	line := rd.Line()
+	if err != nil {
+		f.Rejected.add(line, "%s", reason(err))
+		return nil
+	}
 	series, err := rd.Required(f.series)
 	if err != nil {
 		f.Rejected.add(line, "%s", reason(err))

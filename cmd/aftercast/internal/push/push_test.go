@@ -375,3 +375,86 @@ func TestRejectionsKeepTheFirstThousand(t *testing.T) {
 		t.Errorf("sorted %q, want %q", got, want)
 	}
 }
+
+// strictRows are rows each refused on its own before sending, with the
+// reason their rejection must give; the rows around them are sent.
+var strictRows = []struct{ name, row, want string }{
+	{"a field more", "h,2026-01-01T00:00:00Z,2026-01-01T02:00:00Z,1,5", "row has 5 fields, the header has 4 (quote a field that contains a comma)"},
+	{"a field less", "h,2026-01-01T00:00:00Z,2026-01-01T02:00:00Z", "row has 3 fields, the header has 4"},
+	{"latin-1 key", "h\xe9,2026-01-01T00:00:00Z,2026-01-01T02:00:00Z,1", `column series: "h\xe9" is not valid UTF-8 (byte 0xe9 at offset 1; the file must be UTF-8)`},
+	{"hexadecimal", "h,2026-01-01T00:00:00Z,2026-01-01T02:00:00Z,0x1p3", `column forecast: "0x1p3" is not a plain decimal number (hexadecimal is refused)`},
+	{"digit separator", "h,2026-01-01T00:00:00Z,2026-01-01T02:00:00Z,1_000", `column forecast: "1_000" is not a plain decimal number ("_" between digits is refused)`},
+	{"underflow", "h,2026-01-01T00:00:00Z,2026-01-01T02:00:00Z,1e-400", `column forecast: "1e-400" underflows float64: it is not zero but rounds to 0`},
+	{"overflow", "h,2026-01-01T00:00:00Z,2026-01-01T02:00:00Z,-1e400", `column forecast: "-1e400" overflows float64`},
+	{"infinity", "h,2026-01-01T00:00:00Z,2026-01-01T02:00:00Z,+Inf", `column forecast: "+Inf" is not a finite number (NaN and Inf are refused)`},
+}
+
+func TestForecastsRefuseStrictly(t *testing.T) {
+	t.Parallel()
+	for _, c := range strictRows {
+		t.Run(c.name, func(t *testing.T) {
+			t.Parallel()
+			src := newForecasts(t, "series,origin_time,target_time,forecast\n"+
+				"h,2026-01-01T00:00:00Z,2026-01-01T01:00:00Z,1\n"+ // 2
+				c.row+"\n"+ // 3
+				"h,2026-01-01T00:00:00Z,2026-01-01T03:00:00Z,1e-320\n", // 4: subnormal, kept
+				DefaultMaxOpen)
+			got := readAll(t, src)
+			if want := []vec{{Series: "h", Origin: "2026-01-01T00:00:00Z", Sparse: map[int32]float64{1: 1, 3: 1e-320}}}; !reflect.DeepEqual(got, want) {
+				t.Errorf("vectors %+v, want %+v", got, want)
+			}
+			if src.Rows != 3 || src.Rejected.N != 1 || len(src.Rejected.List) != 1 {
+				t.Fatalf("rows %d, rejected %+v; want 3 rows, line 3 rejected", src.Rows, src.Rejected)
+			}
+			if r := src.Rejected.List[0].String(); !strings.HasPrefix(r, "line 3: "+c.want) {
+				t.Errorf("rejection %q, want it to start with %q", r, "line 3: "+c.want)
+			}
+		})
+	}
+}
+
+func TestActualsRefuseStrictly(t *testing.T) {
+	t.Parallel()
+	for _, c := range strictRows {
+		t.Run(c.name, func(t *testing.T) {
+			t.Parallel()
+			// The same rows as actuals: series,time,<unused origin>,value.
+			row := strings.Replace(c.row, "h,2026-01-01T00:00:00Z,2026-01-01T02:00:00Z", "h,2026-01-01T02:00:00Z,x", 1)
+			src, err := NewActuals(strings.NewReader("series,time,note,value\n"+
+				"h,2026-01-01T01:00:00Z,x,1\n"+row+"\nh,2026-01-01T03:00:00Z,x,3\n"), "a.csv")
+			if err != nil {
+				t.Fatal(err)
+			}
+			var sent []float64
+			for {
+				a, err := src.Next()
+				if err == io.EOF {
+					break
+				}
+				if err != nil {
+					t.Fatal(err)
+				}
+				sent = append(sent, a.GetValue())
+			}
+			want := strings.ReplaceAll(c.want, "column forecast", "column value")
+			if !reflect.DeepEqual(sent, []float64{1, 3}) || src.Rows != 3 || src.Rejected.N != 1 ||
+				!strings.HasPrefix(src.Rejected.List[0].String(), "line 3: "+want) {
+				t.Errorf("sent %v, rows %d, rejected %+v; want [1 3], 3 rows and line 3: %s", sent, src.Rows, src.Rejected, want)
+			}
+		})
+	}
+}
+
+func TestReadingStopsOnBrokenQuoting(t *testing.T) {
+	t.Parallel()
+	src, err := NewActuals(strings.NewReader("series,time,value\nh,2026-01-01T01:00:00Z,1\nh,2026-01-01T02:00:00Z,\"2\n"), "a.csv")
+	if err != nil {
+		t.Fatal(err)
+	}
+	if _, err := src.Next(); err != nil {
+		t.Fatal(err)
+	}
+	if _, err := src.Next(); err == nil || err == io.EOF || !strings.Contains(err.Error(), "a.csv:3: quoted field is not closed") {
+		t.Errorf("Next: %v, want the unclosed quote at a.csv:3", err)
+	}
+}

@@ -6,6 +6,7 @@ import (
 	"math"
 	"strings"
 	"testing"
+	"unicode/utf8"
 )
 
 func TestReaderNamesLines(t *testing.T) {
@@ -57,13 +58,18 @@ func TestReaderHeaderErrors(t *testing.T) {
 }
 
 // FuzzReader feeds arbitrary bytes: the reader must never panic, every error
-// must name a line ≥ 1, and a number it accepts is finite.
+// must name a line ≥ 1, a row it accepts has the header's field count and
+// UTF-8 fields, a row it refuses on its own (ErrRow) leaves it reading on,
+// and a number it accepts is finite and in the plain decimal grammar.
 func FuzzReader(f *testing.F) {
 	f.Add("series,time,value\na,2026-01-01T00:00:00Z,1\n")
 	f.Add("series,time,value\na,2026-01-01T00:00:00Z,NaN\nb,x,1e400\n")
 	f.Add("value,series,time\n\"1\",\"a\nb\",2026-01-01T00:00:00+14:00\n")
 	f.Add("series,time,value\n\"unterminated,1,2\n")
 	f.Add("series,time,value\na\n,,,,,\n")
+	f.Add("series,time,value\na,2026-01-01T00:00:00Z,0x1p3\nb,2026-01-01T00:00:00Z,1_000\nc,2026-01-01T00:00:00Z,1e-400\n")
+	f.Add("series,time,value\na\xff,2026-01-01T00:00:00Z,1\nb,2026-01-01T00:00:00Z,.5\n")
+	f.Add("series,time,value\na,2026-01-01T00:00:00Z,1,5\nb,2026-01-01T00:00:00Z,5.\n")
 	f.Fuzz(func(t *testing.T, in string) {
 		rd, err := NewReader(strings.NewReader(in), "fuzz.csv", "series", "time", "value")
 		if err != nil {
@@ -78,14 +84,27 @@ func FuzzReader(f *testing.F) {
 			}
 			if err != nil {
 				checkLine(t, err)
+				if errors.Is(err, ErrRow) {
+					continue
+				}
 				return
 			}
 			if rd.Line() < last {
 				t.Fatalf("line went back from %d to %d", last, rd.Line())
 			}
 			last = rd.Line()
+			if len(rd.rec) != len(rd.names) {
+				t.Fatalf("line %d: accepted %d fields under a header of %d", rd.Line(), len(rd.rec), len(rd.names))
+			}
+			for _, f := range rd.rec {
+				if !utf8.ValidString(f) {
+					t.Fatalf("line %d: accepted the field %q, not UTF-8", rd.Line(), f)
+				}
+			}
 			if v, err := rd.Float(rd.Column("value")); err == nil && (math.IsNaN(v) || math.IsInf(v, 0)) {
 				t.Fatalf("accepted non-finite %v", v)
+			} else if err == nil && !decimalGrammar.MatchString(strings.TrimSpace(rd.String(rd.Column("value")))) {
+				t.Fatalf("accepted %q, not a plain decimal", rd.String(rd.Column("value")))
 			} else if err != nil {
 				checkLine(t, err)
 			}

@@ -5,6 +5,7 @@ import (
 	"fmt"
 	"io"
 	"strings"
+	"unicode/utf8"
 )
 
 // maxRecord bounds one record, so that a file without line breaks cannot
@@ -18,6 +19,11 @@ const maxRecord = 1 << 20
 // record. Quoted fields (with "" escapes and line breaks inside) are
 // handled too, and malformed quoting is an error as in encoding/csv's strict
 // mode. Fields alias the chunk: callers that keep one must clone it.
+//
+// It does not judge the bytes of a field, but it notes whether a record's
+// lines are valid UTF-8 (one check per line is much cheaper than one per
+// field): its fields are then valid too, since quotes and commas, which
+// are ASCII, are all it takes out.
 type splitter struct {
 	r      io.Reader
 	buf    []byte
@@ -27,6 +33,9 @@ type splitter struct {
 	quoted []byte
 	ends   []int
 	fields []string
+	// notUTF8 is set when a line of the record next returned last is not
+	// valid UTF-8.
+	notUTF8 bool
 }
 
 var (
@@ -83,12 +92,16 @@ func (s *splitter) physical() (line string, ok bool, err error) {
 		}
 	}
 	s.line++
+	if !utf8.ValidString(line) {
+		s.notUTF8 = true
+	}
 	return strings.TrimSuffix(line, "\r"), true, nil
 }
 
 // next returns the fields of the next non-blank record and the line it
 // starts on. The fields stay valid until the following call.
 func (s *splitter) next() ([]string, int, error) {
+	s.notUTF8 = false
 	for {
 		b, ok, err := s.physical()
 		if err != nil {
