@@ -2,12 +2,14 @@ package server
 
 import (
 	"context"
+	"crypto/sha256"
 	"errors"
 	"fmt"
 	"io"
 	"math"
 	"time"
 
+	"google.golang.org/protobuf/proto"
 	"google.golang.org/protobuf/types/known/timestamppb"
 
 	aftercastv1 "github.com/aftercast/aftercast/api/aftercast/v1"
@@ -106,36 +108,81 @@ func perLead(f *aftercastv1.Forecast, vals []float64, leads int) []float64 {
 	return out
 }
 
-func (a *api) writeForecasts(ctx context.Context, fs []*aftercastv1.Forecast, first int) (store.Ack, error) {
-	vs, paths, ack := a.toVectors(fs, first)
-	stored, err := a.store.WriteForecasts(ctx, vs, first)
-	// The store names a rejected point "values" and its lead: name the
-	// field as it was sent.
-	for j := range stored.Rejections {
-		r := &stored.Rejections[j]
-		if p, ok := paths[r.Index-first][r.Lead]; ok && r.Field == "values" && !r.Whole {
-			r.Field = p
+// writeForecasts stores a batch of forecasts, the batch at position first
+// of its push, and counts what became of them. A batch with a request id
+// that was committed before is answered with its receipt (store.Once).
+func (a *api) writeForecasts(ctx context.Context, fs []*aftercastv1.Forecast, first int, requestID string) (store.Ack, error) {
+	vs, paths, pre := a.toVectors(fs, first)
+	// finish adds the rejections made here to the store's, naming a
+	// rejected point by the field it was sent in where the store says
+	// "values" and its lead.
+	finish := func(stored store.Ack) store.Ack {
+		ack := pre
+		ack.Rejections = append([]store.Rejection(nil), pre.Rejections...)
+		for _, r := range stored.Rejections {
+			if p, ok := paths[r.Index-first][r.Lead]; ok && r.Field == "values" && !r.Whole {
+				r.Field = p
+			}
+			ack.Rejections = append(ack.Rejections, r)
 		}
+		stored.Rejections = nil
+		ack.Add(stored)
+		return capped(ack)
 	}
-	ack.Add(stored)
-	if err == nil {
+	once := store.Once{ID: requestID, Digest: digest(requestID, "forecasts", first, fs), Finish: finish}
+	ack, err := a.store.WriteForecastsOnce(ctx, once, vs, first)
+	if !ack.Replayed {
+		ack = finish(ack)
+	}
+	if err == nil && !ack.Replayed {
 		a.metrics().countForecasts(ack)
 	}
 	return ack, err
 }
 
-// writeActuals stores a batch of actuals and counts what became of them.
-// The store marks what the batch re-scores in the same transaction; the
-// evaluator is woken to judge it off the request path.
-func (a *api) writeActuals(ctx context.Context, as []store.Actual, first int) (store.Ack, error) {
-	ack, err := a.store.WriteActuals(ctx, as, first)
-	if err == nil {
+// writeActuals stores a batch of actuals, as writeForecasts, and counts
+// what became of them. The store marks what the batch re-scores in the
+// same transaction; the evaluator is woken to judge it off the request
+// path.
+func (a *api) writeActuals(ctx context.Context, wire []*aftercastv1.Actual, first int, requestID string) (store.Ack, error) {
+	once := store.Once{ID: requestID, Digest: digest(requestID, "actuals", first, wire), Finish: capped}
+	ack, err := a.store.WriteActualsOnce(ctx, once, toActuals(wire), first)
+	ack = capped(ack)
+	if err == nil && !ack.Replayed {
 		a.metrics().countActuals(ack)
 		if ack.Accepted+ack.Revised > 0 {
 			a.drift.Wake()
 		}
 	}
 	return ack, err
+}
+
+// digest identifies the content of a batch that carries a request id:
+// its kind, its position in the push and its items as encoded
+// deterministically. Nil without an id.
+func digest[M proto.Message](requestID, kind string, first int, items []M) []byte {
+	if requestID == "" {
+		return nil
+	}
+	h := sha256.New()
+	fmt.Fprintf(h, "%s %d %d\n", kind, first, len(items))
+	det := proto.MarshalOptions{Deterministic: true}
+	var buf []byte
+	for _, it := range items {
+		buf, _ = det.MarshalAppend(buf[:0], it) // what arrived was decoded, so it encodes
+		fmt.Fprintf(h, "%d\n", len(buf))
+		h.Write(buf)
+	}
+	return h.Sum(nil)
+}
+
+// capped keeps no more rejections than a summary lists, and one more,
+// which marks the list truncated; the counts stay exact.
+func capped(ack store.Ack) store.Ack {
+	if len(ack.Rejections) > maxRejectionsListed+1 {
+		ack.Rejections = ack.Rejections[:maxRejectionsListed+1]
+	}
+	return ack
 }
 
 // addCapped adds a batch's acknowledgement to a stream's total, keeping no
@@ -163,7 +210,7 @@ func forecastSummary(ack store.Ack) *aftercastv1.ForecastPushSummary {
 }
 
 func (s *forecastService) PushForecasts(ctx context.Context, req *aftercastv1.PushForecastsRequest) (*aftercastv1.PushForecastsResponse, error) {
-	ack, err := s.writeForecasts(ctx, req.GetForecasts(), 0)
+	ack, err := s.writeForecasts(ctx, req.GetForecasts(), 0, req.GetRequestId())
 	if err != nil {
 		return nil, s.status(ctx, err)
 	}
@@ -185,7 +232,7 @@ func (s *forecastService) StreamForecasts(stream aftercastv1.ForecastService_Str
 		if err != nil {
 			return err
 		}
-		ack, err := s.writeForecasts(ctx, req.GetForecasts(), n)
+		ack, err := s.writeForecasts(ctx, req.GetForecasts(), n, req.GetRequestId())
 		if err != nil {
 			return s.status(ctx, err)
 		}
@@ -235,8 +282,7 @@ func actualSummary(ack store.Ack) *aftercastv1.ActualPushSummary {
 }
 
 func (s *actualService) PushActuals(ctx context.Context, req *aftercastv1.PushActualsRequest) (*aftercastv1.PushActualsResponse, error) {
-	as := toActuals(req.GetActuals())
-	ack, err := s.writeActuals(ctx, as, 0)
+	ack, err := s.writeActuals(ctx, req.GetActuals(), 0, req.GetRequestId())
 	if err != nil {
 		return nil, s.status(ctx, err)
 	}
@@ -256,12 +302,11 @@ func (s *actualService) StreamActuals(stream aftercastv1.ActualService_StreamAct
 		if err != nil {
 			return err
 		}
-		as := toActuals(req.GetActuals())
-		ack, err := s.writeActuals(ctx, as, n)
+		ack, err := s.writeActuals(ctx, req.GetActuals(), n, req.GetRequestId())
 		if err != nil {
 			return s.status(ctx, err)
 		}
 		addCapped(&total, ack)
-		n += len(as)
+		n += len(req.GetActuals())
 	}
 }

@@ -7,8 +7,10 @@ import (
 	"fmt"
 	"io"
 	"os"
+	"path"
 	"strings"
 	"time"
+	"unicode/utf8"
 
 	"google.golang.org/genproto/googleapis/rpc/errdetails"
 	"google.golang.org/grpc"
@@ -25,35 +27,113 @@ const defaultAddr = "127.0.0.1:7410"
 
 // clientFlags are the flags every client command takes.
 type clientFlags struct {
-	addr    string
-	timeout time.Duration
+	addr     string
+	timeout  time.Duration
+	retryFor time.Duration
+	// stderr takes the notes on retries.
+	stderr io.Writer
 }
 
+// addClientFlags adds the flags of a command that makes requests.
 func addClientFlags(fs *flag.FlagSet) *clientFlags {
-	c := &clientFlags{}
+	return addFlags(fs, "deadline of each request (each attempt, when one is retried)")
+}
+
+// addStreamFlags adds the flags of a command that streams a file (push,
+// baseline import), whose --timeout bounds each step of the stream.
+func addStreamFlags(fs *flag.FlagSet) *clientFlags {
+	return addFlags(fs, "deadline of each step of a stream: opening it, sending one batch, waiting for the final "+
+		"acknowledgement (the stream as a whole has none)")
+}
+
+func addFlags(fs *flag.FlagSet, timeoutHelp string) *clientFlags {
+	c := &clientFlags{stderr: fs.Output()}
 	fs.StringVar(&c.addr, "addr", cmp.Or(os.Getenv("AFTERCAST_ADDR"), defaultAddr),
 		"host:port of the aftercast service (env AFTERCAST_ADDR)")
-	fs.DurationVar(&c.timeout, "timeout", 30*time.Second,
-		"deadline of each request; a push stream fails when one batch or its acknowledgement waits longer")
+	fs.DurationVar(&c.timeout, "timeout", 30*time.Second, timeoutHelp)
+	fs.DurationVar(&c.retryFor, "retry-for", 2*time.Minute,
+		"keep retrying what fails with UNAVAILABLE (service restarting, database down) for this long, with growing waits; 0: never")
 	return c
 }
 
 // dial makes the connection; it connects on the first call. All client
-// commands dial here, so that TLS options have one place to go.
+// commands dial here, so that TLS options have one place to go. Unary
+// requests, which are all idempotent, are retried here (see retry).
 func (c *clientFlags) dial() (*grpc.ClientConn, error) {
 	if c.timeout <= 0 {
 		return nil, fmt.Errorf("--timeout %v: want a positive duration", c.timeout)
 	}
-	conn, err := grpc.NewClient(c.addr, grpc.WithTransportCredentials(insecure.NewCredentials()))
+	if c.retryFor < 0 {
+		return nil, fmt.Errorf("--retry-for %v: want 0 or a positive duration", c.retryFor)
+	}
+	conn, err := grpc.NewClient(c.addr, grpc.WithTransportCredentials(insecure.NewCredentials()),
+		grpc.WithChainUnaryInterceptor(c.retryUnary))
 	if err != nil {
 		return nil, fmt.Errorf("--addr %q: %w", c.addr, err)
 	}
 	return conn, nil
 }
 
-// call is the context of one request: it carries the --timeout deadline.
+// call is the context of one request, retries included: --timeout for
+// each attempt (set by retryUnary) within --timeout plus --retry-for.
 func (c *clientFlags) call() (context.Context, context.CancelFunc) {
-	return context.WithTimeout(context.Background(), c.timeout)
+	return c.within(context.Background())
+}
+
+// within bounds a request made under parent as call does.
+func (c *clientFlags) within(parent context.Context) (context.Context, context.CancelFunc) {
+	return context.WithTimeout(parent, c.timeout+c.retryFor)
+}
+
+// retryUnary gives each attempt of a unary request its --timeout and
+// retries it while it fails with UNAVAILABLE.
+func (c *clientFlags) retryUnary(ctx context.Context, method string, req, reply any, cc *grpc.ClientConn,
+	invoker grpc.UnaryInvoker, opts ...grpc.CallOption) error {
+	return c.retry(ctx, path.Base(method), func() error {
+		actx, cancel := context.WithTimeout(ctx, c.timeout)
+		defer cancel()
+		return invoker(actx, method, req, reply, cc, opts...)
+	})
+}
+
+// Waits between attempts start at firstWait and double up to maxWait.
+const (
+	firstWait = 500 * time.Millisecond
+	maxWait   = 15 * time.Second
+)
+
+// retry runs attempt until it succeeds, fails with another code than
+// UNAVAILABLE, or the next wait would end more than --retry-for after the
+// first failure. UNAVAILABLE is how gRPC reports a connection that could
+// not be made or broke, and how the service reports a database it cannot
+// reach; what is retried is safe to repeat (every request of the API is
+// idempotent; a push is, message by message, see retryPush).
+func (c *clientFlags) retry(ctx context.Context, what string, attempt func() error) error {
+	var giveUp time.Time
+	wait := firstWait
+	for {
+		err := attempt()
+		if status.Code(err) != codes.Unavailable {
+			return err
+		}
+		now := time.Now()
+		if giveUp.IsZero() {
+			giveUp = now.Add(c.retryFor)
+		}
+		if now.Add(wait).After(giveUp) {
+			return err
+		}
+		if c.stderr != nil {
+			fmt.Fprintf(c.stderr, "aftercast: %s: %s; retrying in %v (--retry-for %v, until %s)\n",
+				what, status.Convert(err).Message(), wait, c.retryFor, giveUp.Format(time.TimeOnly))
+		}
+		select {
+		case <-time.After(wait):
+		case <-ctx.Done():
+			return err
+		}
+		wait = min(2*wait, maxWait)
+	}
 }
 
 // rpcError turns a failed call into a message for people. notFound says
@@ -102,10 +182,34 @@ func parseArgs(fs *flag.FlagSet, args []string) ([]string, error) {
 		}
 		args = fs.Args()
 		if len(args) == 0 {
-			return pos, nil
+			return pos, textFlags(fs)
 		}
 		pos, args = append(pos, args[0]), args[1:]
 	}
+}
+
+// fileFlags name the flags that hold file paths, which need not be text.
+var fileFlags = map[string]bool{"history": true}
+
+// textFlags refuses a flag value that is not UTF-8: keys, models and the
+// like are sent as protobuf strings, which must be UTF-8, and a request
+// that cannot be encoded would fail with a bare INTERNAL.
+func textFlags(fs *flag.FlagSet) error {
+	var err error
+	fs.Visit(func(f *flag.Flag) {
+		if v := f.Value.String(); err == nil && !fileFlags[f.Name] && !utf8.ValidString(v) {
+			err = fmt.Errorf("--%s %q: not valid UTF-8", f.Name, v)
+		}
+	})
+	return err
+}
+
+// textArg refuses a positional argument (a series key) that is not UTF-8.
+func textArg(name, v string) error {
+	if !utf8.ValidString(v) {
+		return fmt.Errorf("%s %q: not valid UTF-8", name, v)
+	}
+	return nil
 }
 
 // parseExactly is parseArgs for a command that takes exactly n positional

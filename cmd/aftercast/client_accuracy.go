@@ -61,10 +61,12 @@ func runAccuracy(args []string, stdout, stderr io.Writer) error {
 // (undefined) metrics become NaN, as scoring.Metrics has them.
 func accuracyResult(resp *aftercastv1.GetAccuracyResponse) report.Result {
 	t := scoring.Table{Overall: report.FromProto(resp.GetOverall()), Leads: make([]scoring.LeadMetrics, 0, len(resp.GetLeads()))}
+	late := &report.Late{ByLead: make(map[int]int64, len(resp.GetLeads())), Overall: resp.GetOverallLateCount()}
 	for _, l := range resp.GetLeads() {
 		t.Leads = append(t.Leads, scoring.LeadMetrics{Lead: int(l.GetLead()), Metrics: report.FromProto(l.GetMetrics())})
+		late.ByLead[int(l.GetLead())] = l.GetLateCount()
 	}
-	return report.Result{Series: resp.GetSeries(), Model: resp.GetModel(), Step: resp.GetStep(), Table: t}
+	return report.Result{Series: resp.GetSeries(), Model: resp.GetModel(), Step: resp.GetStep(), Table: t, Late: late}
 }
 
 func runPairs(args []string, stdout, stderr io.Writer) error {

@@ -1,12 +1,12 @@
 package main
 
 import (
+	"context"
 	"errors"
 	"fmt"
 	"io"
 	"os"
 	"strings"
-	"time"
 
 	aftercastv1 "github.com/aftercast/aftercast/api/aftercast/v1"
 	"github.com/aftercast/aftercast/cmd/aftercast/internal/backtest"
@@ -26,7 +26,7 @@ func runBaseline(args []string, stdout, stderr io.Writer) error {
 
 func baselineImport(args []string, stdout, stderr io.Writer) error {
 	fs := newFlags("baseline import", "FILE.csv (columns series,origin_time,target_time,forecast,actual; - for stdin)", stderr)
-	cf := addClientFlags(fs)
+	cf := addStreamFlags(fs)
 	model := fs.String("model", "", "model the backtest is of (required)")
 	history := fs.String("history", "", "training actuals `FILE` (columns series,time,value) for the MASE scale")
 	batch := fs.Int("batch", 5000, "backtest rows or training actuals per stream message")
@@ -63,16 +63,28 @@ func baselineImport(args []string, stdout, stderr io.Writer) error {
 	}
 	defer conn.Close()
 	client := aftercastv1.NewBaselineServiceClient(conn)
-	resp, err := retryImport(stderr, func() (*aftercastv1.ImportBaselineResponse, error) {
+	info, err := cf.serverInfo(conn)
+	if err != nil {
+		return err
+	}
+	limit := messageBytes(info)
+	// An import is idempotent: when an attempt that failed had committed
+	// after all, the next finds its rows equal to the active version,
+	// makes nothing new and answers with that version.
+	var resp *aftercastv1.ImportBaselineResponse
+	err = cf.retry(context.Background(), "baseline import", func() error {
 		prog := newProgress(stderr, "rows")
 		defer prog.done()
 		total, sent := int64(im.Rows()+im.TrainingActuals()), int64(0)
-		return streamBatches(client.ImportBaseline, cf.timeout, 1, im.Messages(*model, *batch, maxMessage),
+		var err error
+		resp, err = streamBatches(client.ImportBaseline, cf.timeout, batching{items: 1, bytes: limit},
+			im.Messages(*model, *batch, limit),
 			func(reqs []*aftercastv1.ImportBaselineRequest) *aftercastv1.ImportBaselineRequest {
 				sent += int64(len(reqs[0].GetRows()) + len(reqs[0].GetTrainingActuals()))
 				return reqs[0]
 			},
 			func() { prog.update(total, sent) })
+		return err
 	})
 	if err != nil {
 		return importError(cf, &im, err)
@@ -95,24 +107,6 @@ func readFile(file string, read func(r io.Reader, name string) error) error {
 	}
 	defer f.Close()
 	return read(f, file)
-}
-
-// retryImport runs attempt, again after 0.5s, 1s, 2s and 4s while it fails
-// with UNAVAILABLE. An import is idempotent: when an attempt that failed
-// had committed after all, the next finds its rows equal to the active
-// version, makes nothing new and answers with that version.
-func retryImport(stderr io.Writer, attempt func() (*aftercastv1.ImportBaselineResponse, error)) (*aftercastv1.ImportBaselineResponse, error) {
-	wait := 500 * time.Millisecond
-	for try := 1; ; try++ {
-		resp, err := attempt()
-		if err == nil || status.Code(err) != codes.Unavailable || try == pushAttempts {
-			return resp, err
-		}
-		fmt.Fprintf(stderr, "aftercast baseline: attempt %d of %d failed (%s); sending the whole import again in %v\n",
-			try, pushAttempts, status.Convert(err).Message(), wait)
-		time.Sleep(wait)
-		wait *= 2
-	}
 }
 
 // importError reports a refused import by the file lines of the rows the

@@ -68,7 +68,7 @@ func runDrift(args []string, stdout, stderr io.Writer) error {
 func listDriftStates(ctx context.Context, cf *clientFlags, client aftercastv1.DriftServiceClient, series, model string) (driftreport.Listing, error) {
 	var all driftreport.Listing
 	for token := ""; ; {
-		cctx, cancel := context.WithTimeout(ctx, cf.timeout)
+		cctx, cancel := cf.within(ctx)
 		resp, err := client.ListDriftStates(cctx, &aftercastv1.ListDriftStatesRequest{Series: series, Model: model, PageSize: 1000, PageToken: token})
 		cancel()
 		if err != nil {
@@ -177,7 +177,7 @@ func (z *seriesZones) prefetch(keys []string) {
 		return
 	}
 	for token := ""; ; {
-		ctx, cancel := context.WithTimeout(z.ctx, z.cf.timeout)
+		ctx, cancel := z.cf.within(z.ctx)
 		resp, err := z.client.ListSeries(ctx, &aftercastv1.ListSeriesRequest{PageSize: 1000, PageToken: token})
 		cancel()
 		if err != nil {
@@ -197,7 +197,7 @@ func (z *seriesZones) zone(key string) *time.Location {
 	if loc, ok := z.known[key]; ok {
 		return loc
 	}
-	ctx, cancel := context.WithTimeout(z.ctx, z.cf.timeout)
+	ctx, cancel := z.cf.within(z.ctx)
 	resp, err := z.client.GetSeries(ctx, &aftercastv1.GetSeriesRequest{Key: key})
 	cancel()
 	if err != nil {
@@ -332,7 +332,7 @@ func listEvents(ctx context.Context, cf *clientFlags, client aftercastv1.DriftSe
 		req.OriginToTime = timestamppb.New(q.originTo)
 	}
 	for {
-		cctx, cancel := context.WithTimeout(ctx, cf.timeout)
+		cctx, cancel := cf.within(ctx)
 		resp, err := client.ListDriftEvents(cctx, req)
 		cancel()
 		if err != nil {

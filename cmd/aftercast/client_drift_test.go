@@ -641,7 +641,7 @@ func TestBaselineImportRetriesAndMapsViolationsToLines(t *testing.T) {
 		t.Fatalf("exit %d, want 1; stderr:\n%s", code, errb.String())
 	}
 	for _, want := range []string{
-		"attempt 1 of 5 failed (database is down)",
+		"aftercast: baseline import: database is down; retrying in 500ms",
 		"import refused, nothing stored:\n" +
 			"  " + file + ":4: target_time: target is not on the origin's step grid\n" +
 			"  " + hist + ":2: series: series \"x\" has no backtest rows in this import\n" +

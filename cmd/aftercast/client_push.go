@@ -2,13 +2,13 @@ package main
 
 import (
 	"context"
+	"crypto/rand"
 	"errors"
 	"flag"
 	"fmt"
 	"io"
 	"os"
 	"time"
-	"unicode/utf8"
 
 	aftercastv1 "github.com/aftercast/aftercast/api/aftercast/v1"
 	"github.com/aftercast/aftercast/cmd/aftercast/internal/push"
@@ -28,9 +28,9 @@ func runPush(args []string, stdout, stderr io.Writer) error {
 
 func pushForecasts(args []string, stdout, stderr io.Writer) error {
 	fs := newFlags("push forecasts", "FILE.csv (columns series,origin_time,target_time,forecast[,issued_at]; - for stdin)", stderr)
-	cf := addClientFlags(fs)
+	cf := addStreamFlags(fs)
 	model := fs.String("model", "", "model or job that issued the forecasts (required)")
-	batch := fs.Int("batch", 500, "forecast vectors per stream message")
+	batch := fs.Int("batch", 500, "forecast vectors per stream message (at most the service's limit)")
 	file, err := pushArgs(fs, args, batch)
 	if err != nil {
 		return err
@@ -40,14 +40,16 @@ func pushForecasts(args []string, stdout, stderr io.Writer) error {
 		fs.Usage()
 		return errUsage
 	}
-	if !utf8.ValidString(*model) {
-		return fmt.Errorf("--model %q is not valid UTF-8", *model)
-	}
 	conn, err := cf.dial()
 	if err != nil {
 		return err
 	}
 	defer conn.Close()
+	info, err := cf.serverInfo(conn)
+	if err != nil {
+		return err
+	}
+	sizes := cf.pushBatching(info, fs, *batch, "vectors")
 	series := aftercastv1.NewSeriesServiceClient(conn)
 	forecasts := aftercastv1.NewForecastServiceClient(conn)
 	cache := push.NewSeriesCache(func(key string) (push.SeriesInfo, bool, error) {
@@ -65,16 +67,19 @@ func pushForecasts(args []string, stdout, stderr io.Writer) error {
 	})
 
 	var src *push.Forecasts
-	sum, err := retryPush(stderr, file, func(in io.Reader, name string) (*aftercastv1.ForecastPushSummary, error) {
+	ids := newMessageIDs()
+	sum, err := retryPush(cf, file, func(in io.Reader, name string) (*aftercastv1.ForecastPushSummary, error) {
 		var err error
 		if src, err = push.NewForecasts(in, name, *model, cache, push.DefaultMaxOpen); err != nil {
 			return nil, err
 		}
 		prog := newProgress(stderr, "vectors")
 		defer prog.done()
-		resp, err := pushBatches(forecasts.StreamForecasts, cf.timeout, *batch, src.Next,
+		k := 0
+		resp, err := pushBatches(forecasts.StreamForecasts, cf.timeout, sizes, src.Next,
 			func(fs []*aftercastv1.Forecast) *aftercastv1.StreamForecastsRequest {
-				return &aftercastv1.StreamForecastsRequest{Forecasts: fs}
+				k++
+				return &aftercastv1.StreamForecastsRequest{Forecasts: fs, RequestId: ids.of(k)}
 			},
 			func() { prog.update(src.Rows, src.Vectors) })
 		return resp.GetSummary(), err
@@ -107,8 +112,8 @@ func pushForecasts(args []string, stdout, stderr io.Writer) error {
 
 func pushActuals(args []string, stdout, stderr io.Writer) error {
 	fs := newFlags("push actuals", "FILE.csv (columns series,time,value; - for stdin)", stderr)
-	cf := addClientFlags(fs)
-	batch := fs.Int("batch", 5000, "actuals per stream message")
+	cf := addStreamFlags(fs)
+	batch := fs.Int("batch", 5000, "actuals per stream message (at most the service's limit)")
 	file, err := pushArgs(fs, args, batch)
 	if err != nil {
 		return err
@@ -118,19 +123,27 @@ func pushActuals(args []string, stdout, stderr io.Writer) error {
 		return err
 	}
 	defer conn.Close()
+	info, err := cf.serverInfo(conn)
+	if err != nil {
+		return err
+	}
+	sizes := cf.pushBatching(info, fs, *batch, "actuals")
 	actuals := aftercastv1.NewActualServiceClient(conn)
 
 	var src *push.Actuals
-	sum, err := retryPush(stderr, file, func(in io.Reader, name string) (*aftercastv1.ActualPushSummary, error) {
+	ids := newMessageIDs()
+	sum, err := retryPush(cf, file, func(in io.Reader, name string) (*aftercastv1.ActualPushSummary, error) {
 		var err error
 		if src, err = push.NewActuals(in, name); err != nil {
 			return nil, err
 		}
 		prog := newProgress(stderr, "actuals")
 		defer prog.done()
-		resp, err := pushBatches(actuals.StreamActuals, cf.timeout, *batch, src.Next,
+		k := 0
+		resp, err := pushBatches(actuals.StreamActuals, cf.timeout, sizes, src.Next,
 			func(as []*aftercastv1.Actual) *aftercastv1.StreamActualsRequest {
-				return &aftercastv1.StreamActualsRequest{Actuals: as}
+				k++
+				return &aftercastv1.StreamActualsRequest{Actuals: as, RequestId: ids.of(k)}
 			},
 			func() { prog.update(src.Rows, src.Sent) })
 		return resp.GetSummary(), err
@@ -260,47 +273,85 @@ func seriesInfo(s *aftercastv1.Series) (push.SeriesInfo, error) {
 	return push.SeriesInfo{Step: step, Horizon: int(s.GetHorizon())}, nil
 }
 
-// Retrying: the server's ingestion is idempotent — a point or actual that
-// is already stored changes nothing and is counted as a duplicate — and it
-// acknowledges only what it has committed. So a stream that failed before
-// its acknowledgement arrived is retried whole: the file is read again
-// from its start and sent on a new stream, and what the failed attempt had
-// stored comes back as duplicates. Standard input cannot be read again and
-// is not retried.
-const pushAttempts = 5
+// Retrying: the server commits a push message by message and answers once
+// at the end, so a stream that broke leaves an unknown number of messages
+// committed. It is retried whole: the file is read again from its start
+// and sent on a new stream, cut into the same messages with the same
+// request ids. The server answers a message it had committed with its
+// receipt instead of applying it again, so the final summary counts what
+// this invocation did, as one unbroken stream would. (Were a receipt gone,
+// the re-sent rows would be duplicates: ingestion is idempotent anyway.)
 
-// retryPush runs attempt on the opened file, again after 0.5s, 1s, 2s and
-// 4s while it fails with UNAVAILABLE (which is also how gRPC reports a
-// connection that could not be made or broke).
-func retryPush[S any](stderr io.Writer, file string, attempt func(in io.Reader, name string) (S, error)) (S, error) {
-	wait := 500 * time.Millisecond
-	for try := 1; ; try++ {
-		sum, err := attemptFile(file, attempt)
-		if err == nil || status.Code(err) != codes.Unavailable || try == pushAttempts {
-			return sum, err
-		}
-		if file == "-" {
-			fmt.Fprintln(stderr, "aftercast push: not retried: standard input cannot be read again")
-			return sum, err
-		}
-		fmt.Fprintf(stderr, "aftercast push: attempt %d of %d failed (%s); retrying the whole file in %v (rows already stored will count as duplicates)\n",
-			try, pushAttempts, status.Convert(err).Message(), wait)
-		time.Sleep(wait)
-		wait *= 2
-	}
+// messageIDs name the messages of one invocation's push: the same across
+// its attempts, unique across invocations.
+type messageIDs string
+
+func newMessageIDs() messageIDs {
+	return messageIDs("aftercast-cli/" + rand.Text())
 }
 
-func attemptFile[S any](file string, attempt func(in io.Reader, name string) (S, error)) (S, error) {
-	if file == "-" {
-		return attempt(os.Stdin, inputName(file))
-	}
-	f, err := os.Open(file)
+// of is the id of the k-th message.
+func (m messageIDs) of(k int) string { return fmt.Sprintf("%s/%d", m, k) }
+
+// retryPush runs attempt on the file, again from its start while it fails
+// with UNAVAILABLE, for up to --retry-for (see clientFlags.retry).
+func retryPush[S any](cf *clientFlags, file string, attempt func(in io.Reader, name string) (S, error)) (S, error) {
+	var sum S
+	in, err := openInput(file)
 	if err != nil {
-		var zero S
-		return zero, err
+		return sum, err
 	}
-	defer f.Close()
-	return attempt(f, file)
+	defer in.close()
+	err = cf.retry(context.Background(), "push "+in.name, func() error {
+		r, err := in.fromStart()
+		if err != nil {
+			return err
+		}
+		sum, err = attempt(r, in.name)
+		return err
+	})
+	return sum, err
+}
+
+// input is a pushed file, which every attempt reads from its start.
+// Standard input cannot be read again, so it is copied to a temporary
+// file as it is read: a retry reads that copy, then the rest of stdin.
+type input struct {
+	name  string
+	f     *os.File // the file, or the copy of stdin
+	stdin bool
+}
+
+func openInput(file string) (*input, error) {
+	if file != "-" {
+		f, err := os.Open(file)
+		return &input{name: file, f: f}, err
+	}
+	f, err := os.CreateTemp("", "aftercast-stdin-*.csv")
+	if err != nil {
+		return nil, fmt.Errorf("a copy of stdin, to read it again on a retry: %w", err)
+	}
+	return &input{name: inputName(file), f: f, stdin: true}, nil
+}
+
+func (in *input) fromStart() (io.Reader, error) {
+	if !in.stdin {
+		_, err := in.f.Seek(0, io.SeekStart)
+		return in.f, err
+	}
+	// Writes go to the end of the copy; reads of it are by offset.
+	copied, err := in.f.Seek(0, io.SeekEnd)
+	if err != nil {
+		return nil, err
+	}
+	return io.MultiReader(io.NewSectionReader(in.f, 0, copied), io.TeeReader(os.Stdin, in.f)), nil
+}
+
+func (in *input) close() {
+	in.f.Close()
+	if in.stdin {
+		os.Remove(in.f.Name())
+	}
 }
 
 // inputName names a file argument in messages.
@@ -311,9 +362,60 @@ func inputName(file string) string {
 	return file
 }
 
-// maxMessage bounds the encoded size of one stream message, well under the
-// server's 4 MiB limit, whatever --batch says.
-const maxMessage = 2 << 20
+// batching is how a push cuts a file into stream messages: at most items
+// in one message, and about bytes (the items' encoded sizes).
+type batching struct{ items, bytes int }
+
+// defaultMessageBytes is the size messages are cut at: large enough that
+// framing costs little, well under the server's default limit of 16 MiB.
+const defaultMessageBytes = 2 << 20
+
+// itemOverhead is what an item adds to a message beyond its own encoding:
+// a field tag and a length, 8 bytes for up to 32 GiB.
+const itemOverhead = 8
+
+// serverInfo asks the service for its version and limits; nil from a
+// service too old to say, which is then assumed to have the defaults.
+func (c *clientFlags) serverInfo(conn *grpc.ClientConn) (*aftercastv1.GetServerInfoResponse, error) {
+	ctx, cancel := c.call()
+	defer cancel()
+	info, err := aftercastv1.NewInfoServiceClient(conn).GetServerInfo(ctx, &aftercastv1.GetServerInfoRequest{})
+	if status.Code(err) == codes.Unimplemented {
+		return nil, nil
+	}
+	if err != nil {
+		return nil, c.rpcError(err, "")
+	}
+	return info, nil
+}
+
+// messageBytes is the size to cut messages at for a service with info:
+// defaultMessageBytes, or less under a smaller limit, keeping room for the
+// message's own fields.
+func messageBytes(info *aftercastv1.GetServerInfoResponse) int {
+	limit := info.GetMaxMessageBytes()
+	if limit <= 0 || limit-4096 >= defaultMessageBytes {
+		return defaultMessageBytes
+	}
+	return int(max(limit-4096, limit/2))
+}
+
+// pushBatching sizes the messages of a push to the service: --batch items,
+// at most the service's max batch. A --batch set above that is lowered
+// with a note; the default is lowered silently.
+func (c *clientFlags) pushBatching(info *aftercastv1.GetServerInfoResponse, fs *flag.FlagSet, batch int, unit string) batching {
+	b := batching{items: batch, bytes: messageBytes(info)}
+	if most := int(info.GetMaxBatch()); most > 0 && batch > most {
+		b.items = most
+		fs.Visit(func(f *flag.Flag) {
+			if f.Name == "batch" {
+				fmt.Fprintf(c.stderr, "aftercast: --batch %d is above the service's limit of %d %s per message; sending %d\n",
+					batch, most, unit, most)
+			}
+		})
+	}
+	return b
+}
 
 // errStalled cancels a stream that waited on the server for --timeout.
 var errStalled = errors.New("stalled")
@@ -328,9 +430,9 @@ var errStalled = errors.New("stalled")
 // end (a baseline import).
 func streamBatches[Item proto.Message, Req, Resp any](
 	open func(context.Context, ...grpc.CallOption) (grpc.ClientStreamingClient[Req, Resp], error),
-	timeout time.Duration, batch int, next func() (Item, error), wrap func([]Item) *Req, sent func(),
+	timeout time.Duration, b batching, next func() (Item, error), wrap func([]Item) *Req, sent func(),
 ) (*Resp, error) {
-	return sendBatches(open, timeout, batch, next, wrap, sent, false)
+	return sendBatches(open, timeout, b, next, wrap, sent, false)
 }
 
 // pushBatches is streamBatches for a push, whose messages the server
@@ -341,14 +443,14 @@ func streamBatches[Item proto.Message, Req, Resp any](
 // response with a *pushStop.
 func pushBatches[Item proto.Message, Req, Resp any](
 	open func(context.Context, ...grpc.CallOption) (grpc.ClientStreamingClient[Req, Resp], error),
-	timeout time.Duration, batch int, next func() (Item, error), wrap func([]Item) *Req, sent func(),
+	timeout time.Duration, b batching, next func() (Item, error), wrap func([]Item) *Req, sent func(),
 ) (*Resp, error) {
-	return sendBatches(open, timeout, batch, next, wrap, sent, true)
+	return sendBatches(open, timeout, b, next, wrap, sent, true)
 }
 
 func sendBatches[Item proto.Message, Req, Resp any](
 	open func(context.Context, ...grpc.CallOption) (grpc.ClientStreamingClient[Req, Resp], error),
-	timeout time.Duration, batch int, next func() (Item, error), wrap func([]Item) *Req, sent func(),
+	timeout time.Duration, b batching, next func() (Item, error), wrap func([]Item) *Req, sent func(),
 	closeOnStop bool,
 ) (*Resp, error) {
 	ctx, cancel := context.WithCancelCause(context.Background())
@@ -368,7 +470,7 @@ func sendBatches[Item proto.Message, Req, Resp any](
 	if err = waited(err); err != nil {
 		return nil, err
 	}
-	items, size, messages := make([]Item, 0, batch), 0, 0
+	items, size, messages := make([]Item, 0, b.items), 0, 0
 	flush := func() error {
 		if len(items) == 0 {
 			return nil
@@ -387,7 +489,7 @@ func sendBatches[Item proto.Message, Req, Resp any](
 			return err
 		}
 		sent()
-		items, size = make([]Item, 0, batch), 0
+		items, size = make([]Item, 0, b.items), 0
 		return nil
 	}
 	// stop ends a push at a failure of next (see pushBatches).
@@ -422,14 +524,14 @@ func sendBatches[Item proto.Message, Req, Resp any](
 		if err != nil {
 			return stop(err)
 		}
-		n := proto.Size(it)
-		if len(items) > 0 && size+n > maxMessage {
+		n := proto.Size(it) + itemOverhead
+		if len(items) > 0 && size+n > b.bytes {
 			if err := flush(); err != nil {
 				return nil, err
 			}
 		}
 		items, size = append(items, it), size+n
-		if len(items) >= batch {
+		if len(items) >= b.items {
 			if err := flush(); err != nil {
 				return nil, err
 			}

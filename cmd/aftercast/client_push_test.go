@@ -188,7 +188,7 @@ func TestStrictPush(t *testing.T) {
 		t.Parallel()
 		file := writeTemp(t, "series,origin_time,target_time,forecast\nstrict/h,"+hour(0)+","+hour(1)+",1\n")
 		code, _, errs := cli("push", "forecasts", addr, "--model", "m\xe9", file)
-		if want := `aftercast push: --model "m\xe9" is not valid UTF-8` + "\n"; code != 1 || errs != want {
+		if want := `aftercast push: --model "m\xe9": not valid UTF-8` + "\n"; code != 1 || errs != want {
 			t.Errorf("exit %d, stderr %q, want %q", code, errs, want)
 		}
 	})

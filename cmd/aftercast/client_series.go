@@ -20,6 +20,7 @@ func runSeries(args []string, stdout, stderr io.Writer) error {
 		sub{"create", func(args []string) error { return seriesCreate(args, stdout, stderr) }},
 		sub{"get", func(args []string) error { return seriesGet(args, stdout, stderr) }},
 		sub{"list", func(args []string) error { return seriesList(args, stdout, stderr) }},
+		sub{"models", func(args []string) error { return seriesModels(args, stdout, stderr) }},
 	)
 }
 
@@ -57,6 +58,9 @@ func seriesCreate(args []string, stdout, stderr io.Writer) error {
 		}
 		fs.Usage()
 		return errUsage
+	}
+	if err := textArg("KEY", pos[0]); err != nil {
+		return err
 	}
 	s.Key = pos[0]
 	s.Horizon, s.Season = int32(horizon), int32(season)
@@ -96,6 +100,9 @@ func seriesGet(args []string, stdout, stderr io.Writer) error {
 	format := fs.String("format", "table", "output: table or json")
 	pos, err := parseExactly(fs, args, 1)
 	if err != nil {
+		return err
+	}
+	if err := textArg("KEY", pos[0]); err != nil {
 		return err
 	}
 	if err := tableOrJSON(*format); err != nil {

@@ -29,7 +29,7 @@ import (
 // be made to produce on demand (UNAVAILABLE mid-push). The contract check
 // runs the commands against the real service.
 
-func TestAccuracyJSONIsEvaluateJSON(t *testing.T) {
+func TestAccuracyJSONIsEvaluateJSONWithLateCounts(t *testing.T) {
 	t.Parallel()
 	// The worked example of method.md §2 at lead 1, and a lead whose
 	// actuals are all zero (MAPE undefined); no MASE scale.
@@ -37,12 +37,16 @@ func TestAccuracyJSONIsEvaluateJSON(t *testing.T) {
 		{Lead: 1, Actual: 10, Forecast: 8}, {Lead: 1, Actual: 0, Forecast: 1}, {Lead: 1, Actual: 5, Forecast: 5},
 		{Lead: 3, Actual: 0, Forecast: 2},
 	}, scoring.NoScale)
-	resp := &aftercastv1.GetAccuracyResponse{Series: "plant-7/heat", Model: "m1", Step: "1h", Overall: metricsProto(table.Overall)}
+	// Two late pairs at lead 3: counted beside the metrics, not in n.
+	late := &report.Late{ByLead: map[int]int64{1: 0, 3: 2}, Overall: 2}
+	resp := &aftercastv1.GetAccuracyResponse{Series: "plant-7/heat", Model: "m1", Step: "1h", Overall: metricsProto(table.Overall),
+		OverallLateCount: late.Overall}
 	for _, l := range table.Leads {
-		resp.Leads = append(resp.Leads, &aftercastv1.LeadAccuracy{Lead: int32(l.Lead), Metrics: metricsProto(l.Metrics)})
+		resp.Leads = append(resp.Leads, &aftercastv1.LeadAccuracy{Lead: int32(l.Lead), Metrics: metricsProto(l.Metrics),
+			LateCount: late.ByLead[l.Lead]})
 	}
 	var want, got bytes.Buffer
-	if err := report.WriteJSON(&want, []report.Result{{Series: "plant-7/heat", Model: "m1", Step: "1h", Table: table}}); err != nil {
+	if err := report.WriteJSON(&want, []report.Result{{Series: "plant-7/heat", Model: "m1", Step: "1h", Table: table, Late: late}}); err != nil {
 		t.Fatal(err)
 	}
 	if err := report.WriteJSON(&got, []report.Result{accuracyResult(resp)}); err != nil {
@@ -50,6 +54,16 @@ func TestAccuracyJSONIsEvaluateJSON(t *testing.T) {
 	}
 	if got.String() != want.String() {
 		t.Errorf("accuracy JSON\n%s\nwant (evaluate's)\n%s", got.String(), want.String())
+	}
+	if !strings.Contains(got.String(), `"lead": 3,`) || !strings.Contains(got.String(), `"late": 2`) {
+		t.Errorf("no late count of lead 3 in:\n%s", got.String())
+	}
+	var evaluateJSON bytes.Buffer
+	if err := report.WriteJSON(&evaluateJSON, []report.Result{{Series: "plant-7/heat", Model: "m1", Step: "1h", Table: table}}); err != nil {
+		t.Fatal(err)
+	}
+	if strings.Contains(evaluateJSON.String(), `"late"`) {
+		t.Errorf("offline evaluation has no late pairs, yet its JSON has a late count:\n%s", evaluateJSON.String())
 	}
 	if !strings.Contains(got.String(), `"mape": null`) || !strings.Contains(got.String(), `"mase": null`) {
 		t.Errorf("undefined metrics are not null:\n%s", got.String())
@@ -238,7 +252,7 @@ func TestPushForecastsRetriesAndReportsLines(t *testing.T) {
 	fc.mu.Lock()
 	streams, vectors := fc.streams, len(fc.got)
 	fc.mu.Unlock()
-	if streams != 2 || !strings.Contains(errb.String(), "attempt 1 of 5 failed (database is down)") {
+	if streams != 2 || !strings.Contains(errb.String(), "database is down; retrying in 500ms") {
 		t.Errorf("%d streams, want 2 (one retry); stderr:\n%s", streams, errb.String())
 	}
 	if vectors != 3 {
@@ -310,7 +324,7 @@ func TestClientCannotReachServer(t *testing.T) {
 	addr := lis.Addr().String()
 	lis.Close() // nothing listens there now
 	var out, errb bytes.Buffer
-	if code := run([]string{"series", "list", "--addr", addr}, &out, &errb); code != 1 {
+	if code := run([]string{"series", "list", "--addr", addr, "--retry-for", "0"}, &out, &errb); code != 1 {
 		t.Errorf("exit %d, want 1", code)
 	}
 	if want := "cannot reach aftercast at " + addr + ": is `aftercast serve` running?"; !strings.Contains(errb.String(), want) {
@@ -322,7 +336,7 @@ func TestClientUsage(t *testing.T) {
 	t.Parallel()
 	for _, args := range [][]string{
 		{"series"}, {"series", "nope"}, {"series", "create", "--step", "1h", "k"}, {"push", "forecasts", "f.csv"},
-		{"accuracy", "--series", "s"}, {"pairs", "--model", "m"},
+		{"accuracy", "--series", "s"}, {"pairs", "--model", "m"}, {"stored"}, {"stored", "actuals"}, {"series", "models"},
 	} {
 		var out, errb bytes.Buffer
 		if code := run(args, &out, &errb); code != 2 {

@@ -207,7 +207,7 @@ func next[T any](items []T) func() (T, error) {
 func (p *producer) setUp(ctx context.Context) error {
 	series := aftercastv1.NewSeriesServiceClient(p.conn)
 	for _, s := range p.sc.Substations {
-		cctx, cancel := context.WithTimeout(ctx, p.cf.timeout)
+		cctx, cancel := p.cf.within(ctx)
 		_, err := series.CreateSeries(cctx, &aftercastv1.CreateSeriesRequest{Series: &aftercastv1.Series{Key: s.Key,
 			Step: demo.Step, Horizon: demo.Horizon, Season: demo.Season, Unit: demo.Unit, TimeZone: demo.Zone,
 			DecisionLeads: demo.DecisionLeads()}})
@@ -236,7 +236,7 @@ func (p *producer) setUp(ctx context.Context) error {
 		msgs = append(msgs, m)
 	}
 	baselines := aftercastv1.NewBaselineServiceClient(p.conn)
-	resp, err := streamBatches(baselines.ImportBaseline, p.cf.timeout, 1, next(msgs),
+	resp, err := streamBatches(baselines.ImportBaseline, p.cf.timeout, batching{items: 1, bytes: defaultMessageBytes}, next(msgs),
 		func(reqs []*aftercastv1.ImportBaselineRequest) *aftercastv1.ImportBaselineRequest { return reqs[0] }, func() {})
 	if err != nil {
 		return fmt.Errorf("importing the backtest: %w", p.cf.rpcError(err, ""))
@@ -252,7 +252,7 @@ func (p *producer) setUp(ctx context.Context) error {
 	// Every decision lead, and the pooled quantity the series level pages
 	// on, must be usable (method.md §4: K ≥ 180, K_eff ≥ 30).
 	for _, s := range p.sc.Substations {
-		cctx, cancel := context.WithTimeout(ctx, p.cf.timeout)
+		cctx, cancel := p.cf.within(ctx)
 		b, err := baselines.GetBaseline(cctx, &aftercastv1.GetBaselineRequest{Series: s.Key, Model: demo.Model})
 		cancel()
 		if err != nil {
@@ -291,7 +291,7 @@ func (p *producer) stream(ctx context.Context, speed float64) error {
 		for j, a := range day.Actuals {
 			as[j] = &aftercastv1.Actual{Series: a.Series, Time: timestamppb.New(a.Time), Value: a.Value}
 		}
-		ar, err := streamBatches(actuals.StreamActuals, p.cf.timeout, demoBatch, next(as),
+		ar, err := streamBatches(actuals.StreamActuals, p.cf.timeout, batching{items: demoBatch, bytes: defaultMessageBytes}, next(as),
 			func(as []*aftercastv1.Actual) *aftercastv1.StreamActualsRequest {
 				return &aftercastv1.StreamActualsRequest{Actuals: as}
 			}, func() {})
@@ -307,7 +307,7 @@ func (p *producer) stream(ctx context.Context, speed float64) error {
 				fs[j] = &aftercastv1.Forecast{Series: f.Series, Model: demo.Model, OriginTime: timestamppb.New(f.Origin),
 					Values: &aftercastv1.Forecast_Dense{Dense: &aftercastv1.DenseValues{Values: f.Values}}}
 			}
-			fr, err := streamBatches(forecasts.StreamForecasts, p.cf.timeout, demoBatch, next(fs),
+			fr, err := streamBatches(forecasts.StreamForecasts, p.cf.timeout, batching{items: demoBatch, bytes: defaultMessageBytes}, next(fs),
 				func(fs []*aftercastv1.Forecast) *aftercastv1.StreamForecastsRequest {
 					return &aftercastv1.StreamForecastsRequest{Forecasts: fs}
 				}, func() {})
@@ -360,7 +360,7 @@ const (
 func waitSettled(ctx context.Context, cf *clientFlags, drift aftercastv1.DriftServiceClient, timeout, poll time.Duration) error {
 	deadline := time.Now().Add(timeout)
 	for {
-		cctx, cancel := context.WithTimeout(ctx, cf.timeout)
+		cctx, cancel := cf.within(ctx)
 		resp, err := drift.ListDriftStates(cctx, &aftercastv1.ListDriftStatesRequest{PageSize: 1})
 		cancel()
 		if err != nil {

@@ -24,7 +24,7 @@ func runEvaluate(args []string, stdout, stderr io.Writer) error {
 	fs.StringVar(&opt.Step, "step", "", "series step: 15m, 30m, 1h, 24h or calendar 1d, 1w, 1mo, 1y (default: inferred per series, reported on stderr)")
 	fs.StringVar(&tz, "tz", "UTC", "IANA time zone of calendar steps")
 	fs.IntVar(&opt.Season, "season", 1, "season m in steps for the MASE scale")
-	fs.StringVar(&history, "history", "", "CSV `series,time,value` of training actuals, for the MASE scale")
+	fs.StringVar(&history, "history", "", "training actuals `FILE` (CSV columns series,time,value), for the MASE scale")
 	fs.StringVar(&format, "format", "table", "output: table, json or csv")
 	fs.StringVar(&leads, "leads", "", "leads to keep, e.g. 1-24,48 (default all)")
 	for name, p := range times {

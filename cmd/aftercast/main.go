@@ -9,6 +9,8 @@ import (
 	"fmt"
 	"io"
 	"os"
+
+	"github.com/aftercast/aftercast/server"
 )
 
 // command is one subcommand: it parses its own flags from args and returns
@@ -27,6 +29,7 @@ func commands() []command {
 		{"migrate", "apply the database schema migrations and exit", runMigrate},
 		{"series", "create, get or list series (client)", runSeries},
 		{"push", "push forecasts or actuals from a CSV file (client)", runPush},
+		{"stored", "read back the stored forecasts or actuals of a series, as CSV that push reads again (client)", runStored},
 		{"accuracy", "per-lead accuracy of a series and model (client)", runAccuracy},
 		{"pairs", "export the scored pairs of a series and model (client)", runPairs},
 		{"baseline", "import a backtest as a baseline, or show one (client)", runBaseline},
@@ -45,6 +48,10 @@ func run(args []string, stdout, stderr io.Writer) int {
 		if len(args) == 0 {
 			return 2
 		}
+		return 0
+	}
+	if args[0] == "--version" || args[0] == "-version" || args[0] == "version" {
+		fmt.Fprintf(stdout, "aftercast %s\n", server.Version())
 		return 0
 	}
 	for _, c := range commands() {
@@ -73,7 +80,7 @@ func usage(w io.Writer) {
 	for _, c := range commands() {
 		fmt.Fprintf(w, "  %-10s %s\n", c.name, c.short)
 	}
-	fmt.Fprintln(w, "\nRun 'aftercast COMMAND -h' for a command's flags.")
+	fmt.Fprintln(w, "\nRun 'aftercast COMMAND -h' for a command's flags, 'aftercast --version' for this build's version.")
 }
 
 // newFlags makes a flag set whose errors are returned, not fatal, and

@@ -68,6 +68,9 @@ type Ack struct {
 	// values (not late) for their targets. Forecasts never complete a pair:
 	// one that arrives after its actual is late.
 	Scored int64
+	// Replayed marks the receipt of an earlier write with the same request
+	// id (see Once): nothing was applied this time.
+	Replayed bool `json:"-"`
 }
 
 // Add folds another acknowledgement into a.
@@ -121,10 +124,24 @@ type forecastRow struct {
 // leads are rejected and the rest stored; the batch is committed before
 // WriteForecasts returns, so an acknowledged point is never lost.
 func (s *Store) WriteForecasts(ctx context.Context, vs []ForecastVector, firstIndex int) (Ack, error) {
-	var ack Ack
+	return s.WriteForecastsOnce(ctx, Once{}, vs, firstIndex)
+}
+
+// WriteForecastsOnce is WriteForecasts for a request that carried an id:
+// a retry of it returns the first write's receipt (see Once).
+func (s *Store) WriteForecastsOnce(ctx context.Context, once Once, vs []ForecastVector, firstIndex int) (Ack, error) {
 	if len(vs) > s.limits.MaxBatch {
-		return ack, invalid("vectors", "a batch holds at most %d vectors, got %d", s.limits.MaxBatch, len(vs))
+		return Ack{}, invalid("vectors", "a batch holds at most %d vectors, got %d", s.limits.MaxBatch, len(vs))
 	}
+	if ack, ok, err := s.replay(ctx, once); err != nil || ok {
+		return ack, err
+	}
+	ack, err := s.writeForecasts(ctx, once, vs, firstIndex)
+	return s.afterWrite(ctx, once, ack, err)
+}
+
+func (s *Store) writeForecasts(ctx context.Context, once Once, vs []ForecastVector, firstIndex int) (Ack, error) {
+	var ack Ack
 	keys := make([]string, 0, len(vs))
 	for _, v := range vs {
 		keys = append(keys, v.Series)
@@ -224,7 +241,7 @@ func (s *Store) WriteForecasts(ctx context.Context, vs []ForecastVector, firstIn
 	}
 	var newModels []modelKey
 	var done Ack
-	err = s.inTx(ctx, func(tx pgx.Tx) error {
+	write := func(tx pgx.Tx) error {
 		ids := make([]int64, 0, len(items))
 		for _, it := range items {
 			ids = append(ids, it.se.ID)
@@ -269,6 +286,12 @@ func (s *Store) WriteForecasts(ctx context.Context, vs []ForecastVector, firstIn
 		}
 		newModels, err = s.recordModels(ctx, tx, rows)
 		return err
+	}
+	err = s.inTx(ctx, func(tx pgx.Tx) error {
+		if err := write(tx); err != nil {
+			return err
+		}
+		return saveReceipt(ctx, tx, once, done)
 	})
 	if err != nil {
 		return Ack{Rejected: ack.Rejected, Rejections: ack.Rejections}, err
@@ -630,10 +653,24 @@ func (s *Store) recordModels(ctx context.Context, tx pgx.Tx, rows map[forecastKe
 // value is a duplicate. Items are counted as if pushed one by one in batch
 // order, so the last value for a time wins.
 func (s *Store) WriteActuals(ctx context.Context, as []Actual, firstIndex int) (Ack, error) {
-	var ack Ack
+	return s.WriteActualsOnce(ctx, Once{}, as, firstIndex)
+}
+
+// WriteActualsOnce is WriteActuals for a request that carried an id: a
+// retry of it returns the first write's receipt (see Once).
+func (s *Store) WriteActualsOnce(ctx context.Context, once Once, as []Actual, firstIndex int) (Ack, error) {
 	if len(as) > s.limits.MaxBatch {
-		return ack, invalid("actuals", "a batch holds at most %d actuals, got %d", s.limits.MaxBatch, len(as))
+		return Ack{}, invalid("actuals", "a batch holds at most %d actuals, got %d", s.limits.MaxBatch, len(as))
 	}
+	if ack, ok, err := s.replay(ctx, once); err != nil || ok {
+		return ack, err
+	}
+	ack, err := s.writeActuals(ctx, once, as, firstIndex)
+	return s.afterWrite(ctx, once, ack, err)
+}
+
+func (s *Store) writeActuals(ctx context.Context, once Once, as []Actual, firstIndex int) (Ack, error) {
+	var ack Ack
 	keys := make([]string, 0, len(as))
 	for _, a := range as {
 		keys = append(keys, a.Series)
@@ -711,7 +748,7 @@ func (s *Store) WriteActuals(ctx context.Context, as []Actual, firstIndex int) (
 		return st
 	}
 	var st settledActuals
-	err = s.inTx(ctx, func(tx pgx.Tx) error {
+	write := func(tx pgx.Tx) error {
 		now := time.Now().UTC()
 		// Optimistically every time is new, the usual case for a meter feed:
 		// lock, insert them all under a savepoint and count the pairs they
@@ -763,6 +800,13 @@ func (s *Store) WriteActuals(ctx context.Context, as []Actual, firstIndex int) (
 		n, err := countCompleted(ctx, tx, byID, st.fresh)
 		st.ack.Scored = n
 		return err
+	}
+	err = s.inTx(ctx, func(tx pgx.Tx) error {
+		if err := write(tx); err != nil {
+			return err
+		}
+		st.ack.Rejected, st.ack.Rejections = ack.Rejected, ack.Rejections
+		return saveReceipt(ctx, tx, once, st.ack)
 	})
 	if err != nil {
 		return Ack{Rejected: ack.Rejected, Rejections: ack.Rejections}, err

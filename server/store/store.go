@@ -102,6 +102,9 @@ type Store struct {
 	actualsConflict atomic.Bool
 	// forecastsConflict is the same hint for batches of forecasts.
 	forecastsConflict atomic.Bool
+	// receiptsSwept is when expired receipts were last dropped (unix
+	// seconds; see dropExpiredReceipts).
+	receiptsSwept atomic.Int64
 }
 
 // New returns a Store over pool; the schema must be migrated (see Migrate).

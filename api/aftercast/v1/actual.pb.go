@@ -250,7 +250,17 @@ func (x *ActualPushSummary) GetRejectionsTruncated() bool {
 type PushActualsRequest struct {
 	state protoimpl.MessageState `protogen:"open.v1"`
 	// The actuals to store, applied in order.
-	Actuals       []*Actual `protobuf:"bytes,1,rep,name=actuals,proto3" json:"actuals,omitempty"`
+	Actuals []*Actual `protobuf:"bytes,1,rep,name=actuals,proto3" json:"actuals,omitempty"`
+	// Optional: an id the client chooses for this request, up to 128 bytes,
+	// unique for its content (a random prefix per producer run and a batch
+	// number, say). The server keeps the summary of a committed request
+	// that had an id for 24 hours, and answers a request with the same id
+	// and the same content (vectors or actuals, in order) with that summary
+	// instead of applying it again, so a retry after a lost response counts
+	// as the first attempt did. The same id with other content is
+	// INVALID_ARGUMENT (field request_id). A request every item of which is
+	// rejected keeps no summary; it is judged again when retried.
+	RequestId     string `protobuf:"bytes,2,opt,name=request_id,json=requestId,proto3" json:"request_id,omitempty"`
 	unknownFields protoimpl.UnknownFields
 	sizeCache     protoimpl.SizeCache
 }
@@ -290,6 +300,13 @@ func (x *PushActualsRequest) GetActuals() []*Actual {
 		return x.Actuals
 	}
 	return nil
+}
+
+func (x *PushActualsRequest) GetRequestId() string {
+	if x != nil {
+		return x.RequestId
+	}
+	return ""
 }
 
 // PushActualsResponse is the response of ActualService.PushActuals.
@@ -343,7 +360,13 @@ type StreamActualsRequest struct {
 	state protoimpl.MessageState `protogen:"open.v1"`
 	// The actuals of this batch, applied in order after those of earlier
 	// batches.
-	Actuals       []*Actual `protobuf:"bytes,1,rep,name=actuals,proto3" json:"actuals,omitempty"`
+	Actuals []*Actual `protobuf:"bytes,1,rep,name=actuals,proto3" json:"actuals,omitempty"`
+	// Optional: an id for this message, as request_id of the unary push:
+	// a stream retried after it broke, sending the same messages with the
+	// same ids (and at the same positions in the stream), gets the summaries
+	// of the messages that had committed instead of their being applied
+	// again, so its final summary counts as one unbroken stream would.
+	RequestId     string `protobuf:"bytes,2,opt,name=request_id,json=requestId,proto3" json:"request_id,omitempty"`
 	unknownFields protoimpl.UnknownFields
 	sizeCache     protoimpl.SizeCache
 }
@@ -383,6 +406,13 @@ func (x *StreamActualsRequest) GetActuals() []*Actual {
 		return x.Actuals
 	}
 	return nil
+}
+
+func (x *StreamActualsRequest) GetRequestId() string {
+	if x != nil {
+		return x.RequestId
+	}
+	return ""
 }
 
 // StreamActualsResponse is the single response of
@@ -677,13 +707,17 @@ const file_aftercast_v1_actual_proto_rawDesc = "" +
 	"\n" +
 	"rejections\x18\x05 \x03(\v2\x1d.aftercast.v1.ActualRejectionR\n" +
 	"rejections\x121\n" +
-	"\x14rejections_truncated\x18\x06 \x01(\bR\x13rejectionsTruncated\"D\n" +
+	"\x14rejections_truncated\x18\x06 \x01(\bR\x13rejectionsTruncated\"c\n" +
 	"\x12PushActualsRequest\x12.\n" +
-	"\aactuals\x18\x01 \x03(\v2\x14.aftercast.v1.ActualR\aactuals\"P\n" +
+	"\aactuals\x18\x01 \x03(\v2\x14.aftercast.v1.ActualR\aactuals\x12\x1d\n" +
+	"\n" +
+	"request_id\x18\x02 \x01(\tR\trequestId\"P\n" +
 	"\x13PushActualsResponse\x129\n" +
-	"\asummary\x18\x01 \x01(\v2\x1f.aftercast.v1.ActualPushSummaryR\asummary\"F\n" +
+	"\asummary\x18\x01 \x01(\v2\x1f.aftercast.v1.ActualPushSummaryR\asummary\"e\n" +
 	"\x14StreamActualsRequest\x12.\n" +
-	"\aactuals\x18\x01 \x03(\v2\x14.aftercast.v1.ActualR\aactuals\"R\n" +
+	"\aactuals\x18\x01 \x03(\v2\x14.aftercast.v1.ActualR\aactuals\x12\x1d\n" +
+	"\n" +
+	"request_id\x18\x02 \x01(\tR\trequestId\"R\n" +
 	"\x15StreamActualsResponse\x129\n" +
 	"\asummary\x18\x01 \x01(\v2\x1f.aftercast.v1.ActualPushSummaryR\asummary\"\xd6\x01\n" +
 	"\x12ListActualsRequest\x12\x16\n" +

@@ -561,7 +561,17 @@ func (x *ForecastPushSummary) GetRejectionsTruncated() bool {
 type PushForecastsRequest struct {
 	state protoimpl.MessageState `protogen:"open.v1"`
 	// The forecast vectors to store, applied in order.
-	Forecasts     []*Forecast `protobuf:"bytes,1,rep,name=forecasts,proto3" json:"forecasts,omitempty"`
+	Forecasts []*Forecast `protobuf:"bytes,1,rep,name=forecasts,proto3" json:"forecasts,omitempty"`
+	// Optional: an id the client chooses for this request, up to 128 bytes,
+	// unique for its content (a random prefix per producer run and a batch
+	// number, say). The server keeps the summary of a committed request
+	// that had an id for 24 hours, and answers a request with the same id
+	// and the same content (vectors or actuals, in order) with that summary
+	// instead of applying it again, so a retry after a lost response counts
+	// as the first attempt did. The same id with other content is
+	// INVALID_ARGUMENT (field request_id). A request every item of which is
+	// rejected keeps no summary; it is judged again when retried.
+	RequestId     string `protobuf:"bytes,2,opt,name=request_id,json=requestId,proto3" json:"request_id,omitempty"`
 	unknownFields protoimpl.UnknownFields
 	sizeCache     protoimpl.SizeCache
 }
@@ -601,6 +611,13 @@ func (x *PushForecastsRequest) GetForecasts() []*Forecast {
 		return x.Forecasts
 	}
 	return nil
+}
+
+func (x *PushForecastsRequest) GetRequestId() string {
+	if x != nil {
+		return x.RequestId
+	}
+	return ""
 }
 
 // PushForecastsResponse is the response of ForecastService.PushForecasts.
@@ -654,7 +671,13 @@ type StreamForecastsRequest struct {
 	state protoimpl.MessageState `protogen:"open.v1"`
 	// The forecast vectors of this batch, applied in order after those of
 	// earlier batches.
-	Forecasts     []*Forecast `protobuf:"bytes,1,rep,name=forecasts,proto3" json:"forecasts,omitempty"`
+	Forecasts []*Forecast `protobuf:"bytes,1,rep,name=forecasts,proto3" json:"forecasts,omitempty"`
+	// Optional: an id for this message, as request_id of the unary push:
+	// a stream retried after it broke, sending the same messages with the
+	// same ids (and at the same positions in the stream), gets the summaries
+	// of the messages that had committed instead of their being applied
+	// again, so its final summary counts as one unbroken stream would.
+	RequestId     string `protobuf:"bytes,2,opt,name=request_id,json=requestId,proto3" json:"request_id,omitempty"`
 	unknownFields protoimpl.UnknownFields
 	sizeCache     protoimpl.SizeCache
 }
@@ -694,6 +717,13 @@ func (x *StreamForecastsRequest) GetForecasts() []*Forecast {
 		return x.Forecasts
 	}
 	return nil
+}
+
+func (x *StreamForecastsRequest) GetRequestId() string {
+	if x != nil {
+		return x.RequestId
+	}
+	return ""
 }
 
 // StreamForecastsResponse is the single response of
@@ -1090,13 +1120,17 @@ const file_aftercast_v1_forecast_proto_rawDesc = "" +
 	"\n" +
 	"rejections\x18\x05 \x03(\v2\x1f.aftercast.v1.ForecastRejectionR\n" +
 	"rejections\x121\n" +
-	"\x14rejections_truncated\x18\x06 \x01(\bR\x13rejectionsTruncated\"L\n" +
+	"\x14rejections_truncated\x18\x06 \x01(\bR\x13rejectionsTruncated\"k\n" +
 	"\x14PushForecastsRequest\x124\n" +
-	"\tforecasts\x18\x01 \x03(\v2\x16.aftercast.v1.ForecastR\tforecasts\"T\n" +
+	"\tforecasts\x18\x01 \x03(\v2\x16.aftercast.v1.ForecastR\tforecasts\x12\x1d\n" +
+	"\n" +
+	"request_id\x18\x02 \x01(\tR\trequestId\"T\n" +
 	"\x15PushForecastsResponse\x12;\n" +
-	"\asummary\x18\x01 \x01(\v2!.aftercast.v1.ForecastPushSummaryR\asummary\"N\n" +
+	"\asummary\x18\x01 \x01(\v2!.aftercast.v1.ForecastPushSummaryR\asummary\"m\n" +
 	"\x16StreamForecastsRequest\x124\n" +
-	"\tforecasts\x18\x01 \x03(\v2\x16.aftercast.v1.ForecastR\tforecasts\"V\n" +
+	"\tforecasts\x18\x01 \x03(\v2\x16.aftercast.v1.ForecastR\tforecasts\x12\x1d\n" +
+	"\n" +
+	"request_id\x18\x02 \x01(\tR\trequestId\"V\n" +
 	"\x17StreamForecastsResponse\x12;\n" +
 	"\asummary\x18\x01 \x01(\v2!.aftercast.v1.ForecastPushSummaryR\asummary\"\x88\x02\n" +
 	"\x14ListForecastsRequest\x12\x16\n" +

@@ -22,6 +22,16 @@ type Result struct {
 	Model  string
 	Step   string
 	Table  scoring.Table
+	// Late counts, by lead and overall, the pairs left unscored because
+	// their forecast arrived after the actual (method §3); nil where there
+	// is no such notion (offline evaluation).
+	Late *Late
+}
+
+// Late is the count of late pairs of a Result.
+type Late struct {
+	ByLead  map[int]int64
+	Overall int64
 }
 
 // Formats lists the names Write accepts.
@@ -55,6 +65,8 @@ type Metrics struct {
 	SMAPEExcluded int64    `json:"smape_excluded"`
 	WAPE          *float64 `json:"wape"`
 	MASE          *float64 `json:"mase"`
+	// Late is the count of late pairs, not in n (accuracy only).
+	Late *int64 `json:"late,omitempty"`
 }
 
 type jsonResult struct {
@@ -101,9 +113,16 @@ func WriteJSON(w io.Writer, rs []Result) error {
 	for _, r := range rs {
 		jr := jsonResult{Series: r.Series, Model: r.Model, Step: r.Step, Leads: make([]Metrics, 0, len(r.Table.Leads)),
 			Overall: MetricsJSON(r.Table.Overall)}
+		if r.Late != nil {
+			jr.Overall.Late = &r.Late.Overall
+		}
 		for _, l := range r.Table.Leads {
 			m := MetricsJSON(l.Metrics)
 			m.Lead = &l.Lead
+			if r.Late != nil {
+				n := r.Late.ByLead[l.Lead]
+				m.Late = &n
+			}
 			jr.Leads = append(jr.Leads, m)
 		}
 		out.Results = append(out.Results, jr)
@@ -113,10 +132,11 @@ func WriteJSON(w io.Writer, rs []Result) error {
 	return enc.Encode(out)
 }
 
-var csvHeader = []string{"series", "model", "step", "lead", "n", "me", "mae", "rmse", "mape", "mape_excluded", "smape", "smape_excluded", "wape", "mase"}
+var csvHeader = []string{"series", "model", "step", "lead", "n", "me", "mae", "rmse", "mape", "mape_excluded", "smape", "smape_excluded", "wape", "mase", "late"}
 
 // WriteCSV writes one row per (series, model, lead) and an "overall" row
-// per (series, model); undefined metrics are empty fields.
+// per (series, model); undefined metrics are empty fields, and so is late
+// where a result has no late counts.
 func WriteCSV(w io.Writer, rs []Result) error {
 	cw := csv.NewWriter(w)
 	if err := cw.Write(csvHeader); err != nil {
@@ -128,17 +148,22 @@ func WriteCSV(w io.Writer, rs []Result) error {
 		}
 		return strconv.FormatFloat(x, 'g', -1, 64)
 	}
-	row := func(r Result, lead string, m scoring.Metrics) []string {
+	row := func(r Result, lead string, m scoring.Metrics, late func(*Late) int64) []string {
+		lateField := ""
+		if r.Late != nil {
+			lateField = strconv.FormatInt(late(r.Late), 10)
+		}
 		return []string{r.Series, r.Model, r.Step, lead, strconv.FormatInt(m.N, 10), num(m.ME), num(m.MAE), num(m.RMSE),
-			num(m.MAPE), strconv.FormatInt(m.MAPEExcluded, 10), num(m.SMAPE), strconv.FormatInt(m.SMAPEExcluded, 10), num(m.WAPE), num(m.MASE)}
+			num(m.MAPE), strconv.FormatInt(m.MAPEExcluded, 10), num(m.SMAPE), strconv.FormatInt(m.SMAPEExcluded, 10), num(m.WAPE), num(m.MASE),
+			lateField}
 	}
 	for _, r := range rs {
 		for _, l := range r.Table.Leads {
-			if err := cw.Write(row(r, strconv.Itoa(l.Lead), l.Metrics)); err != nil {
+			if err := cw.Write(row(r, strconv.Itoa(l.Lead), l.Metrics, func(lt *Late) int64 { return lt.ByLead[l.Lead] })); err != nil {
 				return err
 			}
 		}
-		if err := cw.Write(row(r, "overall", r.Table.Overall)); err != nil {
+		if err := cw.Write(row(r, "overall", r.Table.Overall, func(lt *Late) int64 { return lt.Overall })); err != nil {
 			return err
 		}
 	}
