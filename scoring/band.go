@@ -91,11 +91,11 @@ func Summarize(q []float64, lead int) Summary {
 	K := len(q)
 	nan := math.NaN()
 	s := Summary{Lead: lead, K: K, Mean: nan, Var: nan, Crit: nan, FK: nan, Nu: nan, KEff: nan}
-	switch {
-	case K == 0:
+	switch K {
+	case 0:
 		s.Unusable = "no backtest origins"
 		return s
-	case K == 1:
+	case 1:
 		s.Unusable = "a single backtest origin: no spread to build a band from"
 		return s
 	}

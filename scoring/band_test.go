@@ -72,7 +72,6 @@ func TestSummarizeByHand(t *testing.T) {
 // for the series of band_series.csv.
 func TestBandAgainstR(t *testing.T) {
 	t.Parallel()
-	type key struct{ name string }
 	series := map[string][]float64{}
 	leads := map[string]int{}
 	for _, rec := range readCSV(t, "../testdata/quantiles/band_series.csv", "case,lead,t,e") {
@@ -436,28 +435,4 @@ func TestUsability(t *testing.T) {
 			t.Errorf("%s: reason %q does not name K_eff", c.name, v.Reason)
 		}
 	}
-}
-
-func equalInts(a, b []int) bool {
-	if len(a) != len(b) {
-		return false
-	}
-	for i := range a {
-		if a[i] != b[i] {
-			return false
-		}
-	}
-	return true
-}
-
-func equalFloats(a, b []float64) bool {
-	if len(a) != len(b) {
-		return false
-	}
-	for i := range a {
-		if a[i] != b[i] {
-			return false
-		}
-	}
-	return true
 }

@@ -24,7 +24,9 @@ func peakRSS() float64 {
 	for _, line := range strings.Split(string(b), "\n") {
 		if rest, ok := strings.CutPrefix(line, "VmHWM:"); ok {
 			var kb float64
-			fmt.Sscanf(strings.TrimSpace(rest), "%f", &kb)
+			if _, err := fmt.Sscanf(strings.TrimSpace(rest), "%f", &kb); err != nil {
+				return 0
+			}
 			return kb / 1024
 		}
 	}
@@ -35,6 +37,7 @@ func peakRSS() float64 {
 // full, as a producer streams them: the whole push is never held at once,
 // so the process's peak RSS stays the server's.
 func messages[T any](b *testing.B, batch int, send func([]T) error) *messageBuffer[T] {
+	b.Helper()
 	return &messageBuffer[T]{b: b, batch: batch, send: send}
 }
 

@@ -59,13 +59,15 @@ func leadOrNil(h int) *int32 {
 
 func statusToProto(st store.DriftStatus) *aftercastv1.DriftStatus {
 	sn := st.Snapshot
-	p := &aftercastv1.DriftStatus{Lead: leadOrNil(st.Lead), State: stateToProto[st.State], StateSinceTime: timeOrNil(st.Noticed),
+	p := &aftercastv1.DriftStatus{Lead: leadOrNil(st.Lead), State: stateToProto[st.State],
 		NoticedTime: timeOrNil(st.Noticed), OnsetOriginTime: timeOrNil(st.Onset), OriginsSinceOnset: int32(sn.OriginsSinceOnset),
 		LastOriginTime: timeOrNil(st.LastOrigin), WindowN: int32(sn.WindowN),
 		Mae: sn.MAE, MaeExpected: sn.MAEExpected, MaeBandLower: sn.MAEBandLower, MaeBandUpper: sn.MAEBandUpper, MaeAlarmLimit: sn.MAEAlarmLimit,
 		Me: sn.ME, MeExpected: sn.MEExpected, MeBandLower: sn.MEBandLower, MeBandUpper: sn.MEBandUpper,
 		MeAlarmLower: sn.MEAlarmLower, MeAlarmUpper: sn.MEAlarmUpper, KEff: sn.KEff,
 		OnsetMetric: metricToProto[sn.EnteredMetric], OnsetValue: sn.EnteredValue, OnsetLimit: sn.EnteredLimit, Reason: sn.Reason}
+	//lint:ignore SA1019 sent for clients older than noticed_time
+	p.StateSinceTime = timeOrNil(st.Noticed) //nolint:staticcheck // SA1019: sent for clients older than noticed_time
 	for _, m := range sn.Breached {
 		p.BreachedMetrics = append(p.BreachedMetrics, metricToProto[m])
 	}
@@ -219,9 +221,6 @@ func (s *driftService) ListDriftEvents(ctx context.Context, req *aftercastv1.Lis
 			return nil, badToken()
 		}
 		after = seq
-	}
-	if err != nil {
-		return nil, err
 	}
 	f := store.EventFilter{Series: req.GetSeries(), Model: req.GetModel(), After: after, Limit: size + 1}
 	for _, t := range []struct {

@@ -285,7 +285,9 @@ func perLeadSet(t *testing.T, g prometheus.Gatherer) map[string][]int {
 			case "series":
 				series = v
 			case "lead":
-				fmt.Sscan(v, &lead)
+				if _, err := fmt.Sscan(v, &lead); err != nil {
+					t.Errorf("lead state set %s: lead %q: %v", key, v, err)
+				}
 			}
 		}
 		out[series] = append(out[series], lead)
@@ -643,7 +645,7 @@ aftercast_metrics_series_dropped_total 0
 
 	t.Run("scrape", func(t *testing.T) {
 		t.Parallel()
-		resp, err := http.Get("http://" + srv.MetricsAddr() + "/metrics")
+		resp, err := get(t.Context(), "http://"+srv.MetricsAddr()+"/metrics")
 		if err != nil {
 			t.Fatal(err)
 		}

@@ -13,6 +13,7 @@ import (
 // Following next-page tokens from the first page visits every item once,
 // in order, and ends with an empty token.
 func TestOffsetPagesVisitEveryItemOnce(t *testing.T) {
+	t.Parallel()
 	items := []int{10, 11, 12, 13, 14}
 	var got []int
 	token, pages := "", 0

@@ -55,7 +55,17 @@ func start(t testing.TB, dbURL string) (*server.Server, client) {
 		aftercastv1.NewActualServiceClient(conn), aftercastv1.NewAccuracyServiceClient(conn), healthpb.NewHealthClient(conn)}
 }
 
+// get is http.Get with a context.
+func get(ctx context.Context, url string) (*http.Response, error) {
+	req, err := http.NewRequestWithContext(ctx, http.MethodGet, url, nil)
+	if err != nil {
+		return nil, err
+	}
+	return http.DefaultClient.Do(req)
+}
+
 func ctxT(t *testing.T) context.Context {
+	t.Helper()
 	ctx, cancel := context.WithTimeout(context.Background(), 2*time.Minute)
 	t.Cleanup(cancel)
 	return ctx
@@ -78,8 +88,8 @@ func TestServiceRoundTrip(t *testing.T) {
 		t.Fatalf("health: %v %v", r, err)
 	}
 	for _, path := range []string{"/healthz", "/readyz", "/metrics"} {
-		resp, err := http.Get("http://" + srv.MetricsAddr() + path)
-		if err != nil || resp.StatusCode != 200 {
+		resp, err := get(ctx, "http://"+srv.MetricsAddr()+path)
+		if err != nil || resp.StatusCode != http.StatusOK {
 			t.Errorf("GET %s: %v %v", path, resp, err)
 		}
 		if resp != nil {

@@ -81,7 +81,7 @@ func TestPushWithTheDatabaseGoneIsUnavailable(t *testing.T) {
 		t.Fatal(err)
 	}
 	ready := func() int {
-		resp, err := http.Get("http://" + srv.MetricsAddr() + "/readyz")
+		resp, err := get(ctx, "http://"+srv.MetricsAddr()+"/readyz")
 		if err != nil {
 			t.Fatal(err)
 		}

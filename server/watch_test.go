@@ -23,8 +23,8 @@ import (
 // their actuals, with errors scaled by scale, then drains the drift
 // evaluator.
 func pushDays(t *testing.T, ctx context.Context, srv *server.Server, key string, from, days, leads int, scale float64, r *rand.Rand) {
-	st := srv.Store()
 	t.Helper()
+	st := srv.Store()
 	for k := from; k < from+days; k++ {
 		o := t0.Add(time.Duration(k) * 24 * time.Hour)
 		vals := make([]float64, leads)

@@ -381,7 +381,9 @@ func followEvents(ctx context.Context, cf *clientFlags, client aftercastv1.Drift
 		return nil
 	})
 	if ctx.Err() != nil {
-		return nil
+		// Interrupted (Ctrl-C, SIGTERM) while listing the stored events: the
+		// end the user asked for, not a failure of the listing.
+		return nil //nolint:nilerr // a done ctx ends following with success (see the doc comment)
 	}
 	if err != nil {
 		return cf.rpcError(err, "")

@@ -4,10 +4,10 @@ import (
 	"bytes"
 	"context"
 	"encoding/json"
+	"errors"
 	"fmt"
 	"io"
 	"maps"
-	"net"
 	"reflect"
 	"slices"
 	"strconv"
@@ -184,7 +184,7 @@ func (f *fakeBaseline) ImportBaseline(s grpc.ClientStreamingServer[aftercastv1.I
 	var got []*aftercastv1.ImportBaselineRequest
 	for {
 		req, err := s.Recv()
-		if err == io.EOF {
+		if errors.Is(err, io.EOF) {
 			break
 		}
 		if err != nil {
@@ -226,17 +226,11 @@ func serveDriftFake(t *testing.T, d *fakeDrift, b *fakeBaseline) string {
 
 func serveDriftFakeZones(t *testing.T, d *fakeDrift, b *fakeBaseline, z *fakeZones) string {
 	t.Helper()
-	lis, err := net.Listen("tcp", "127.0.0.1:0")
-	if err != nil {
-		t.Fatal(err)
-	}
 	s := grpc.NewServer()
 	aftercastv1.RegisterSeriesServiceServer(s, z)
 	aftercastv1.RegisterDriftServiceServer(s, d)
 	aftercastv1.RegisterBaselineServiceServer(s, b)
-	go s.Serve(lis)
-	t.Cleanup(s.Stop)
-	return lis.Addr().String()
+	return serveGRPC(t, s)
 }
 
 // linesUntil collects output and cancels when it holds n lines.

@@ -213,13 +213,38 @@ func (e *pushStop) report(cf *clientFlags, sent, counts string) error {
 	messages := plural(int64(e.messages), "message")
 	switch {
 	case e.confirmed:
-		return fmt.Errorf("%w\nThe push stopped there. The server committed the %s sent before it, in %s (%s); nothing else was sent. %s",
-			cause, sent, messages, counts, again)
+		return &stopReport{cause: cause, note: fmt.Sprintf(
+			"The push stopped there. The server committed the %s sent before it, in %s (%s); nothing else was sent. %s",
+			sent, messages, counts, again)}
 	case e.messages == 0 && e.unconfirmed == nil:
-		return fmt.Errorf("%w\nThe push stopped there, before sending anything: the server stored nothing of this file.", cause)
+		return &stopReport{cause: cause,
+			note: "The push stopped there, before sending anything: the server stored nothing of this file."}
 	}
-	return fmt.Errorf("%w\nThe push stopped there after sending %s (up to %s), but the server did not confirm them (%v): some or all of them may be stored. %s",
-		cause, messages, sent, cf.rpcError(e.unconfirmed, ""), again)
+	unconfirmed := cf.rpcError(e.unconfirmed, "")
+	return &stopReport{cause: cause, unconfirmed: unconfirmed, note: fmt.Sprintf(
+		"The push stopped there after sending %s (up to %s), but the server did not confirm them (%s): some or all of them may be stored. %s",
+		messages, sent, unconfirmed, again)}
+}
+
+// stopReport is the error a stopped push ends with: its cause, then on a
+// line of its own a note in sentences for people, saying what the server
+// holds of the push.
+type stopReport struct {
+	cause error
+	note  string
+	// unconfirmed is why the server did not confirm what was sent, when
+	// it did not; the note says it too.
+	unconfirmed error
+}
+
+func (e *stopReport) Error() string { return e.cause.Error() + "\n" + e.note }
+
+// Unwrap is the cause, then why the server did not confirm, if it did not.
+func (e *stopReport) Unwrap() []error {
+	if e.unconfirmed == nil {
+		return []error{e.cause}
+	}
+	return []error{e.cause, e.unconfirmed}
 }
 
 // plural is "1 actual", "2 actuals".
@@ -455,97 +480,133 @@ func sendBatches[Item proto.Message, Req, Resp any](
 ) (*Resp, error) {
 	ctx, cancel := context.WithCancelCause(context.Background())
 	defer cancel(nil)
-	watchdog := time.AfterFunc(timeout, func() { cancel(errStalled) })
-	defer watchdog.Stop()
-	// waited ends a wait on the server, and says why it failed.
-	waited := func(err error) error {
-		watchdog.Stop()
-		if err != nil && errors.Is(context.Cause(ctx), errStalled) {
-			return status.Errorf(codes.DeadlineExceeded, "no progress for %v", timeout)
-		}
-		return err
-	}
+	s := &batchSender[Item, Req, Resp]{ctx: ctx, timeout: timeout, b: b, wrap: wrap, sent: sent}
+	s.watchdog = time.AfterFunc(timeout, func() { cancel(errStalled) })
+	defer s.watchdog.Stop()
 
 	stream, err := open(ctx)
-	if err = waited(err); err != nil {
+	if err = s.waited(err); err != nil {
 		return nil, err
 	}
-	items, size, messages := make([]Item, 0, b.items), 0, 0
-	flush := func() error {
-		if len(items) == 0 {
-			return nil
-		}
-		watchdog.Reset(timeout)
-		messages++
-		// A message must not change after Send, so every batch gets a
-		// new slice.
-		err := stream.Send(wrap(items))
-		if err == io.EOF { // the stream ended; its status says why
-			if _, err = stream.CloseAndRecv(); err == nil {
-				err = errors.New("the server ended the stream before all was sent")
-			}
-		}
-		if err = waited(err); err != nil {
-			return err
-		}
-		sent()
-		items, size = make([]Item, 0, b.items), 0
-		return nil
-	}
-	// stop ends a push at a failure of next (see pushBatches).
-	stop := func(cause error) (*Resp, error) {
-		if !closeOnStop {
-			return nil, cause
-		}
-		st := &pushStop{cause: cause}
-		if messages == 0 && len(items) == 0 {
-			return nil, st
-		}
-		err := flush()
-		st.messages = messages
-		if err != nil {
-			st.unconfirmed = err
-			return nil, st
-		}
-		watchdog.Reset(timeout)
-		resp, err := stream.CloseAndRecv()
-		if err = waited(err); err != nil {
-			st.unconfirmed = err
-			return nil, st
-		}
-		st.confirmed = true
-		return resp, st
-	}
+	s.stream, s.items = stream, make([]Item, 0, b.items)
 	for {
 		it, err := next()
-		if err == io.EOF {
+		if errors.Is(err, io.EOF) {
 			break
 		}
 		if err != nil {
-			return stop(err)
-		}
-		n := proto.Size(it) + itemOverhead
-		if len(items) > 0 && size+n > b.bytes {
-			if err := flush(); err != nil {
+			if !closeOnStop {
 				return nil, err
 			}
+			return s.stop(err)
 		}
-		items, size = append(items, it), size+n
-		if len(items) >= b.items {
-			if err := flush(); err != nil {
-				return nil, err
-			}
+		if err := s.add(it); err != nil {
+			return nil, err
 		}
 	}
-	if err := flush(); err != nil {
+	if err := s.flush(); err != nil {
 		return nil, err
 	}
-	watchdog.Reset(timeout)
-	resp, err := stream.CloseAndRecv()
-	if err = waited(err); err != nil {
+	return s.closeAndRecv()
+}
+
+// batchSender is the state of one stream of sendBatches: the items of the
+// message being filled, and the watchdog that abandons the stream when a
+// wait on the server takes longer than timeout.
+type batchSender[Item proto.Message, Req, Resp any] struct {
+	ctx      context.Context // cancelled with errStalled by the watchdog
+	watchdog *time.Timer
+	timeout  time.Duration
+	b        batching
+	stream   grpc.ClientStreamingClient[Req, Resp]
+	wrap     func([]Item) *Req
+	sent     func()
+
+	items    []Item // of the next message
+	size     int    // of items, with itemOverhead each
+	messages int    // sent, or being sent
+}
+
+// waited ends a wait on the server, and says why it failed.
+func (s *batchSender[Item, Req, Resp]) waited(err error) error {
+	s.watchdog.Stop()
+	if err != nil && errors.Is(context.Cause(s.ctx), errStalled) {
+		return status.Errorf(codes.DeadlineExceeded, "no progress for %v", s.timeout)
+	}
+	return err
+}
+
+// add adds an item to the next message, sending the message first when
+// the item would take it over b.bytes, and after when it is then full.
+func (s *batchSender[Item, Req, Resp]) add(it Item) error {
+	n := proto.Size(it) + itemOverhead
+	if len(s.items) > 0 && s.size+n > s.b.bytes {
+		if err := s.flush(); err != nil {
+			return err
+		}
+	}
+	s.items, s.size = append(s.items, it), s.size+n
+	if len(s.items) >= s.b.items {
+		return s.flush()
+	}
+	return nil
+}
+
+// flush sends the items added since the last message, if any, as one
+// message.
+func (s *batchSender[Item, Req, Resp]) flush() error {
+	if len(s.items) == 0 {
+		return nil
+	}
+	s.watchdog.Reset(s.timeout)
+	s.messages++
+	// A message must not change after Send, so every batch gets a new
+	// slice.
+	err := s.stream.Send(s.wrap(s.items))
+	if errors.Is(err, io.EOF) { // the stream ended; its status says why
+		if _, err = s.stream.CloseAndRecv(); err == nil {
+			err = errors.New("the server ended the stream before all was sent")
+		}
+	}
+	if err = s.waited(err); err != nil {
+		return err
+	}
+	s.sent()
+	s.items, s.size = make([]Item, 0, s.b.items), 0
+	return nil
+}
+
+// closeAndRecv closes the stream and waits for the server's response.
+func (s *batchSender[Item, Req, Resp]) closeAndRecv() (*Resp, error) {
+	s.watchdog.Reset(s.timeout)
+	resp, err := s.stream.CloseAndRecv()
+	if err = s.waited(err); err != nil {
 		return nil, err
 	}
 	return resp, nil
+}
+
+// stop ends a push at a failure of next, cause (see pushBatches): it
+// sends what was added, closes the stream and returns the server's
+// response, if it gave one, with a *pushStop.
+func (s *batchSender[Item, Req, Resp]) stop(cause error) (*Resp, error) {
+	st := &pushStop{cause: cause}
+	if s.messages == 0 && len(s.items) == 0 {
+		return nil, st
+	}
+	err := s.flush()
+	st.messages = s.messages
+	if err != nil {
+		st.unconfirmed = err
+		return nil, st
+	}
+	resp, err := s.closeAndRecv()
+	if err != nil {
+		st.unconfirmed = err
+		return nil, st
+	}
+	st.confirmed = true
+	return resp, st
 }
 
 // progress prints rows read, items sent and the rate on one line of

@@ -3,9 +3,9 @@ package main
 import (
 	"bytes"
 	"context"
+	"errors"
 	"fmt"
 	"io"
-	"net"
 	"os"
 	"strings"
 	"testing"
@@ -202,7 +202,7 @@ type unconfirmingActuals struct {
 
 func (unconfirmingActuals) StreamActuals(s grpc.ClientStreamingServer[aftercastv1.StreamActualsRequest, aftercastv1.StreamActualsResponse]) error {
 	for {
-		if _, err := s.Recv(); err == io.EOF {
+		if _, err := s.Recv(); errors.Is(err, io.EOF) {
 			return status.Error(codes.Internal, "stand-in failure after the last message")
 		} else if err != nil {
 			return err
@@ -214,20 +214,15 @@ func (unconfirmingActuals) StreamActuals(s grpc.ClientStreamingServer[aftercastv
 // what is committed, and says so.
 func TestPushStoppedWithoutConfirmation(t *testing.T) {
 	t.Parallel()
-	lis, err := net.Listen("tcp", "127.0.0.1:0")
-	if err != nil {
-		t.Fatal(err)
-	}
 	s := grpc.NewServer()
 	aftercastv1.RegisterActualServiceServer(s, unconfirmingActuals{})
-	go s.Serve(lis)
-	t.Cleanup(s.Stop)
+	addr := serveGRPC(t, s)
 	file := writeTemp(t, "series,time,value\nh,2026-01-01T00:00:00Z,1\nh,2026-01-01T01:00:00Z,2\nh,2026-01-01T02:00:00Z,\"3\n")
 	var out, errb bytes.Buffer
-	code := run([]string{"push", "actuals", "--addr", lis.Addr().String(), file}, &out, &errb)
+	code := run([]string{"push", "actuals", "--addr", addr, file}, &out, &errb)
 	want := "aftercast push: " + file + ":4: quoted field is not closed before the end of the file\n" +
 		"The push stopped there after sending 1 message (up to 2 actuals), but the server did not confirm them " +
-		"(aftercast at " + lis.Addr().String() + ": Internal: stand-in failure after the last message): some or all of them may be stored. " +
+		"(aftercast at " + addr + ": Internal: stand-in failure after the last message): some or all of them may be stored. " +
 		"Pushing the whole file again once it is fixed is safe: the rows already stored count as duplicates.\n"
 	if code != 1 || out.Len() != 0 || errb.String() != want {
 		t.Errorf("exit %d, stdout %q, stderr\n%s\nwant\n%s", code, out.String(), errb.String(), want)

@@ -38,10 +38,7 @@ func startService(t *testing.T, cfg server.Config) string {
 // after cut bytes from the client: a connection that breaks mid-push.
 func cuttingProxy(t *testing.T, target string, cut int64) string {
 	t.Helper()
-	ln, err := net.Listen("tcp", "127.0.0.1:0")
-	if err != nil {
-		t.Fatal(err)
-	}
+	ln := listenLocal(t)
 	t.Cleanup(func() { ln.Close() })
 	var first atomic.Bool
 	first.Store(true)
@@ -51,15 +48,15 @@ func cuttingProxy(t *testing.T, target string, cut int64) string {
 			if err != nil {
 				return
 			}
-			go forward(c, target, cut, first.Swap(false))
+			go forward(t.Context(), c, target, cut, first.Swap(false))
 		}
 	}()
 	return ln.Addr().String()
 }
 
-func forward(c net.Conn, target string, cut int64, cutThis bool) {
+func forward(ctx context.Context, c net.Conn, target string, cut int64, cutThis bool) {
 	defer c.Close()
-	s, err := net.Dial("tcp", target)
+	s, err := (&net.Dialer{}).DialContext(ctx, "tcp", target)
 	if err != nil {
 		return
 	}
@@ -150,10 +147,7 @@ func TestPushBatchesFitTheService(t *testing.T) {
 // reported; --retry-for 0 never retries.
 func TestRetryForBoundsTheRetries(t *testing.T) {
 	t.Parallel()
-	ln, err := net.Listen("tcp", "127.0.0.1:0")
-	if err != nil {
-		t.Fatal(err)
-	}
+	ln := listenLocal(t)
 	closed := ln.Addr().String()
 	ln.Close()
 	start := time.Now()

@@ -148,7 +148,7 @@ func (f *fakeForecasts) StreamForecasts(s grpc.ClientStreamingServer[aftercastv1
 	var got []*aftercastv1.Forecast
 	for {
 		req, err := s.Recv()
-		if err == io.EOF {
+		if errors.Is(err, io.EOF) {
 			break
 		}
 		if err != nil {
@@ -189,7 +189,9 @@ func (f fakeAccuracy) ListPairs(_ context.Context, r *aftercastv1.ListPairsReque
 	}
 	from := 0
 	if r.GetPageToken() != "" {
-		fmt.Sscan(r.GetPageToken(), &from)
+		if _, err := fmt.Sscan(r.GetPageToken(), &from); err != nil {
+			return nil, status.Errorf(codes.InvalidArgument, "page token %q: %v", r.GetPageToken(), err)
+		}
 	}
 	resp := &aftercastv1.ListPairsResponse{}
 	for i := from; i < f.n && i < from+2; i++ {
@@ -207,16 +209,36 @@ func (f fakeAccuracy) ListPairs(_ context.Context, r *aftercastv1.ListPairsReque
 // address.
 func serveFake(t *testing.T, fc *fakeForecasts, acc fakeAccuracy) string {
 	t.Helper()
-	lis, err := net.Listen("tcp", "127.0.0.1:0")
-	if err != nil {
-		t.Fatal(err)
-	}
 	s := grpc.NewServer()
 	aftercastv1.RegisterSeriesServiceServer(s, fakeSeries{})
 	aftercastv1.RegisterForecastServiceServer(s, fc)
 	aftercastv1.RegisterAccuracyServiceServer(s, acc)
-	go s.Serve(lis)
-	t.Cleanup(s.Stop)
+	return serveGRPC(t, s)
+}
+
+// listenLocal listens on a free port of the loopback interface.
+func listenLocal(t *testing.T) net.Listener {
+	t.Helper()
+	lis, err := (&net.ListenConfig{}).Listen(t.Context(), "tcp", "127.0.0.1:0")
+	if err != nil {
+		t.Fatal(err)
+	}
+	return lis
+}
+
+// serveGRPC serves s on a free port until the test ends, and returns its
+// address. Serving that fails other than by being stopped fails the test.
+func serveGRPC(t *testing.T, s *grpc.Server) string {
+	t.Helper()
+	lis := listenLocal(t)
+	served := make(chan error, 1)
+	go func() { served <- s.Serve(lis) }()
+	t.Cleanup(func() {
+		s.Stop()
+		if err := <-served; err != nil && !errors.Is(err, grpc.ErrServerStopped) {
+			t.Errorf("serving the stand-in: %v", err)
+		}
+	})
 	return lis.Addr().String()
 }
 
@@ -317,10 +339,7 @@ func TestPairsPagesToCSV(t *testing.T) {
 
 func TestClientCannotReachServer(t *testing.T) {
 	t.Parallel()
-	lis, err := net.Listen("tcp", "127.0.0.1:0")
-	if err != nil {
-		t.Fatal(err)
-	}
+	lis := listenLocal(t)
 	addr := lis.Addr().String()
 	lis.Close() // nothing listens there now
 	var out, errb bytes.Buffer

@@ -120,7 +120,7 @@ func runDemo(args []string, stdout, stderr io.Writer) error {
 	}
 	defer conn.Close()
 	if !*once {
-		printEndpoints(stderr, srv)
+		printEndpoints(ctx, stderr, srv)
 	}
 	p := &producer{cf: cf, conn: conn, sc: sc, stderr: stderr}
 	err = p.setUp(ctx)
@@ -150,7 +150,7 @@ func runDemo(args []string, stdout, stderr io.Writer) error {
 	if err != nil || *once {
 		return err
 	}
-	printEndpoints(stderr, srv)
+	printEndpoints(ctx, stderr, srv)
 	fmt.Fprintln(stderr, "aftercast demo: serving until interrupted (Ctrl-C); everything is deleted at exit")
 	<-ctx.Done()
 	fmt.Fprintln(stderr, "aftercast demo: stopping")
@@ -158,20 +158,26 @@ func runDemo(args []string, stdout, stderr io.Writer) error {
 }
 
 // printEndpoints says where the running demo can be reached.
-func printEndpoints(w io.Writer, srv *server.Server) {
+func printEndpoints(ctx context.Context, w io.Writer, srv *server.Server) {
 	fmt.Fprintf(w, "aftercast demo: gRPC at %s (try: aftercast drift --addr %[1]s; aftercast events --follow --addr %[1]s)\n", srv.GRPCAddr())
 	if m := srv.MetricsAddr(); m != "" {
-		if statusPage(m) {
+		if statusPage(ctx, m) {
 			fmt.Fprintf(w, "aftercast demo: status page at http://%s/\n", m)
 		}
 		fmt.Fprintf(w, "aftercast demo: metrics at http://%s/metrics\n", m)
 	}
 }
 
-// statusPage reports whether the service serves a status page at "/".
-func statusPage(addr string) bool {
-	c := http.Client{Timeout: 5 * time.Second}
-	resp, err := c.Get("http://" + addr + "/")
+// statusPage reports whether the service serves a status page at "/",
+// asking for up to 5 seconds.
+func statusPage(ctx context.Context, addr string) bool {
+	ctx, cancel := context.WithTimeout(ctx, 5*time.Second)
+	defer cancel()
+	req, err := http.NewRequestWithContext(ctx, http.MethodGet, "http://"+addr+"/", nil)
+	if err != nil {
+		return false
+	}
+	resp, err := http.DefaultClient.Do(req)
 	if err != nil {
 		return false
 	}

@@ -121,6 +121,7 @@ func firstSeriesDegraded(evs []store.DriftEvent, backtest, from int) (int, scori
 }
 
 func ctxT(t *testing.T, d time.Duration) context.Context {
+	t.Helper()
 	ctx, cancel := context.WithTimeout(context.Background(), d)
 	t.Cleanup(cancel)
 	return ctx
@@ -219,7 +220,7 @@ func TestDriftStateSurvivesRestart(t *testing.T) {
 	}
 	// Events come back in sequence order, cause data (nothing was revised).
 	for i, e := range straight {
-		if i > 0 && e.Seq <= straight[i-1].Seq || e.Cause != scoring.CauseData && !(i == 0 && e.Cause == scoring.CauseBaseline) {
+		if i > 0 && e.Seq <= straight[i-1].Seq || e.Cause != scoring.CauseData && (i != 0 || e.Cause != scoring.CauseBaseline) {
 			t.Errorf("event %d: seq %d cause %s", i, e.Seq, e.Cause)
 		}
 	}

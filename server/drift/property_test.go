@@ -306,8 +306,11 @@ func (c propCase) run(ctx context.Context, rp *replicas, r *rand.Rand) error {
 // state, onset, last origin and window value, and the replayed history.
 func (c propCase) differences(ctx context.Context, st *store.Store, ev *drift.Evaluator) ([]string, error) {
 	ref, version, err := ev.Reference(ctx, c.key, "m")
-	if err != nil || ref == nil {
-		return nil, fmt.Errorf("reference: %v (version %d)", err, version)
+	if err != nil {
+		return nil, fmt.Errorf("reference (version %d): %w", version, err)
+	}
+	if ref == nil {
+		return nil, fmt.Errorf("reference: none (version %d)", version)
 	}
 	pairs := slices.Clone(c.final)
 	slices.SortFunc(pairs, func(a, b scoring.Pair) int {

@@ -122,7 +122,7 @@ func (c *Cluster) start(ctx context.Context, opt Options) error {
 	for attempt := 1; ; attempt++ {
 		c.port = opt.Port
 		if c.port == 0 {
-			if c.port, err = freePort(); err != nil {
+			if c.port, err = freePort(ctx); err != nil {
 				return err
 			}
 		}

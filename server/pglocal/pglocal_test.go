@@ -31,6 +31,7 @@ func (w testWriter) Write(p []byte) (int, error) {
 }
 
 func testLogger(t *testing.T) *slog.Logger {
+	t.Helper()
 	return slog.New(slog.NewTextHandler(testWriter{t}, nil))
 }
 
@@ -61,7 +62,7 @@ func stop(t *testing.T, c *Cluster) {
 // psql runs sql on c with the psql client and returns its unaligned output.
 func psql(t *testing.T, c *Cluster, sql string) string {
 	t.Helper()
-	cmd := exec.Command(filepath.Join(c.binDir, "psql"), "-X",
+	cmd := exec.CommandContext(t.Context(), filepath.Join(c.binDir, "psql"), "-X",
 		"-h", "127.0.0.1", "-p", strconv.Itoa(c.port), "-U", "postgres", "-d", "postgres", "-Atc", sql)
 	out, err := cmd.CombinedOutput()
 	if err != nil {
@@ -144,7 +145,8 @@ func TestStartTemp(t *testing.T) {
 		t.Errorf("temp dir %s left behind: %v", c.root, err)
 	}
 	addr := net.JoinHostPort("127.0.0.1", strconv.Itoa(c.port))
-	if conn, err := net.DialTimeout("tcp", addr, time.Second); err == nil {
+	d := net.Dialer{Timeout: time.Second}
+	if conn, err := d.DialContext(t.Context(), "tcp", addr); err == nil {
 		conn.Close()
 		t.Errorf("%s still accepts connections after Stop", addr)
 	}
@@ -243,7 +245,8 @@ func TestPortTaken(t *testing.T) {
 	if testing.Short() {
 		t.Skip("starts a PostgreSQL server")
 	}
-	l, err := net.Listen("tcp", "127.0.0.1:0")
+	var lc net.ListenConfig
+	l, err := lc.Listen(t.Context(), "tcp", "127.0.0.1:0")
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -355,7 +358,7 @@ func TestParentDeath(t *testing.T) {
 	if testing.Short() {
 		t.Skip("starts a PostgreSQL server")
 	}
-	child := exec.Command(os.Args[0], "-test.run=^TestParentDeath$", "-test.count=1")
+	child := exec.CommandContext(t.Context(), os.Args[0], "-test.run=^TestParentDeath$", "-test.count=1")
 	child.Env = append(os.Environ(), "PGLOCAL_CHILD=1")
 	stderr, err := os.Create(filepath.Join(t.TempDir(), "stderr"))
 	if err != nil {

@@ -49,7 +49,8 @@ func (c *Cluster) startPostmaster(ctx context.Context) error {
 		// Durability buys nothing for a cluster that Stop deletes.
 		args = append(args, "-c", "fsync=off", "-c", "synchronous_commit=off", "-c", "full_page_writes=off")
 	}
-	cmd := exec.Command(filepath.Join(c.binDir, "postgres"), args...)
+	// ctx bounds the start only: the server outlives it, until Stop.
+	cmd := exec.Command(filepath.Join(c.binDir, "postgres"), args...) //nolint:noctx // not CommandContext: the server must outlive ctx
 	cmd.Stdout, cmd.Stderr = logf, logf
 	c.asServerUser(cmd)
 	// A process group of its own keeps the server out of reach of a Ctrl-C
@@ -91,7 +92,11 @@ func (c *Cluster) waitReady(ctx context.Context) error {
 		select {
 		case <-c.pm.exited:
 			log, _ := os.ReadFile(c.logPath)
-			err := fmt.Errorf("postgres exited while starting (%v); %s ends:\n%s", c.pm.err, c.logPath, tail(log))
+			why := c.pm.err
+			if why == nil {
+				why = errors.New("exit status 0")
+			}
+			err := fmt.Errorf("postgres exited while starting (%w); %s ends:\n%s", why, c.logPath, tail(log))
 			if bytes.Contains(log, []byte("could not bind")) || bytes.Contains(log, []byte("Address already in use")) {
 				return fmt.Errorf("%w: %w", errPortInUse, err)
 			}
@@ -194,8 +199,9 @@ func tail(b []byte) string {
 
 // freePort returns a TCP port on 127.0.0.1 that was free a moment ago.
 // Another process may take it before postgres binds it, so Start retries.
-func freePort() (int, error) {
-	l, err := net.Listen("tcp", "127.0.0.1:0")
+func freePort(ctx context.Context) (int, error) {
+	var lc net.ListenConfig
+	l, err := lc.Listen(ctx, "tcp", "127.0.0.1:0")
 	if err != nil {
 		return 0, fmt.Errorf("finding a free port: %w", err)
 	}

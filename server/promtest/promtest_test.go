@@ -379,7 +379,9 @@ func startPrometheus(ctx context.Context, t *testing.T, bin, metricsAddr string)
 	for attempt := 0; ; attempt++ {
 		addr := freeAddr(t)
 		p.base = "http://" + addr
-		cmd = exec.Command(bin, "--config.file="+cfgPath, "--storage.tsdb.path="+filepath.Join(dir, "data"),
+		// Not CommandContext, which would kill Prometheus before the
+		// cleanup below interrupts it.
+		cmd = exec.Command(bin, "--config.file="+cfgPath, //nolint:noctx // stopped by stop() in t.Cleanup "--storage.tsdb.path="+filepath.Join(dir, "data"),
 			"--web.listen-address="+addr, "--log.level=info")
 		cmd.Stdout, cmd.Stderr = p.log, p.log
 		if err := cmd.Start(); err != nil {
@@ -414,7 +416,8 @@ func stop(cmd *exec.Cmd, exited chan struct{}) {
 
 func freeAddr(t *testing.T) string {
 	t.Helper()
-	l, err := net.Listen("tcp", "127.0.0.1:0")
+	var lc net.ListenConfig
+	l, err := lc.Listen(t.Context(), "tcp", "127.0.0.1:0")
 	if err != nil {
 		t.Fatal(err)
 	}

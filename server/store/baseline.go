@@ -104,105 +104,28 @@ func (s *Store) ImportBaseline(ctx context.Context, model string, rows []Backtes
 	if err != nil {
 		return nil, err
 	}
-	var vs []FieldViolation
-	bad := func(field, format string, args ...any) {
-		if len(vs) < maxViolations {
-			vs = append(vs, FieldViolation{field, fmt.Sprintf(format, args...)})
-		}
-	}
-	type pairKey struct {
-		origin int64
-		lead   int
-	}
-	type upload struct {
-		se       *Series
-		leads    map[int]*BaselineLead
-		seen     map[pairKey]bool
-		training []TrainingActual
-	}
-	ups := map[string]*upload{}
+	im := baselineImport{series: series, ups: map[string]*baselineUpload{}}
 	for i, r := range rows {
-		se := series[r.Series]
-		switch {
-		case se == nil:
-			bad(fmt.Sprintf("rows[%d].series", i), "unknown series %q: create it first", r.Series)
-			continue
-		case gridProblem(se, r.Origin) != "":
-			bad(fmt.Sprintf("rows[%d].origin_time", i), "%s", gridProblem(se, r.Origin))
-			continue
-		case timeProblem(r.Target) != "":
-			bad(fmt.Sprintf("rows[%d].target_time", i), "%s", timeProblem(r.Target))
-			continue
-		case math.IsNaN(r.Forecast) || math.IsInf(r.Forecast, 0):
-			bad(fmt.Sprintf("rows[%d].forecast", i), "not a finite number")
-			continue
-		case math.IsNaN(r.Actual) || math.IsInf(r.Actual, 0):
-			bad(fmt.Sprintf("rows[%d].actual", i), "not a finite number")
-			continue
-		}
-		h, err := se.step.Lead(r.Origin, r.Target)
-		if err == nil {
-			err = scoring.CheckLead(h, se.Horizon)
-		}
-		if err != nil {
-			bad(fmt.Sprintf("rows[%d].target_time", i), "%v", err)
-			continue
-		}
-		u := ups[r.Series]
-		if u == nil {
-			u = &upload{se: se, leads: map[int]*BaselineLead{}, seen: map[pairKey]bool{}}
-			ups[r.Series] = u
-		}
-		k := pairKey{r.Origin.UnixNano(), h}
-		if u.seen[k] {
-			bad(fmt.Sprintf("rows[%d]", i), "a second row for series %s origin %s lead %d", r.Series, r.Origin.Format(time.RFC3339), h)
-			continue
-		}
-		u.seen[k] = true
-		l := u.leads[h]
-		if l == nil {
-			l = &BaselineLead{Lead: h}
-			u.leads[h] = l
-		}
-		l.Origins = append(l.Origins, r.Origin)
-		l.Forecasts = append(l.Forecasts, r.Forecast)
-		l.Actuals = append(l.Actuals, r.Actual)
+		im.addRow(i, r)
 	}
 	for i, t := range training {
-		u := ups[t.Series]
-		switch {
-		case u == nil:
-			bad(fmt.Sprintf("training_actuals[%d].series", i), "series %q has no backtest rows in this import", t.Series)
-		case math.IsNaN(t.Value) || math.IsInf(t.Value, 0):
-			bad(fmt.Sprintf("training_actuals[%d].value", i), "not a finite number")
-		case gridProblem(u.se, t.Time) != "":
-			bad(fmt.Sprintf("training_actuals[%d].time", i), "%s", gridProblem(u.se, t.Time))
-		default:
-			u.training = append(u.training, t)
-		}
+		im.addTraining(i, t)
 	}
-	if len(vs) > 0 {
-		return nil, &InvalidError{vs}
+	if len(im.vs) > 0 {
+		return nil, &InvalidError{im.vs}
 	}
 	var out []BaselineVersion
 	err = s.inTx(ctx, func(tx pgx.Tx) error {
 		out = out[:0]
-		ids := make([]int64, 0, len(ups))
-		for _, u := range ups {
+		ids := make([]int64, 0, len(im.ups))
+		for _, u := range im.ups {
 			ids = append(ids, u.se.ID)
 		}
 		if err := lockSeries(ctx, tx, ids); err != nil {
 			return err
 		}
-		for _, key := range sortedKeys(ups) {
-			u := ups[key]
-			leads := make([]BaselineLead, 0, len(u.leads))
-			for _, l := range u.leads {
-				sortLead(l)
-				leads = append(leads, *l)
-			}
-			slices.SortFunc(leads, func(a, b BaselineLead) int { return a.Lead - b.Lead })
-			v, err := s.storeBaseline(ctx, tx, u.se, model, leads, u.training)
+		for _, key := range sortedKeys(im.ups) {
+			v, err := s.storeUpload(ctx, tx, model, im.ups[key])
 			if err != nil {
 				return err
 			}
@@ -211,6 +134,114 @@ func (s *Store) ImportBaseline(ctx context.Context, model string, rows []Backtes
 		return nil
 	})
 	return out, err
+}
+
+// baselineImport checks an import's rows and training actuals and groups
+// them by series, collecting a violation (up to maxViolations) for every
+// invalid one.
+type baselineImport struct {
+	series map[string]*Series
+	ups    map[string]*baselineUpload
+	vs     []FieldViolation
+}
+
+// baselineUpload is what an import holds for one series.
+type baselineUpload struct {
+	se       *Series
+	leads    map[int]*BaselineLead
+	seen     map[baselinePairKey]bool
+	training []TrainingActual
+}
+
+type baselinePairKey struct {
+	origin int64
+	lead   int
+}
+
+func (im *baselineImport) bad(field, format string, args ...any) {
+	if len(im.vs) < maxViolations {
+		im.vs = append(im.vs, FieldViolation{field, fmt.Sprintf(format, args...)})
+	}
+}
+
+// rowProblem returns the field of row r (index i) that is invalid for
+// series se (nil when unknown) and why, or "", "".
+func rowProblem(se *Series, i int, r BacktestRow) (field, why string) {
+	switch {
+	case se == nil:
+		return fmt.Sprintf("rows[%d].series", i), fmt.Sprintf("unknown series %q: create it first", r.Series)
+	case gridProblem(se, r.Origin) != "":
+		return fmt.Sprintf("rows[%d].origin_time", i), gridProblem(se, r.Origin)
+	case timeProblem(r.Target) != "":
+		return fmt.Sprintf("rows[%d].target_time", i), timeProblem(r.Target)
+	case math.IsNaN(r.Forecast) || math.IsInf(r.Forecast, 0):
+		return fmt.Sprintf("rows[%d].forecast", i), "not a finite number"
+	case math.IsNaN(r.Actual) || math.IsInf(r.Actual, 0):
+		return fmt.Sprintf("rows[%d].actual", i), "not a finite number"
+	}
+	return "", ""
+}
+
+// addRow adds backtest row i.
+func (im *baselineImport) addRow(i int, r BacktestRow) {
+	se := im.series[r.Series]
+	if field, why := rowProblem(se, i, r); field != "" {
+		im.bad(field, "%s", why)
+		return
+	}
+	h, err := se.step.Lead(r.Origin, r.Target)
+	if err == nil {
+		err = scoring.CheckLead(h, se.Horizon)
+	}
+	if err != nil {
+		im.bad(fmt.Sprintf("rows[%d].target_time", i), "%v", err)
+		return
+	}
+	u := im.ups[r.Series]
+	if u == nil {
+		u = &baselineUpload{se: se, leads: map[int]*BaselineLead{}, seen: map[baselinePairKey]bool{}}
+		im.ups[r.Series] = u
+	}
+	k := baselinePairKey{r.Origin.UnixNano(), h}
+	if u.seen[k] {
+		im.bad(fmt.Sprintf("rows[%d]", i), "a second row for series %s origin %s lead %d", r.Series, r.Origin.Format(time.RFC3339), h)
+		return
+	}
+	u.seen[k] = true
+	l := u.leads[h]
+	if l == nil {
+		l = &BaselineLead{Lead: h}
+		u.leads[h] = l
+	}
+	l.Origins = append(l.Origins, r.Origin)
+	l.Forecasts = append(l.Forecasts, r.Forecast)
+	l.Actuals = append(l.Actuals, r.Actual)
+}
+
+// addTraining adds training actual i; its series must have backtest rows.
+func (im *baselineImport) addTraining(i int, t TrainingActual) {
+	u := im.ups[t.Series]
+	switch {
+	case u == nil:
+		im.bad(fmt.Sprintf("training_actuals[%d].series", i), "series %q has no backtest rows in this import", t.Series)
+	case math.IsNaN(t.Value) || math.IsInf(t.Value, 0):
+		im.bad(fmt.Sprintf("training_actuals[%d].value", i), "not a finite number")
+	case gridProblem(u.se, t.Time) != "":
+		im.bad(fmt.Sprintf("training_actuals[%d].time", i), "%s", gridProblem(u.se, t.Time))
+	default:
+		u.training = append(u.training, t)
+	}
+}
+
+// storeUpload stores u as a version of model, its leads in origin order.
+func (s *Store) storeUpload(ctx context.Context, tx pgx.Tx, model string, u *baselineUpload) (BaselineVersion, error) {
+	leads := make([]BaselineLead, 0, len(u.leads))
+	for _, l := range u.leads {
+		sortLead(l)
+		leads = append(leads, *l)
+	}
+	slices.SortFunc(leads, func(a, b BaselineLead) int { return a.Lead - b.Lead })
+	return s.storeBaseline(ctx, tx, u.se, model, leads, u.training)
 }
 
 func sortedKeys[V any](m map[string]V) []string {

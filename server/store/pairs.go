@@ -97,8 +97,7 @@ type storedActual struct {
 // and lead set, in origin order (descending when desc), leads ascending
 // within an origin. fn returns false to stop.
 func (s *Store) walk(ctx context.Context, se *Series, model string, sel *Selection, desc bool, from time.Time, fn func(Pair) bool) error {
-	lo, hi := originBounds(se, sel)
-	leadOK := func(h int) bool { return len(sel.Leads) == 0 || slices.Contains(sel.Leads, h) }
+	lo, hi := walkBounds(se, sel, desc, from)
 	// Read only the part of each vector that holds the selected leads.
 	leads := leadSpan{1, 0}
 	if len(sel.Leads) > 0 {
@@ -109,16 +108,6 @@ func (s *Store) walk(ctx context.Context, se *Series, model string, sel *Selecti
 	if sel.Window > 0 {
 		chunk = min(chunkOrigins, sel.Window+sel.Window/2+4)
 	}
-	if !from.IsZero() {
-		if desc {
-			hi = from.Add(time.Nanosecond)
-			if !sel.OriginTo.IsZero() && sel.OriginTo.Before(hi) {
-				hi = sel.OriginTo
-			}
-		} else if lo.IsZero() || from.After(lo) {
-			lo = from
-		}
-	}
 	for {
 		fs, err := readForecastSpan(ctx, s.pool, se.ID, model, lo, hi, desc, leads, chunk)
 		if err != nil {
@@ -127,45 +116,14 @@ func (s *Store) walk(ctx context.Context, se *Series, model string, sel *Selecti
 		if len(fs) == 0 {
 			return nil
 		}
-		tlo, thi := fs[0].origin, fs[0].origin
-		for _, f := range fs {
-			if f.origin.Before(tlo) {
-				tlo = f.origin
-			}
-			if t := se.step.Add(f.origin, leads.first-1+len(f.vals)); t.After(thi) {
-				thi = t
-			}
-		}
+		tlo, thi := targetBounds(se, fs, leads)
 		acts, err := s.readActuals(ctx, se.ID, tlo, thi)
 		if err != nil {
 			return err
 		}
 		for _, f := range fs {
-			for i, x := range f.vals {
-				h := leads.first + i
-				if math.IsNaN(x) || !leadOK(h) {
-					continue
-				}
-				t := se.step.Add(f.origin, h)
-				if !inRange(t, sel.TargetFrom, sel.TargetTo) {
-					continue
-				}
-				a, ok := acts[t.UnixNano()]
-				if !ok {
-					continue
-				}
-				p := Pair{Origin: f.origin, Target: t, Lead: h, Forecast: x, Actual: a.value,
-					ForecastReceivedAt: f.received, ActualFirstReceived: a.firstRecv, Late: f.late != nil && i < len(f.late) && f.late[i]}
-				if !fn(p) {
-					return nil
-				}
-				// A late re-issue follows the value it did not replace.
-				if i < len(f.lateVals) && !math.IsNaN(f.lateVals[i]) {
-					p.Forecast, p.Late, p.Reissue = f.lateVals[i], true, true
-					if !fn(p) {
-						return nil
-					}
-				}
+			if !walkVector(se, sel, leads, f, acts, fn) {
+				return nil
 			}
 		}
 		if len(fs) < chunk {
@@ -179,6 +137,71 @@ func (s *Store) walk(ctx context.Context, se *Series, model string, sel *Selecti
 			lo = last.Add(time.Nanosecond)
 		}
 	}
+}
+
+// walkBounds is the origin range walk reads first: the selection's,
+// narrowed to start at from (when not zero) in the walk's direction.
+func walkBounds(se *Series, sel *Selection, desc bool, from time.Time) (lo, hi time.Time) {
+	lo, hi = originBounds(se, sel)
+	switch {
+	case from.IsZero():
+	case desc:
+		hi = from.Add(time.Nanosecond)
+		if !sel.OriginTo.IsZero() && sel.OriginTo.Before(hi) {
+			hi = sel.OriginTo
+		}
+	case lo.IsZero() || from.After(lo):
+		lo = from
+	}
+	return lo, hi
+}
+
+// targetBounds returns the range (lo, hi] of the targets of vectors fs,
+// read for leads.
+func targetBounds(se *Series, fs []storedForecast, leads leadSpan) (lo, hi time.Time) {
+	lo, hi = fs[0].origin, fs[0].origin
+	for _, f := range fs {
+		if f.origin.Before(lo) {
+			lo = f.origin
+		}
+		if t := se.step.Add(f.origin, leads.first-1+len(f.vals)); t.After(hi) {
+			hi = t
+		}
+	}
+	return lo, hi
+}
+
+// walkVector calls fn with the pairs of vector f (read for leads) that the
+// selection keeps and acts completes, leads ascending. It returns false
+// when fn stopped the walk.
+func walkVector(se *Series, sel *Selection, leads leadSpan, f storedForecast, acts map[int64]storedActual, fn func(Pair) bool) bool {
+	for i, x := range f.vals {
+		h := leads.first + i
+		if math.IsNaN(x) || len(sel.Leads) > 0 && !slices.Contains(sel.Leads, h) {
+			continue
+		}
+		t := se.step.Add(f.origin, h)
+		if !inRange(t, sel.TargetFrom, sel.TargetTo) {
+			continue
+		}
+		a, ok := acts[t.UnixNano()]
+		if !ok {
+			continue
+		}
+		p := Pair{Origin: f.origin, Target: t, Lead: h, Forecast: x, Actual: a.value,
+			ForecastReceivedAt: f.received, ActualFirstReceived: a.firstRecv, Late: f.late != nil && i < len(f.late) && f.late[i]}
+		if !fn(p) {
+			return false
+		}
+		// A late re-issue follows the value it did not replace.
+		if i < len(f.lateVals) && !math.IsNaN(f.lateVals[i]) {
+			p.Forecast, p.Late, p.Reissue = f.lateVals[i], true, true
+			if !fn(p) {
+				return false
+			}
+		}
+	}
+	return true
 }
 
 func inRange(t, from, to time.Time) bool {
@@ -502,6 +525,10 @@ type StoredForecast struct {
 	Values                 []float64 // NaN: no value for that lead
 	Late                   []bool    // nil: none late
 	LateReissues           []float64 // NaN: none; nil: none at all
+	// Quantiles are those of the latest push that changed a value in use,
+	// per lead as Values (NaN where that push had none for the lead).
+	QuantileLevels []float64
+	QuantileValues [][]float64
 }
 
 // ListForecasts reads the stored vectors of (key, model) with origins in
@@ -516,7 +543,8 @@ func (s *Store) ListForecasts(ctx context.Context, key, model string, from, to, 
 	if !after.IsZero() && !after.Before(lo) {
 		lo = after.Add(time.Microsecond)
 	}
-	rows, err := s.pool.Query(ctx, `SELECT origin, issued_at, first_received_at, received_at, vals, late, late_vals FROM forecasts
+	rows, err := s.pool.Query(ctx, `SELECT origin, issued_at, first_received_at, received_at, vals, late, late_vals,
+		quantile_levels, quantile_vals FROM forecasts
 		WHERE series_id = $1 AND model = $2 AND origin >= $3 AND origin < $4 ORDER BY origin LIMIT $5`, se.ID, model, lo, orMax(to), limit)
 	if err != nil {
 		return nil, fmt.Errorf("reading forecasts: %w", err)
@@ -525,15 +553,21 @@ func (s *Store) ListForecasts(ctx context.Context, key, model string, from, to, 
 	var f StoredForecast
 	var issued pgtype.Timestamptz
 	var vals, lateVals []pgtype.Float8
-	_, err = pgx.ForEachRow(rows, []any{&f.Origin, &issued, &f.FirstReceived, &f.Receive, &vals, &f.Late, &lateVals}, func() error {
+	var qVals [][]pgtype.Float8
+	_, err = pgx.ForEachRow(rows, []any{&f.Origin, &issued, &f.FirstReceived, &f.Receive, &vals, &f.Late, &lateVals,
+		&f.QuantileLevels, &qVals}, func() error {
 		f.Origin, f.IssuedAt = f.Origin.UTC(), issued.Time
 		f.Values = fromFloat8(vals)
 		f.LateReissues = nil
 		if len(lateVals) > 0 {
 			f.LateReissues = fromFloat8(lateVals)
 		}
+		f.QuantileValues = nil
+		for _, q := range qVals {
+			f.QuantileValues = append(f.QuantileValues, fromFloat8(q))
+		}
 		out = append(out, f)
-		f.Late = nil
+		f.Late, f.QuantileLevels = nil, nil
 		return nil
 	})
 	if err != nil {

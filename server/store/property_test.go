@@ -37,6 +37,8 @@ var (
 // accuracy table, the late count, the pair list and windowed selections —
 // must equal an in-test model that applies the rules one item at a time in
 // the same order.
+//
+//nolint:paralleltest // the cases are subtests run by a pool of workers, more at once than -parallel allows, and must all end before the coverage check; t.Parallel in them would defeat both
 func TestLiveEqualsOffline(t *testing.T) {
 	t.Parallel()
 	// One database and one pool for all cases; each case has its own series.

@@ -528,11 +528,14 @@ func zoneName(loc *time.Location) string {
 	return loc.String()
 }
 
-// timeSteps are the tick spacings a time axis may use, smallest first.
-var timeSteps = []struct {
+// timeStep is a tick spacing: a duration, or a number of months.
+type timeStep struct {
 	d      time.Duration
 	months int
-}{{time.Hour, 0}, {2 * time.Hour, 0}, {3 * time.Hour, 0}, {6 * time.Hour, 0}, {12 * time.Hour, 0},
+}
+
+// timeSteps are the tick spacings a time axis may use, smallest first.
+var timeSteps = []timeStep{{time.Hour, 0}, {2 * time.Hour, 0}, {3 * time.Hour, 0}, {6 * time.Hour, 0}, {12 * time.Hour, 0},
 	{24 * time.Hour, 0}, {48 * time.Hour, 0}, {7 * 24 * time.Hour, 0}, {14 * 24 * time.Hour, 0},
 	{0, 1}, {0, 2}, {0, 3}, {0, 6}, {0, 12}, {0, 24}, {0, 60}}
 
@@ -551,45 +554,7 @@ func timeTicks(c *chart, f frame, t0, t1 time.Time, xt func(time.Time) float64, 
 		if span/approx > 8 && s.months < 60 {
 			continue
 		}
-		a := t0.In(loc)
-		var t time.Time
-		var next func(time.Time) time.Time
-		var layout string
-		switch {
-		case s.months > 0:
-			t = time.Date(a.Year(), a.Month(), 1, 0, 0, 0, 0, loc)
-			if s.months <= 12 {
-				for (int(t.Month())-1)%s.months != 0 {
-					t = t.AddDate(0, -1, 0)
-				}
-			} else {
-				years := s.months / 12
-				t = time.Date(a.Year()-a.Year()%years, 1, 1, 0, 0, 0, 0, loc)
-			}
-			next = func(t time.Time) time.Time { return t.AddDate(0, s.months, 0) }
-			layout = "Jan 2006"
-		case s.d >= 24*time.Hour:
-			t = time.Date(a.Year(), a.Month(), a.Day(), 0, 0, 0, 0, loc)
-			days := int(s.d / (24 * time.Hour))
-			if days == 7 || days == 14 {
-				for t.Weekday() != time.Monday {
-					t = t.AddDate(0, 0, -1)
-				}
-			}
-			next = func(t time.Time) time.Time { return t.AddDate(0, 0, days) }
-			layout = "Jan 2"
-			if span > 300*24*time.Hour {
-				layout = "2006-01-02"
-			}
-		default:
-			h := int(s.d / time.Hour)
-			t = time.Date(a.Year(), a.Month(), a.Day(), a.Hour()-a.Hour()%h, 0, 0, 0, loc)
-			next = func(t time.Time) time.Time { return t.Add(s.d) }
-			layout = "15:04"
-			if span > 12*time.Hour {
-				layout = "Jan 2 15:04"
-			}
-		}
+		t, next, layout := s.ticks(t0.In(loc), loc, span)
 		for ; !t.After(t1); t = next(t) {
 			if t.Before(t0) {
 				continue
@@ -598,4 +563,45 @@ func timeTicks(c *chart, f frame, t0, t1 time.Time, xt func(time.Time) float64, 
 		}
 		return
 	}
+}
+
+// ticks returns the first tick in loc at or before a, how to step to the
+// next one, and the layout of their labels on an axis that spans span.
+func (s timeStep) ticks(a time.Time, loc *time.Location, span time.Duration) (t time.Time, next func(time.Time) time.Time, layout string) {
+	switch {
+	case s.months > 0:
+		t = time.Date(a.Year(), a.Month(), 1, 0, 0, 0, 0, loc)
+		if s.months <= 12 {
+			for (int(t.Month())-1)%s.months != 0 {
+				t = t.AddDate(0, -1, 0)
+			}
+		} else {
+			years := s.months / 12
+			t = time.Date(a.Year()-a.Year()%years, 1, 1, 0, 0, 0, 0, loc)
+		}
+		next = func(t time.Time) time.Time { return t.AddDate(0, s.months, 0) }
+		layout = "Jan 2006"
+	case s.d >= 24*time.Hour:
+		t = time.Date(a.Year(), a.Month(), a.Day(), 0, 0, 0, 0, loc)
+		days := int(s.d / (24 * time.Hour))
+		if days == 7 || days == 14 {
+			for t.Weekday() != time.Monday {
+				t = t.AddDate(0, 0, -1)
+			}
+		}
+		next = func(t time.Time) time.Time { return t.AddDate(0, 0, days) }
+		layout = "Jan 2"
+		if span > 300*24*time.Hour {
+			layout = "2006-01-02"
+		}
+	default:
+		h := int(s.d / time.Hour)
+		t = time.Date(a.Year(), a.Month(), a.Day(), a.Hour()-a.Hour()%h, 0, 0, 0, loc)
+		next = func(t time.Time) time.Time { return t.Add(s.d) }
+		layout = "15:04"
+		if span > 12*time.Hour {
+			layout = "Jan 2 15:04"
+		}
+	}
+	return t, next, layout
 }

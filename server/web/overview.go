@@ -97,17 +97,9 @@ func (h *handler) overview(ctx context.Context) (*overviewPage, error) {
 	p := &overviewPage{layout: h.layout("Forecast accuracy against the backtest")}
 	p.Home = true
 
-	var series []store.Series
-	for after := ""; ; {
-		page, err := h.st.ListSeries(ctx, after, 1000)
-		if err != nil {
-			return nil, err
-		}
-		series = append(series, page...)
-		if len(page) < 1000 {
-			break
-		}
-		after = page[len(page)-1].Key
+	series, err := h.allSeries(ctx)
+	if err != nil {
+		return nil, err
 	}
 	locs := map[string]*time.Location{}
 	for _, se := range series {
@@ -122,18 +114,99 @@ func (h *handler) overview(ctx context.Context) (*overviewPage, error) {
 		return nil, err
 	}
 
-	type key struct{ series, model string }
-	rows := map[key]*overviewRow{}
-	row := func(s, m string) *overviewRow {
-		k := key{s, m}
-		if rows[k] == nil {
-			rows[k] = &overviewRow{Series: s, Model: m, Link: seriesLink(s, m, nil), Baseline: "none"}
-		}
-		return rows[k]
+	rows := overviewRows{}
+	rows.addStates(states, locs, now)
+	for _, f := range fresh {
+		r := rows.row(f.Series, f.Model)
+		r.LastOrigin = stampOf(f.LastOrigin, locs[f.Series], now, true)
+		r.lastOrigin, r.interval = f.LastOrigin, f.OriginInterval
 	}
-	byLead := map[key]map[scoring.State][]int{}
+	if err := h.addUnjudged(ctx, rows); err != nil {
+		return nil, err
+	}
+	withModel := map[string]bool{}
+	for k := range rows {
+		withModel[k.series] = true
+	}
+	for _, se := range series {
+		if !withModel[se.Key] {
+			r := &overviewRow{Series: se.Key, State: noState("no forecasts yet"), rank: 7, Baseline: "—"}
+			rows[overviewKey{se.Key, ""}] = r
+		}
+	}
+	lastActual := map[string]store.ActualFreshness{}
+	for _, a := range actuals {
+		lastActual[a.Series] = a
+	}
+	var intervals []time.Duration // of the rows that can page
+	for k, r := range rows {
+		if r.Baseline != "none" && r.Baseline != "—" && r.state != scoring.StateInsufficientBaseline {
+			intervals = append(intervals, r.interval)
+		}
+		if a, ok := lastActual[k.series]; ok {
+			r.LastActual = stampOf(a.LastTime, locs[k.series], now, true)
+		}
+		// The usual origin interval is known from a baseline's cadence;
+		// without one it would be a guess (the step).
+		if r.interval > 0 && r.Baseline != "none" && now.Sub(r.lastOrigin) > 2*r.interval {
+			r.Overdue = fmt.Sprintf("overdue: origins usually come every %s", durationText(r.interval))
+		}
+		p.Rows = append(p.Rows, *r)
+	}
+	p.Chance = chanceOf(intervals)
+	slices.SortFunc(p.Rows, func(a, b overviewRow) int {
+		return cmp.Or(cmp.Compare(a.rank, b.rank), cmp.Compare(a.Series, b.Series), cmp.Compare(a.Model, b.Model))
+	})
+	p.Counts = stateCounts(p.Rows)
+
+	_, p.Events, err = h.latestEvents(ctx, "", "", overviewEvents, locs)
+	p.Events.ShowSeries = true
+	for i := range p.Events.Rows {
+		p.Events.Rows[i].ShowSeries = true
+	}
+	for i := range p.Events.Older {
+		p.Events.Older[i].ShowSeries = true
+	}
+	return p, err
+}
+
+// allSeries lists every series, in key order.
+func (h *handler) allSeries(ctx context.Context) ([]store.Series, error) {
+	var series []store.Series
+	for after := ""; ; {
+		page, err := h.st.ListSeries(ctx, after, 1000)
+		if err != nil {
+			return nil, err
+		}
+		series = append(series, page...)
+		if len(page) < 1000 {
+			return series, nil
+		}
+		after = page[len(page)-1].Key
+	}
+}
+
+// overviewKey names an overview row.
+type overviewKey struct{ series, model string }
+
+// overviewRows are the overview's rows while they are built.
+type overviewRows map[overviewKey]*overviewRow
+
+// row returns the row of series s and model m, adding it if new.
+func (rows overviewRows) row(s, m string) *overviewRow {
+	k := overviewKey{s, m}
+	if rows[k] == nil {
+		rows[k] = &overviewRow{Series: s, Model: m, Link: seriesLink(s, m, nil), Baseline: "none"}
+	}
+	return rows[k]
+}
+
+// addStates sets the rows' series-level states and lists their leads not
+// within, by state.
+func (rows overviewRows) addStates(states []store.DriftStatus, locs map[string]*time.Location, now time.Time) {
+	byLead := map[overviewKey]map[scoring.State][]int{}
 	for _, st := range states {
-		r, k := row(st.Series, st.Model), key{st.Series, st.Model}
+		r, k := rows.row(st.Series, st.Model), overviewKey{st.Series, st.Model}
 		r.Baseline = fmt.Sprintf("v%d", st.BaselineVersion)
 		if st.Lead == 0 {
 			r.State, r.state = viewState(st.State), st.State
@@ -157,16 +230,11 @@ func (h *handler) overview(ctx context.Context) (*overviewPage, error) {
 			}
 		}
 	}
-	for _, f := range fresh {
-		r := row(f.Series, f.Model)
-		r.LastOrigin = stampOf(f.LastOrigin, locs[f.Series], now, true)
-		r.lastOrigin, r.interval = f.LastOrigin, f.OriginInterval
-	}
-	lastActual := map[string]store.ActualFreshness{}
-	for _, a := range actuals {
-		lastActual[a.Series] = a
-	}
-	// Rows without drift states: is there a baseline at all?
+}
+
+// addUnjudged says, for the rows without drift states, whether there is
+// a baseline at all.
+func (h *handler) addUnjudged(ctx context.Context, rows overviewRows) error {
 	for k, r := range rows {
 		if r.State.Class != "" {
 			continue
@@ -174,7 +242,7 @@ func (h *handler) overview(ctx context.Context) (*overviewPage, error) {
 		r.rank = 6
 		vs, err := h.st.ListBaselineVersions(ctx, k.series, k.model)
 		if err != nil && !errors.Is(err, store.ErrNotFound) {
-			return nil, err
+			return err
 		}
 		if len(vs) == 0 {
 			r.State = noState("no baseline")
@@ -183,57 +251,26 @@ func (h *handler) overview(ctx context.Context) (*overviewPage, error) {
 		r.Baseline = fmt.Sprintf("v%d", vs[0].Version)
 		r.State = noState("not evaluated yet")
 	}
-	withModel := map[string]bool{}
-	for k := range rows {
-		withModel[k.series] = true
-	}
-	for _, se := range series {
-		if !withModel[se.Key] {
-			r := &overviewRow{Series: se.Key, State: noState("no forecasts yet"), rank: 7, Baseline: "—"}
-			rows[key{se.Key, ""}] = r
-		}
-	}
-	var intervals []time.Duration // of the rows that can page
-	for k, r := range rows {
-		if r.Baseline != "none" && r.Baseline != "—" && r.state != scoring.StateInsufficientBaseline {
-			intervals = append(intervals, r.interval)
-		}
-		if a, ok := lastActual[k.series]; ok {
-			r.LastActual = stampOf(a.LastTime, locs[k.series], now, true)
-		}
-		// The usual origin interval is known from a baseline's cadence;
-		// without one it would be a guess (the step).
-		if r.interval > 0 && r.Baseline != "none" && now.Sub(r.lastOrigin) > 2*r.interval {
-			r.Overdue = fmt.Sprintf("overdue: origins usually come every %s", durationText(r.interval))
-		}
-		p.Rows = append(p.Rows, *r)
-	}
-	p.Chance = chanceOf(intervals)
-	slices.SortFunc(p.Rows, func(a, b overviewRow) int {
-		return cmp.Or(cmp.Compare(a.rank, b.rank), cmp.Compare(a.Series, b.Series), cmp.Compare(a.Model, b.Model))
-	})
+	return nil
+}
+
+// stateCounts counts the rows by state, in the order the states first
+// appear.
+func stateCounts(rows []overviewRow) []stateCount {
 	counts := map[string]*stateCount{}
 	var order []string
-	for _, r := range p.Rows {
+	for _, r := range rows {
 		if counts[r.State.Label] == nil {
 			counts[r.State.Label] = &stateCount{State: r.State}
 			order = append(order, r.State.Label)
 		}
 		counts[r.State.Label].N++
 	}
+	var out []stateCount
 	for _, l := range order {
-		p.Counts = append(p.Counts, *counts[l])
+		out = append(out, *counts[l])
 	}
-
-	_, p.Events, err = h.latestEvents(ctx, "", "", overviewEvents, locs)
-	p.Events.ShowSeries = true
-	for i := range p.Events.Rows {
-		p.Events.Rows[i].ShowSeries = true
-	}
-	for i := range p.Events.Older {
-		p.Events.Older[i].ShowSeries = true
-	}
-	return p, err
+	return out
 }
 
 // eventsShown is how many events a list shows unfolded.

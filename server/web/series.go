@@ -161,20 +161,7 @@ func (h *handler) series(ctx context.Context, q url.Values) (*seriesPage, int, e
 		return nil, 0, &userError{http.StatusNotFound, "Unknown model",
 			fmt.Sprintf("Series %q has no forecasts and no baseline of model %q.", key, model)}
 	}
-	active := 0
-	if len(versions) > 0 {
-		v := versions[0]
-		active = v.Version
-		b := &baselineInfo{Version: v.Version, Created: stampOf(v.CreatedAt, loc, now, true), FirstOrigin: stampOf(v.FirstOrigin, loc, now, false),
-			LastOrigin: stampOf(v.LastOrigin, loc, now, false), Rows: v.Rows, CadenceSteps: v.CadenceSteps, Older: len(versions) - 1}
-		for _, w := range v.Warnings {
-			b.Warnings = append(b.Warnings, w.Message)
-		}
-		p.Baseline = b
-	} else {
-		p.Notices = append(p.Notices, notice{fmt.Sprintf("No baseline: model %s has no backtest for this series, so there is no band to judge against "+
-			"and no drift state. Import one with", model), "aftercast baseline import --model " + model + " FILE.csv"})
-	}
+	active := p.addBaseline(versions, model, loc, now)
 	if p.Pairs.NoForecasts {
 		p.Notices = append(p.Notices, notice{Text: "No forecasts of this model have arrived yet."})
 	}
@@ -184,99 +171,21 @@ func (h *handler) series(ctx context.Context, q url.Values) (*seriesPage, int, e
 		byLead[st.Lead] = st
 	}
 	p.HasStates = len(states) > 0
-	if s0, ok := byLead[0]; ok {
-		p.State, p.Onset, p.LastOrigin = viewState(s0.State), onsetOf(s0, loc, now), stampOf(s0.LastOrigin, loc, now, true)
-		p.Pooled = pooledSettings(s0.Snapshot, dec)
-		if s0.BaselineVersion != active && active > 0 {
-			p.Notices = append(p.Notices, notice{Text: fmt.Sprintf("The drift states were judged against baseline v%d; v%d is active and is used from the next evaluation on.",
-				s0.BaselineVersion, active)})
-		}
-	} else if active > 0 {
-		p.State = noState("not evaluated yet")
-		p.Notices = append(p.Notices, notice{Text: "No drift states yet: the baseline has not been judged against production pairs. " +
-			"The lead chart shows the backtest expectation for a full window of " + strconv.Itoa(windowN) + " origins."})
-	} else {
-		p.State = noState("no baseline")
-	}
+	p.addSeriesState(byLead, dec, active, loc, now)
 
 	// The lead-step chart.
-	pts := make([]leadPoint, se.Horizon)
-	for i := range pts {
-		nan := math.NaN()
-		pts[i] = leadPoint{Lead: i + 1, MAE: nan, Expected: nan, Lower: nan, Upper: nan, Alarm: nan}
+	var pts []leadPoint
+	if p.HasStates {
+		pts = p.statePoints(se.Horizon, byLead, dec, loc, now)
+	} else if pts, err = h.expectedPoints(ctx, key, model, se.Horizon, active, !p.Pairs.NoForecasts); err != nil {
+		return nil, 0, err
 	}
 	windowNote := fmt.Sprintf("last %d origins", windowN)
-	if p.HasStates {
-		groups := map[scoring.State][]int{}
-		for h := 1; h <= se.Horizon; h++ {
-			st, ok := byLead[h]
-			if !ok {
-				continue
-			}
-			sn := st.Snapshot
-			pt := &pts[h-1]
-			pt.HasState, pt.State = true, st.State
-			pt.MAE, pt.Expected, pt.Lower, pt.Upper, pt.Alarm = val(sn.MAE), val(sn.MAEExpected), val(sn.MAEBandLower), val(sn.MAEBandUpper), val(sn.MAEAlarmLimit)
-			pt.Title = leadTitle(h, slices.Contains(dec, h), st, loc, now)
-			if st.State != scoring.StateWithin {
-				groups[st.State] = append(groups[st.State], h)
-			}
-		}
-		for _, s := range []scoring.State{scoring.StateDegraded, scoring.StateImproved, scoring.StateInsufficientData, scoring.StateInsufficientBaseline} {
-			if len(groups[s]) > 0 {
-				p.Drifted = append(p.Drifted, leadGroup{State: viewState(s), Leads: compactLeads(groups[s])})
-			}
-		}
-	} else {
-		if active > 0 {
-			_, views, _, err := h.ev.BaselineView(ctx, key, model, 0, windowN)
-			if err != nil {
-				return nil, 0, err
-			}
-			for _, v := range views {
-				if v.Lead >= 1 && v.Lead <= se.Horizon && v.Usable {
-					pt := &pts[v.Lead-1]
-					pt.Expected, pt.Lower, pt.Upper, pt.Alarm = v.MAE.Expected, v.MAE.Lower, v.MAE.Upper, v.MAE.AlarmUpper
-				}
-			}
-		}
-		if !p.Pairs.NoForecasts {
-			acc, err := h.st.Accuracy(ctx, key, model, store.Selection{Window: windowN}, math.NaN())
-			if err != nil && !errors.Is(err, store.ErrNotFound) {
-				return nil, 0, err
-			}
-			for _, l := range acc.Table.Leads {
-				if l.Lead >= 1 && l.Lead <= se.Horizon {
-					pts[l.Lead-1].MAE = l.MAE
-				}
-			}
-		}
-	}
 	p.LeadChart = leadChart("lead-chart", pts, se.Horizon, dec, allDecision, se.Unit, se.Step, windowNote)
 
 	// Which lead the origin and pairs charts show.
-	p.Lead, p.LeadNote = defaultLead(byLead, dec)
-	if s := q.Get("lead"); s != "" {
-		l, err := strconv.Atoi(s)
-		if err != nil || l < 1 || l > se.Horizon {
-			p.LeadError = fmt.Sprintf("Lead %q is not one of 1-%d; showing lead %d instead.", s, se.Horizon, p.Lead)
-			status = http.StatusBadRequest
-		} else {
-			p.Lead, p.LeadNote = l, ""
-		}
-	}
-	for h := 1; h <= se.Horizon; h++ {
-		o := leadOption{Lead: h, Label: strconv.Itoa(h), Selected: h == p.Lead}
-		if st, ok := byLead[h]; ok && st.State != scoring.StateWithin {
-			o.Label += " (" + viewState(st.State).Label + ")"
-		}
-		if slices.Contains(dec, h) && !allDecision {
-			o.Label += " · decision"
-		}
-		p.LeadOptions = append(p.LeadOptions, o)
-	}
-	for h := 1; h <= se.Horizon; h++ {
-		p.LeadRows = append(p.LeadRows, leadRowOf(h, byLead, slices.Contains(dec, h) && !allDecision, h == p.Lead, key, model, q, loc, now))
+	if !p.chooseLead(q, se.Horizon, byLead, dec, allDecision, loc, now) {
+		status = http.StatusBadRequest
 	}
 
 	events, list, err := h.latestEvents(ctx, key, model, seriesEvents, map[string]*time.Location{key: loc})
@@ -290,6 +199,144 @@ func (h *handler) series(ctx context.Context, q url.Values) (*seriesPage, int, e
 		}
 	}
 	return p, status, nil
+}
+
+// addBaseline describes the active baseline, the newest of versions, and
+// returns its version, or says there is none and returns 0.
+func (p *seriesPage) addBaseline(versions []store.BaselineVersion, model string, loc *time.Location, now time.Time) int {
+	if len(versions) == 0 {
+		p.Notices = append(p.Notices, notice{fmt.Sprintf("No baseline: model %s has no backtest for this series, so there is no band to judge against "+
+			"and no drift state. Import one with", model), "aftercast baseline import --model " + model + " FILE.csv"})
+		return 0
+	}
+	v := versions[0]
+	b := &baselineInfo{Version: v.Version, Created: stampOf(v.CreatedAt, loc, now, true), FirstOrigin: stampOf(v.FirstOrigin, loc, now, false),
+		LastOrigin: stampOf(v.LastOrigin, loc, now, false), Rows: v.Rows, CadenceSteps: v.CadenceSteps, Older: len(versions) - 1}
+	for _, w := range v.Warnings {
+		b.Warnings = append(b.Warnings, w.Message)
+	}
+	p.Baseline = b
+	return v.Version
+}
+
+// addSeriesState shows the series-level state (lead 0 of byLead), or why
+// there is none; active is the active baseline version, 0 without one.
+func (p *seriesPage) addSeriesState(byLead map[int]store.DriftStatus, dec []int, active int, loc *time.Location, now time.Time) {
+	s0, ok := byLead[0]
+	switch {
+	case ok:
+		p.State, p.Onset, p.LastOrigin = viewState(s0.State), onsetOf(s0, loc, now), stampOf(s0.LastOrigin, loc, now, true)
+		p.Pooled = pooledSettings(s0.Snapshot, dec)
+		if s0.BaselineVersion != active && active > 0 {
+			p.Notices = append(p.Notices, notice{Text: fmt.Sprintf("The drift states were judged against baseline v%d; v%d is active and is used from the next evaluation on.",
+				s0.BaselineVersion, active)})
+		}
+	case active > 0:
+		p.State = noState("not evaluated yet")
+		p.Notices = append(p.Notices, notice{Text: "No drift states yet: the baseline has not been judged against production pairs. " +
+			"The lead chart shows the backtest expectation for a full window of " + strconv.Itoa(windowN) + " origins."})
+	default:
+		p.State = noState("no baseline")
+	}
+}
+
+// emptyPoints returns the lead chart's points with nothing to draw yet.
+func emptyPoints(horizon int) []leadPoint {
+	pts := make([]leadPoint, horizon)
+	for i := range pts {
+		nan := math.NaN()
+		pts[i] = leadPoint{Lead: i + 1, MAE: nan, Expected: nan, Lower: nan, Upper: nan, Alarm: nan}
+	}
+	return pts
+}
+
+// statePoints returns the lead chart's points from the leads' drift states,
+// and lists the leads not within on the page, by state.
+func (p *seriesPage) statePoints(horizon int, byLead map[int]store.DriftStatus, dec []int, loc *time.Location, now time.Time) []leadPoint {
+	pts := emptyPoints(horizon)
+	groups := map[scoring.State][]int{}
+	for h := 1; h <= horizon; h++ {
+		st, ok := byLead[h]
+		if !ok {
+			continue
+		}
+		sn := st.Snapshot
+		pt := &pts[h-1]
+		pt.HasState, pt.State = true, st.State
+		pt.MAE, pt.Expected, pt.Lower, pt.Upper, pt.Alarm = val(sn.MAE), val(sn.MAEExpected), val(sn.MAEBandLower), val(sn.MAEBandUpper), val(sn.MAEAlarmLimit)
+		pt.Title = leadTitle(h, slices.Contains(dec, h), st, loc, now)
+		if st.State != scoring.StateWithin {
+			groups[st.State] = append(groups[st.State], h)
+		}
+	}
+	for _, s := range []scoring.State{scoring.StateDegraded, scoring.StateImproved, scoring.StateInsufficientData, scoring.StateInsufficientBaseline} {
+		if len(groups[s]) > 0 {
+			p.Drifted = append(p.Drifted, leadGroup{State: viewState(s), Leads: compactLeads(groups[s])})
+		}
+	}
+	return pts
+}
+
+// expectedPoints returns the lead chart's points without drift states: the
+// active baseline's expectation for a full window (when active > 0) and,
+// when the model has forecasts, the live window MAE.
+func (h *handler) expectedPoints(ctx context.Context, key, model string, horizon, active int, forecasts bool) ([]leadPoint, error) {
+	pts := emptyPoints(horizon)
+	if active > 0 {
+		_, views, _, err := h.ev.BaselineView(ctx, key, model, 0, windowN)
+		if err != nil {
+			return nil, err
+		}
+		for _, v := range views {
+			if v.Lead >= 1 && v.Lead <= horizon && v.Usable {
+				pt := &pts[v.Lead-1]
+				pt.Expected, pt.Lower, pt.Upper, pt.Alarm = v.MAE.Expected, v.MAE.Lower, v.MAE.Upper, v.MAE.AlarmUpper
+			}
+		}
+	}
+	if forecasts {
+		acc, err := h.st.Accuracy(ctx, key, model, store.Selection{Window: windowN}, math.NaN())
+		if err != nil && !errors.Is(err, store.ErrNotFound) {
+			return nil, err
+		}
+		for _, l := range acc.Table.Leads {
+			if l.Lead >= 1 && l.Lead <= horizon {
+				pts[l.Lead-1].MAE = l.MAE
+			}
+		}
+	}
+	return pts, nil
+}
+
+// chooseLead picks the lead the origin and pairs charts show — the one
+// asked for in q, else defaultLead's — and fills the lead menu and table.
+// It returns false when q asks for a lead that does not exist.
+func (p *seriesPage) chooseLead(q url.Values, horizon int, byLead map[int]store.DriftStatus, dec []int, allDecision bool, loc *time.Location, now time.Time) bool {
+	valid := true
+	p.Lead, p.LeadNote = defaultLead(byLead, dec)
+	if s := q.Get("lead"); s != "" {
+		l, err := strconv.Atoi(s)
+		if err != nil || l < 1 || l > horizon {
+			p.LeadError = fmt.Sprintf("Lead %q is not one of 1-%d; showing lead %d instead.", s, horizon, p.Lead)
+			valid = false
+		} else {
+			p.Lead, p.LeadNote = l, ""
+		}
+	}
+	for h := 1; h <= horizon; h++ {
+		o := leadOption{Lead: h, Label: strconv.Itoa(h), Selected: h == p.Lead}
+		if st, ok := byLead[h]; ok && st.State != scoring.StateWithin {
+			o.Label += " (" + viewState(st.State).Label + ")"
+		}
+		if slices.Contains(dec, h) && !allDecision {
+			o.Label += " · decision"
+		}
+		p.LeadOptions = append(p.LeadOptions, o)
+	}
+	for h := 1; h <= horizon; h++ {
+		p.LeadRows = append(p.LeadRows, leadRowOf(h, byLead, slices.Contains(dec, h) && !allDecision, h == p.Lead, p.Series, p.Model, q, loc, now))
+	}
+	return valid
 }
 
 // defaultLead picks the lead the origin chart shows when none is asked

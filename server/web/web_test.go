@@ -279,7 +279,7 @@ func TestPages(t *testing.T) {
 		_, body = f.get(t, seriesPath(driftKey, driftModel))
 		i := strings.Index(body, `<h2 id="series-state">`)
 		card := body[i : i+strings.Index(body[i:], "</section>")]
-		for _, want := range []string{sinceText(s0, time.UTC), "<dt>entered</dt><dd>on " + string(metricName(s0.Snapshot.EnteredMetric)) + ": ", "<dt>noticed at</dt>"} {
+		for _, want := range []string{sinceText(s0, time.UTC), "<dt>entered</dt><dd>on " + metricName(s0.Snapshot.EnteredMetric) + ": ", "<dt>noticed at</dt>"} {
 			if !strings.Contains(card, want) {
 				t.Errorf("series state card lacks %q: %s", want, card)
 			}

@@ -151,6 +151,7 @@ func Store(t testing.TB) *store.Store {
 
 // Logger sends slog output to t.Log.
 func Logger(t testing.TB) *slog.Logger {
+	t.Helper()
 	return slog.New(slog.NewTextHandler(tlogWriter{t}, &slog.HandlerOptions{Level: slog.LevelDebug}))
 }
 

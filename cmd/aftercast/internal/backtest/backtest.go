@@ -188,7 +188,7 @@ func eachRow(rd *records.Reader, file string, parse func() error) error {
 	bad := &BadRows{File: file}
 	for {
 		err := rd.Next()
-		if err == io.EOF {
+		if errors.Is(err, io.EOF) {
 			break
 		}
 		if err != nil && !errors.Is(err, records.ErrRow) {

@@ -184,7 +184,7 @@ func collect(t *testing.T, next func() (*aftercastv1.ImportBaselineRequest, erro
 	var out []*aftercastv1.ImportBaselineRequest
 	for {
 		m, err := next()
-		if err == io.EOF {
+		if errors.Is(err, io.EOF) {
 			return out
 		}
 		if err != nil {

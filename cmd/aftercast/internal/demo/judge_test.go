@@ -210,6 +210,7 @@ var survey = flag.Int("survey", 0, "judge this many seeds offline and report whi
 //
 //	go test ./cmd/aftercast/internal/demo -run TestSeedSurvey -v -survey 20
 func TestSeedSurvey(t *testing.T) {
+	t.Parallel()
 	if *survey == 0 {
 		t.Skip("run with -survey N")
 	}

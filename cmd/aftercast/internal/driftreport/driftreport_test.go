@@ -116,7 +116,7 @@ var (
 // state and a reason.
 func testDrift() *aftercastv1.SeriesModelDrift {
 	full := func(lead int32, st aftercastv1.DriftState) *aftercastv1.DriftStatus {
-		return &aftercastv1.DriftStatus{Lead: i32(lead), State: st, StateSinceTime: timestamppb.New(noticed), NoticedTime: timestamppb.New(noticed),
+		return &aftercastv1.DriftStatus{Lead: i32(lead), State: st, NoticedTime: timestamppb.New(noticed),
 			OnsetOriginTime: timestamppb.New(onset.Add(-time.Duration(lead) * time.Hour)), OriginsSinceOnset: 12 + lead,
 			LastOriginTime: timestamppb.New(t0.Add(-time.Hour)),
 			WindowN:        30, Mae: f(2.5), MaeExpected: f(2), MaeBandLower: f(1.5), MaeBandUpper: f(2.4), MaeAlarmLimit: f(2.45),

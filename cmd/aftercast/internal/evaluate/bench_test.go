@@ -27,7 +27,9 @@ func benchFile(b *testing.B, rows int) string {
 		b.Fatal(err)
 	}
 	w := bufio.NewWriterSize(f, 1<<20)
-	w.WriteString(header)
+	if _, err := w.WriteString(header); err != nil {
+		b.Fatal(err)
+	}
 	r := rand.New(rand.NewPCG(1, 2))
 	t0 := time.Date(2025, 1, 1, 0, 0, 0, 0, time.UTC)
 	const series, leads = 8, 48
@@ -49,7 +51,9 @@ func benchFile(b *testing.B, rows int) string {
 				buf = append(buf, ',')
 				buf = strconv.AppendFloat(buf, y, 'f', 3, 64)
 				buf = append(buf, '\n')
-				w.Write(buf)
+				if _, err := w.Write(buf); err != nil {
+					b.Fatal(err)
+				}
 			}
 		}
 	}

@@ -194,6 +194,19 @@ func (rr *rowReader) times() (groupKey, time.Time, time.Time, error) {
 	return k, o, t, err
 }
 
+// pair parses the current row: its group key, origin, target, forecast
+// and actual.
+func (rr *rowReader) pair() (k groupKey, o, t time.Time, fc, y float64, err error) {
+	if k, o, t, err = rr.times(); err != nil {
+		return k, o, t, 0, 0, err
+	}
+	if fc, err = rr.Float(rr.forecast); err != nil {
+		return k, o, t, 0, 0, err
+	}
+	y, err = rr.Float(rr.actual)
+	return k, o, t, fc, y, err
+}
+
 // inferSteps reads only the times of every row to infer each group's step.
 func (e *evaluation) inferSteps(path string) error {
 	f, rd, err := open(path, colSeries, colOrigin, colTarget)
@@ -205,7 +218,7 @@ func (e *evaluation) inferSteps(path string) error {
 	rr := newRowReader(rd)
 	for {
 		err := rd.Next()
-		if err == io.EOF {
+		if errors.Is(err, io.EOF) {
 			break
 		}
 		if err != nil && !errors.Is(err, records.ErrRow) {
@@ -281,7 +294,7 @@ func (e *evaluation) pass(path string, holdAll bool) error {
 	var last *group
 	for {
 		err := rd.Next()
-		if err == io.EOF {
+		if errors.Is(err, io.EOF) {
 			break
 		}
 		if err != nil && !errors.Is(err, records.ErrRow) {
@@ -289,15 +302,9 @@ func (e *evaluation) pass(path string, holdAll bool) error {
 		}
 		var k groupKey
 		var o, t time.Time
-		if err == nil { // else a row refused on its own (records.ErrRow)
-			k, o, t, err = rr.times()
-		}
 		var fc, y float64
-		if err == nil {
-			fc, err = rr.Float(rr.forecast)
-		}
-		if err == nil {
-			y, err = rr.Float(rr.actual)
+		if err == nil { // else a row refused on its own (records.ErrRow)
+			k, o, t, fc, y, err = rr.pair()
 		}
 		if err != nil {
 			if err := e.fail(err); err != nil {
@@ -305,19 +312,8 @@ func (e *evaluation) pass(path string, holdAll bool) error {
 			}
 			continue
 		}
-		g := last
-		if g == nil || g.key != k {
-			if g = e.groups[k]; g == nil {
-				k = k.clone()
-				g = &group{key: k, step: e.stepFor(k), firstOrigin: o, cur: o}
-				if holdAll {
-					g.all = make(map[[2]int64]pairValues)
-				}
-				e.groups[k] = g
-			}
-			last = g
-		}
-		if err := e.score(rd, g, o, t, fc, y, holdAll); err != nil {
+		last = e.groupFor(last, k, o, holdAll)
+		if err := e.score(rd, last, o, t, fc, y, holdAll); err != nil {
 			if errors.Is(err, errUnsorted) {
 				return err
 			}
@@ -330,6 +326,24 @@ func (e *evaluation) pass(path string, holdAll bool) error {
 		return e.joined()
 	}
 	return nil
+}
+
+// groupFor returns the group of key k, made with first origin o when it is
+// new; last, the previous row's group, is the answer for most rows.
+func (e *evaluation) groupFor(last *group, k groupKey, o time.Time, holdAll bool) *group {
+	if last != nil && last.key == k {
+		return last
+	}
+	g := e.groups[k]
+	if g == nil {
+		k = k.clone()
+		g = &group{key: k, step: e.stepFor(k), firstOrigin: o, cur: o}
+		if holdAll {
+			g.all = make(map[[2]int64]pairValues)
+		}
+		e.groups[k] = g
+	}
+	return g
 }
 
 func (e *evaluation) score(rd *records.Reader, g *group, o, t time.Time, fc, y float64, holdAll bool) error {

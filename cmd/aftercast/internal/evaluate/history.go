@@ -37,7 +37,7 @@ func readHistory(path string) (map[string]history, error) {
 	cSeries, cTime, cValue := rd.Column("series"), rd.Column("time"), rd.Column("value")
 	for len(errs) < maxErrors {
 		err := rd.Next()
-		if err == io.EOF {
+		if errors.Is(err, io.EOF) {
 			break
 		}
 		if err != nil && !errors.Is(err, records.ErrRow) {

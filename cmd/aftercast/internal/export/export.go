@@ -92,7 +92,9 @@ func (p *Pairs) Write(pr *aftercastv1.Pair) error {
 	if p.n == 1 {
 		sep = "\n  "
 	}
-	p.json.WriteString(sep)
+	if _, err := p.json.WriteString(sep); err != nil {
+		return err
+	}
 	_, err = p.json.Write(b)
 	return err
 }
@@ -114,7 +116,9 @@ func (p *Pairs) Close() error {
 		if p.n > 0 {
 			end = "\n]}\n"
 		}
-		p.json.WriteString(end)
+		if _, err := p.json.WriteString(end); err != nil {
+			return err
+		}
 	}
 	return p.Flush()
 }

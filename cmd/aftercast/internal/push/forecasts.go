@@ -152,7 +152,7 @@ func (f *Forecasts) read() error {
 	rd := f.rd
 	err := rd.Next()
 	switch {
-	case err == io.EOF:
+	case errors.Is(err, io.EOF):
 		f.eof = true
 		return nil
 	case err != nil && !errors.Is(err, records.ErrRow):

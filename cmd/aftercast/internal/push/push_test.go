@@ -49,7 +49,7 @@ func readAll(t *testing.T, src *Forecasts) []vec {
 	var out []vec
 	for {
 		fc, err := src.Next()
-		if err == io.EOF {
+		if errors.Is(err, io.EOF) {
 			return out
 		}
 		if err != nil {
@@ -336,7 +336,7 @@ func TestActuals(t *testing.T) {
 	var got []string
 	for {
 		a, err := src.Next()
-		if err == io.EOF {
+		if errors.Is(err, io.EOF) {
 			break
 		}
 		if err != nil {
@@ -428,7 +428,7 @@ func TestActualsRefuseStrictly(t *testing.T) {
 			var sent []float64
 			for {
 				a, err := src.Next()
-				if err == io.EOF {
+				if errors.Is(err, io.EOF) {
 					break
 				}
 				if err != nil {
@@ -454,7 +454,7 @@ func TestReadingStopsOnBrokenQuoting(t *testing.T) {
 	if _, err := src.Next(); err != nil {
 		t.Fatal(err)
 	}
-	if _, err := src.Next(); err == nil || err == io.EOF || !strings.Contains(err.Error(), "a.csv:3: quoted field is not closed") {
+	if _, err := src.Next(); err == nil || errors.Is(err, io.EOF) || !strings.Contains(err.Error(), "a.csv:3: quoted field is not closed") {
 		t.Errorf("Next: %v, want the unclosed quote at a.csv:3", err)
 	}
 }

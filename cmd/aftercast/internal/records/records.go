@@ -79,7 +79,7 @@ const readBuffer = 256 << 10
 func NewReader(r io.Reader, file string, required ...string) (*Reader, error) {
 	rd := &Reader{file: file, sp: splitter{r: r}}
 	head, line, err := rd.sp.next()
-	if err == io.EOF {
+	if errors.Is(err, io.EOF) {
 		return nil, &LineError{file, 1, errors.New("empty file: want a header line")}
 	}
 	if err != nil {
@@ -122,7 +122,7 @@ func (c Column) Present() bool { return c.idx >= 0 }
 // called again for the rows after it. Any other error ends the file.
 func (r *Reader) Next() error {
 	rec, line, err := r.sp.next()
-	if err == io.EOF {
+	if errors.Is(err, io.EOF) {
 		return io.EOF
 	}
 	r.rec, r.line = nil, line

@@ -18,7 +18,7 @@ func TestReaderNamesLines(t *testing.T) {
 	}
 	var lines []int
 	for {
-		if err := rd.Next(); err == io.EOF {
+		if err := rd.Next(); errors.Is(err, io.EOF) {
 			break
 		} else if err != nil {
 			t.Fatal(err)
@@ -79,7 +79,7 @@ func FuzzReader(f *testing.F) {
 		last := 1
 		for range 10000 {
 			err := rd.Next()
-			if err == io.EOF {
+			if errors.Is(err, io.EOF) {
 				return
 			}
 			if err != nil {

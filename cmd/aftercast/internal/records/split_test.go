@@ -42,7 +42,7 @@ func FuzzSplitterMatchesEncodingCSV(f *testing.F) {
 		var gotErr error
 		for {
 			rec, _, err := sp.next()
-			if err == io.EOF {
+			if errors.Is(err, io.EOF) {
 				break
 			}
 			if err != nil {
@@ -94,7 +94,7 @@ func matchFieldCounts(t *testing.T, in string) {
 		rec, cerr := cr.Read()
 		err := rd.Next()
 		if cerr == io.EOF {
-			if err != io.EOF {
+			if !errors.Is(err, io.EOF) {
 				t.Fatalf("input %q: encoding/csv ends, the reader: %v", in, err)
 			}
 			return

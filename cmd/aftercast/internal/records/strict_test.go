@@ -147,7 +147,7 @@ func readAllRows(t *testing.T, in string, read func(rd *Reader) error) (rows []i
 	}
 	for {
 		err := rd.Next()
-		if err == io.EOF {
+		if errors.Is(err, io.EOF) {
 			return rows, refused
 		}
 		if err == nil && read != nil {

@@ -62,7 +62,7 @@ func Events(ctx context.Context, c aftercastv1.DriftServiceClient, req *aftercas
 		got, err, herr := attempt(ctx, c, req, handle)
 		switch {
 		case ctx.Err() != nil:
-			return nil
+			return nil //nolint:nilerr // documented: following ends without error when ctx is done
 		case herr != nil:
 			return herr
 		case !Transient(err):
@@ -101,7 +101,7 @@ func attempt(ctx context.Context, c aftercastv1.DriftServiceClient, req *afterca
 	}
 	for {
 		resp, err := stream.Recv()
-		if err == io.EOF {
+		if errors.Is(err, io.EOF) {
 			return got, ErrEnded, nil
 		}
 		if err != nil {

@@ -68,14 +68,21 @@ func (f *fakeDrift) WatchDriftEvents(req *aftercastv1.WatchDriftEventsRequest, s
 
 func serve(t *testing.T, f *fakeDrift) aftercastv1.DriftServiceClient {
 	t.Helper()
-	lis, err := net.Listen("tcp", "127.0.0.1:0")
+	var lc net.ListenConfig
+	lis, err := lc.Listen(t.Context(), "tcp", "127.0.0.1:0")
 	if err != nil {
 		t.Fatal(err)
 	}
 	s := grpc.NewServer()
 	aftercastv1.RegisterDriftServiceServer(s, f)
-	go s.Serve(lis)
-	t.Cleanup(s.Stop)
+	served := make(chan error, 1)
+	go func() { served <- s.Serve(lis) }()
+	t.Cleanup(func() {
+		s.Stop()
+		if err := <-served; err != nil {
+			t.Errorf("serving: %v", err)
+		}
+	})
 	conn, err := grpc.NewClient(lis.Addr().String(), grpc.WithTransportCredentials(insecure.NewCredentials()))
 	if err != nil {
 		t.Fatal(err)
