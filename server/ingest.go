@@ -1,12 +1,14 @@
 package server
 
 import (
+	"cmp"
 	"context"
 	"crypto/sha256"
 	"errors"
 	"fmt"
 	"io"
 	"math"
+	"slices"
 	"time"
 
 	"google.golang.org/protobuf/proto"
@@ -26,8 +28,9 @@ type forecastService struct {
 }
 
 // pointPaths names the fields of a vector's points as sent: per lead, the
-// path of its value ("dense.values[3]", "sparse.points[2].value").
-type pointPaths map[int]string
+// path of its value and of its lead ("dense.values[3]" for both;
+// "sparse.points[2].value" and "sparse.points[2].lead").
+type pointPaths map[int][2]string
 
 // toVectors converts a batch. Values the store cannot represent (NaN in a
 // dense list, sparse leads out of range or repeated) are rejected here, with
@@ -38,71 +41,103 @@ type pointPaths map[int]string
 // are laid out per lead as the store keeps them.
 func (a *api) toVectors(fs []*aftercastv1.Forecast, first int) ([]store.ForecastVector, []pointPaths, store.Ack) {
 	var ack store.Ack
-	maxH := a.store.Limits().MaxHorizon
 	out := make([]store.ForecastVector, len(fs))
 	paths := make([]pointPaths, len(fs))
-	reject := func(i, lead int, field, reason string) {
-		ack.Rejected++
-		ack.Rejections = append(ack.Rejections, store.Rejection{Index: first + i, Lead: lead, Field: field, Reason: reason})
-	}
 	for i, f := range fs {
 		v := store.ForecastVector{Series: f.GetSeries(), Model: f.GetModel()}
 		v.Origin, v.OriginInvalid = wireTime(f.GetOriginTime())
 		v.IssuedAt, v.IssueInvalid = wireTime(f.GetIssueTime())
-		paths[i] = pointPaths{}
-		switch {
-		case f.GetDense() != nil:
-			v.Values = append([]float64(nil), f.GetDense().GetValues()...)
-			for k, x := range v.Values {
-				paths[i][k+1] = fmt.Sprintf("dense.values[%d]", k)
-				if math.IsNaN(x) {
-					reject(i, k+1, paths[i][k+1], "NaN is not a forecast: leave the lead out with sparse values instead")
-				}
-			}
-		case f.GetSparse() != nil:
-			for k, p := range f.GetSparse().GetPoints() {
-				h := int(p.GetLead())
-				switch {
-				case h < 1 || h > maxH:
-					reject(i, h, fmt.Sprintf("sparse.points[%d].lead", k), fmt.Sprintf("lead %d is outside 1..%d", h, maxH))
-					continue
-				case math.IsNaN(p.GetValue()):
-					reject(i, h, fmt.Sprintf("sparse.points[%d].value", k), "NaN is not a forecast")
-					continue
-				}
-				for len(v.Values) < h {
-					v.Values = append(v.Values, math.NaN())
-				}
-				if !math.IsNaN(v.Values[h-1]) {
-					reject(i, h, fmt.Sprintf("sparse.points[%d].lead", k), fmt.Sprintf("lead %d appears twice in one vector", h))
-					continue
-				}
-				v.Values[h-1], paths[i][h] = p.GetValue(), fmt.Sprintf("sparse.points[%d].value", k)
-			}
+		reject := func(lead int, field, reason string) {
+			v.Refused++
+			ack.Rejected++
+			ack.Rejections = append(ack.Rejections, store.Rejection{Index: first + i, Lead: lead, Field: field, Reason: reason})
 		}
-		for _, q := range f.GetQuantiles() {
-			v.Quantiles = append(v.Quantiles, store.Quantile{Level: q.GetLevel(), Values: perLead(f, q.GetValues(), len(v.Values))})
+		if f.GetDense() != nil {
+			v.Values, paths[i] = denseValues(f.GetDense().GetValues(), reject)
+		} else {
+			v.Values, paths[i] = a.sparseValues(f.GetSparse().GetPoints(), reject)
 		}
+		v.Quantiles, v.Problem = quantilesPerLead(f, len(v.Values))
 		out[i] = v
 	}
 	return out, paths, ack
 }
 
-// perLead lays quantile values, sent in the order of a sparse vector's
-// points, out per lead (NaN where a lead has none); dense values and
-// values that do not match the points are passed on for the store to judge.
-func perLead(f *aftercastv1.Forecast, vals []float64, leads int) []float64 {
-	points := f.GetSparse().GetPoints()
-	if f.GetSparse() == nil || len(vals) != len(points) {
-		return vals
+// denseValues takes a dense list as it is, rejecting NaN (a lead left out
+// is sent sparse).
+func denseValues(vals []float64, reject func(lead int, field, reason string)) ([]float64, pointPaths) {
+	paths := pointPaths{}
+	out := append([]float64(nil), vals...)
+	for k, x := range out {
+		p := fmt.Sprintf("dense.values[%d]", k)
+		paths[k+1] = [2]string{p, p}
+		if math.IsNaN(x) {
+			reject(k+1, p, "NaN is not a forecast: leave the lead out with sparse values instead")
+		}
 	}
+	return out, paths
+}
+
+// sparseValues lays sparse points out per lead (NaN where none), rejecting
+// leads out of range or repeated — a repeat of a lead refused for its
+// value too — and NaN values.
+func (a *api) sparseValues(points []*aftercastv1.LeadValue, reject func(lead int, field, reason string)) ([]float64, pointPaths) {
+	maxH := a.store.Limits().MaxHorizon
+	paths := pointPaths{}
+	seen := map[int]bool{}
+	var out []float64
+	for k, p := range points {
+		h := int(p.GetLead())
+		lead, value := fmt.Sprintf("sparse.points[%d].lead", k), fmt.Sprintf("sparse.points[%d].value", k)
+		switch {
+		case h < 1 || h > maxH:
+			reject(h, lead, fmt.Sprintf("lead %d is outside 1..%d", h, maxH))
+		case seen[h]:
+			reject(h, lead, fmt.Sprintf("lead %d appears twice in one vector", h))
+		case math.IsNaN(p.GetValue()):
+			seen[h] = true
+			reject(h, value, "NaN is not a forecast")
+		default:
+			seen[h] = true
+			for len(out) < h {
+				out = append(out, math.NaN())
+			}
+			out[h-1], paths[h] = p.GetValue(), [2]string{value, lead}
+		}
+	}
+	return out, paths
+}
+
+// quantilesPerLead lays each quantile's values out per lead as the store
+// keeps them. A sparse vector's are sent in the order of its points, one
+// per point as sent: any other count rejects the vector (the store judges
+// dense ones). A repeated lead takes the first point's.
+func quantilesPerLead(f *aftercastv1.Forecast, leads int) ([]store.Quantile, *store.FieldViolation) {
+	points := f.GetSparse().GetPoints()
+	var out []store.Quantile
+	for k, q := range f.GetQuantiles() {
+		vals := q.GetValues()
+		if f.GetSparse() != nil {
+			if len(vals) != len(points) {
+				return nil, &store.FieldViolation{Field: fmt.Sprintf("quantiles[%d].values", k),
+					Reason: fmt.Sprintf("%d values for %d points", len(vals), len(points))}
+			}
+			vals = sparseQuantile(points, vals, leads)
+		}
+		out = append(out, store.Quantile{Level: q.GetLevel(), Values: vals})
+	}
+	return out, nil
+}
+
+func sparseQuantile(points []*aftercastv1.LeadValue, vals []float64, leads int) []float64 {
 	out := make([]float64, leads)
+	set := make([]bool, leads)
 	for j := range out {
 		out[j] = math.NaN()
 	}
 	for j, x := range vals {
-		if h := int(points[j].GetLead()); h >= 1 && h <= leads {
-			out[h-1] = x
+		if h := int(points[j].GetLead()); h >= 1 && h <= leads && !set[h-1] {
+			out[h-1], set[h-1] = x, true
 		}
 	}
 	return out
@@ -120,13 +155,19 @@ func (a *api) writeForecasts(ctx context.Context, fs []*aftercastv1.Forecast, fi
 		ack := pre
 		ack.Rejections = append([]store.Rejection(nil), pre.Rejections...)
 		for _, r := range stored.Rejections {
-			if p, ok := paths[r.Index-first][r.Lead]; ok && r.Field == "values" && !r.Whole {
-				r.Field = p
+			if p, ok := paths[r.Index-first][r.Lead]; ok && !r.Whole {
+				switch r.Field {
+				case "values":
+					r.Field = p[0]
+				case "lead":
+					r.Field = p[1]
+				}
 			}
 			ack.Rejections = append(ack.Rejections, r)
 		}
 		stored.Rejections = nil
 		ack.Add(stored)
+		slices.SortStableFunc(ack.Rejections, func(x, y store.Rejection) int { return cmp.Compare(x.Index, y.Index) })
 		return capped(ack)
 	}
 	once := store.Once{ID: requestID, Digest: digest(requestID, "forecasts", first, fs), Finish: finish}

@@ -97,7 +97,22 @@ func storedForecastToProto(f store.StoredForecast) *aftercastv1.StoredForecast {
 		}
 		p.Points = append(p.Points, pt)
 	}
+	for k, level := range f.QuantileLevels {
+		q := &aftercastv1.QuantileValues{Level: level}
+		for _, pt := range p.Points {
+			q.Values = append(q.Values, at(f.QuantileValues[k], int(pt.Lead)-1))
+		}
+		p.Quantiles = append(p.Quantiles, q)
+	}
 	return p
+}
+
+// at is xs[i], NaN past its end.
+func at(xs []float64, i int) float64 {
+	if i < len(xs) {
+		return xs[i]
+	}
+	return math.NaN()
 }
 
 func (s *actualService) ListActuals(ctx context.Context, req *aftercastv1.ListActualsRequest) (*aftercastv1.ListActualsResponse, error) {

@@ -1,6 +1,7 @@
 package server_test
 
 import (
+	"math"
 	"testing"
 	"time"
 
@@ -87,6 +88,28 @@ func TestReadBackWhatWasStored(t *testing.T) {
 		t.Errorf("a token of another request: %v, want InvalidArgument", err)
 	}
 
+	// Quantiles come back per point, in the points' order; a lead the
+	// quantiles' push did not cover reads NaN.
+	q0 := dense("rb", "q", 0, 1, 2)
+	q0.Quantiles = []*aftercastv1.QuantileValues{{Level: 0.1, Values: []float64{0.5, 1.5}}, {Level: 0.9, Values: []float64{1.5, 2.5}}}
+	q1 := &aftercastv1.Forecast{Series: "rb", Model: "q", OriginTime: ts(0), Values: &aftercastv1.Forecast_Sparse{
+		Sparse: &aftercastv1.SparseValues{Points: []*aftercastv1.LeadValue{{Lead: 3, Value: 3}}}}}
+	push(q0, q1)
+	qr, err := c.forecast.ListForecasts(ctx, &aftercastv1.ListForecastsRequest{Series: "rb", Model: "q"})
+	if err != nil || len(qr.GetForecasts()) != 1 {
+		t.Fatalf("quantiles read back: %v %v", qr, err)
+	}
+	gotQ := qr.GetForecasts()[0].GetQuantiles()
+	if len(gotQ) != 2 || gotQ[0].GetLevel() != 0.1 || gotQ[1].GetLevel() != 0.9 {
+		t.Fatalf("quantiles read back as %v", gotQ)
+	}
+	for k, want := range [][]float64{{0.5, 1.5, math.NaN()}, {1.5, 2.5, math.NaN()}} {
+		got := gotQ[k].GetValues()
+		if len(got) != 3 || got[0] != want[0] || got[1] != want[1] || !math.IsNaN(got[2]) {
+			t.Errorf("quantile %v read back as %v, want %v", gotQ[k].GetLevel(), got, want)
+		}
+	}
+
 	ar, err := c.actual.ListActuals(ctx, &aftercastv1.ListActualsRequest{Series: "rb"})
 	if err != nil || len(ar.GetActuals()) != 2 {
 		t.Fatalf("actuals %v %v", ar, err)
@@ -96,7 +119,7 @@ func TestReadBackWhatWasStored(t *testing.T) {
 		t.Errorf("revised actual read back as %v", a)
 	}
 	mr, err := c.series.ListModels(ctx, &aftercastv1.ListModelsRequest{Series: "rb"})
-	if err != nil || len(mr.GetModels()) != 2 || mr.GetModels()[0].GetModel() != "m" || !mr.GetModels()[1].GetLastOriginTime().AsTime().Equal(t0.Add(2*h)) {
+	if err != nil || len(mr.GetModels()) != 3 || mr.GetModels()[0].GetModel() != "m" || !mr.GetModels()[1].GetLastOriginTime().AsTime().Equal(t0.Add(2*h)) {
 		t.Errorf("models %v %v", mr, err)
 	}
 	if _, err := c.series.ListModels(ctx, &aftercastv1.ListModelsRequest{Series: "nope"}); status.Code(err) != codes.NotFound {

@@ -215,14 +215,15 @@ func (s *Server) Start(ctx context.Context) (err error) {
 	// from the start.
 	s.bg.Go(func() { s.drift.Run(bgCtx) })
 
-	if s.grpcLis, err = net.Listen("tcp", s.cfg.Listen); err != nil {
+	var lc net.ListenConfig
+	if s.grpcLis, err = lc.Listen(ctx, "tcp", s.cfg.Listen); err != nil {
 		return fmt.Errorf("gRPC listener: %w", err)
 	}
 	s.grpc = s.newGRPC()
 	go func() { s.serveErr <- s.grpc.Serve(s.grpcLis) }()
 
 	if s.cfg.MetricsListen != "-" {
-		if s.httpLis, err = net.Listen("tcp", s.cfg.MetricsListen); err != nil {
+		if s.httpLis, err = lc.Listen(ctx, "tcp", s.cfg.MetricsListen); err != nil {
 			return fmt.Errorf("metrics listener: %w", err)
 		}
 		s.http = &http.Server{Handler: s.httpHandler(), ReadHeaderTimeout: 10 * time.Second}
@@ -279,11 +280,13 @@ func (s *Server) newGRPC() *grpc.Server {
 			s.metrics.grpc.UnaryServerInterceptor(),
 			logging.UnaryServerInterceptor(slogAdapter(s.log), logOpts...),
 			recovery.UnaryServerInterceptor(recoverOpt),
+			unaryNames,
 		),
 		grpc.ChainStreamInterceptor(
 			s.metrics.grpc.StreamServerInterceptor(),
 			logging.StreamServerInterceptor(slogAdapter(s.log), logOpts...),
 			recovery.StreamServerInterceptor(recoverOpt),
+			streamNames,
 		),
 	)
 	api := &api{store: s.store, drift: s.drift, log: s.log, m: s.metrics, stopping: make(chan struct{}), dbLost: s.ready.lost}
@@ -308,7 +311,7 @@ func (s *Server) newGRPC() *grpc.Server {
 // slogAdapter sends go-grpc-middleware's call logs to slog.
 func slogAdapter(l *slog.Logger) logging.Logger {
 	return logging.LoggerFunc(func(ctx context.Context, lvl logging.Level, msg string, fields ...any) {
-		l.Log(ctx, slog.Level(lvl), msg, fields...)
+		l.Log(ctx, slog.Level(lvl), msg, fields...) //nolint:sloglint // passes on the middleware's own constant messages
 	})
 }
 

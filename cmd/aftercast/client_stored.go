@@ -7,6 +7,7 @@ import (
 	"flag"
 	"fmt"
 	"io"
+	"math"
 	"strconv"
 	"text/tabwriter"
 	"time"
@@ -309,6 +310,14 @@ type storedPointJSON struct {
 	Forecast    float64  `json:"forecast"`
 	Late        bool     `json:"late"`
 	LateReissue *float64 `json:"late_reissue"` // null: none
+	// The quantile forecasts stored for this lead, by level; absent when
+	// the vector has none.
+	Quantiles []storedQuantileJSON `json:"quantiles,omitempty"`
+}
+
+type storedQuantileJSON struct {
+	Level float64 `json:"level"`
+	Value float64 `json:"value"`
 }
 
 // storedActualJSON is one actual in `stored actuals --format json`.
@@ -345,9 +354,16 @@ func (s *storedWriter) forecast(series, model string, step scoring.Step, f *afte
 	}
 	o := storedForecastJSON{Series: series, Model: model, OriginTime: storedStamp(f.GetOriginTime()), IssuedAt: issued,
 		FirstReceivedAt: first, ReceivedAt: last, Points: make([]storedPointJSON, 0, len(f.GetPoints()))}
-	for _, p := range f.GetPoints() {
-		o.Points = append(o.Points, storedPointJSON{Lead: p.GetLead(), TargetTime: target(p), Forecast: p.GetValue(),
-			Late: p.GetLate(), LateReissue: p.LateReissue})
+	for k, p := range f.GetPoints() {
+		pt := storedPointJSON{Lead: p.GetLead(), TargetTime: target(p), Forecast: p.GetValue(), Late: p.GetLate(), LateReissue: p.LateReissue}
+		for _, q := range f.GetQuantiles() {
+			// The API sends a value per point, NaN where the quantiles'
+			// push did not cover the lead; JSON has no NaN, so it is left out.
+			if k < len(q.GetValues()) && !math.IsNaN(q.GetValues()[k]) {
+				pt.Quantiles = append(pt.Quantiles, storedQuantileJSON{q.GetLevel(), q.GetValues()[k]})
+			}
+		}
+		o.Points = append(o.Points, pt)
 	}
 	return s.object(o)
 }
@@ -374,7 +390,9 @@ func (s *storedWriter) object(v any) error {
 		sep = "\n  "
 	}
 	s.n++
-	s.json.WriteString(sep)
+	if _, err := s.json.WriteString(sep); err != nil {
+		return err
+	}
 	_, err = s.json.Write(b)
 	return err
 }
@@ -396,7 +414,9 @@ func (s *storedWriter) close() error {
 		if s.n > 0 {
 			end = "\n]}\n"
 		}
-		s.json.WriteString(end)
+		if _, err := s.json.WriteString(end); err != nil {
+			return err
+		}
 	}
 	return s.flush()
 }

@@ -20,6 +20,8 @@ import (
 	"github.com/aftercast/aftercast/cmd/aftercast/internal/push"
 	"github.com/aftercast/aftercast/server"
 	"github.com/aftercast/aftercast/server/store/storetest"
+	"google.golang.org/grpc"
+	"google.golang.org/grpc/credentials/insecure"
 	"google.golang.org/protobuf/proto"
 	"google.golang.org/protobuf/types/known/timestamppb"
 )
@@ -524,6 +526,45 @@ func TestStoredForecastPageFitsAMessage(t *testing.T) {
 		}
 		if horizon <= 48 && size != maxForecastPage {
 			t.Errorf("horizon %d: %d vectors a page, want %d", horizon, size, maxForecastPage)
+		}
+	}
+}
+
+// Quantiles pushed through the API come back in JSON per point; a lead
+// the quantiles' push did not cover has none.
+func TestStoredQuantiles(t *testing.T) {
+	t.Parallel()
+	addr := storedServer(t)
+	storedCLI(t, "series", "create", addr, "--step", "1h", "--horizon", "3", "rb/q")
+	conn, err := grpc.NewClient(strings.TrimPrefix(addr, "--addr="), grpc.WithTransportCredentials(insecure.NewCredentials()))
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer conn.Close()
+	origin := timestamppb.New(time.Date(2026, 1, 1, 0, 0, 0, 0, time.UTC))
+	fs := []*aftercastv1.Forecast{
+		{Series: "rb/q", Model: "m", OriginTime: origin, Values: &aftercastv1.Forecast_Dense{Dense: &aftercastv1.DenseValues{Values: []float64{1, 2}}},
+			Quantiles: []*aftercastv1.QuantileValues{{Level: 0.1, Values: []float64{0.5, 1.5}}, {Level: 0.9, Values: []float64{1.5, 2.5}}}},
+		{Series: "rb/q", Model: "m", OriginTime: origin, Values: &aftercastv1.Forecast_Sparse{
+			Sparse: &aftercastv1.SparseValues{Points: []*aftercastv1.LeadValue{{Lead: 3, Value: 3}}}}},
+	}
+	if _, err := aftercastv1.NewForecastServiceClient(conn).PushForecasts(t.Context(), &aftercastv1.PushForecastsRequest{Forecasts: fs}); err != nil {
+		t.Fatal(err)
+	}
+	out, _, err := stored("forecasts", addr, "--series", "rb/q", "--model", "m", "--format", "json")
+	if err != nil {
+		t.Fatal(err)
+	}
+	var fj struct {
+		Forecasts []storedForecastJSON `json:"forecasts"`
+	}
+	if err := json.Unmarshal([]byte(out), &fj); err != nil || len(fj.Forecasts) != 1 || len(fj.Forecasts[0].Points) != 3 {
+		t.Fatalf("stored forecasts --format json: %v\n%s", err, out)
+	}
+	want := [][]storedQuantileJSON{{{0.1, 0.5}, {0.9, 1.5}}, {{0.1, 1.5}, {0.9, 2.5}}, nil}
+	for i, p := range fj.Forecasts[0].Points {
+		if !slices.Equal(p.Quantiles, want[i]) {
+			t.Errorf("lead %d: quantiles %v, want %v", p.Lead, p.Quantiles, want[i])
 		}
 	}
 }

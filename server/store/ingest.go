@@ -27,6 +27,13 @@ type ForecastVector struct {
 	// timestamp whose nanoseconds are out of range, say): the vector is
 	// rejected with this reason rather than stored at a normalised time.
 	OriginInvalid, IssueInvalid string
+	// Set by a caller that converted the vector from another form:
+	// Refused counts the points it rejected already (so a vector left
+	// with none is not also "no forecast values"), and Problem, when set,
+	// rejects the whole vector (quantile values that do not match the
+	// points as sent, say).
+	Refused int
+	Problem *FieldViolation
 }
 
 // Quantile is a forecast quantile at one level for the same leads as the
@@ -48,8 +55,11 @@ type Actual struct {
 
 // Rejection says why one item, or one lead of it, was not stored.
 type Rejection struct {
-	Index  int // position of the item in the whole push, from 0
-	Lead   int // the lead of a rejected point; 0 when Whole
+	Index int // position of the item in the whole push, from 0
+	Lead  int // the lead of a rejected point; 0 when Whole
+	// Field is what is to blame: a whole vector's field, or for a point
+	// "values" (its value) or "lead" (the lead itself: beyond the horizon,
+	// a target out of range).
 	Field  string
 	Reason string
 	Whole  bool // the whole item (vector) was rejected
@@ -150,94 +160,17 @@ func (s *Store) writeForecasts(ctx context.Context, once Once, vs []ForecastVect
 	if err != nil {
 		return ack, err
 	}
-	reject := func(i, lead int, field, format string, args ...any) {
-		ack.Rejections = append(ack.Rejections, Rejection{firstIndex + i, lead, field, fmt.Sprintf(format, args...), lead == 0})
-	}
-	type item struct {
-		i  int
-		v  *ForecastVector
-		se *Series
-	}
-	var items []item
-	for i := range vs {
-		v := &vs[i]
-		se := series[v.Series]
-		n := countPoints(v.Values)
-		switch {
-		case se == nil:
-			reject(i, 0, "series", "unknown series %q: create it first", v.Series)
-		case !modelPattern.MatchString(v.Model):
-			reject(i, 0, "model", "want 1–200 characters of A-Z a-z 0-9 _ . : / -")
-		case v.OriginInvalid != "":
-			reject(i, 0, "origin_time", "%s", v.OriginInvalid)
-		case v.IssueInvalid != "":
-			reject(i, 0, "issue_time", "%s", v.IssueInvalid)
-		case gridProblem(se, v.Origin) != "":
-			reject(i, 0, "origin_time", "%s", gridProblem(se, v.Origin))
-		case !v.IssuedAt.IsZero() && timeProblem(v.IssuedAt) != "":
-			reject(i, 0, "issue_time", "%s", timeProblem(v.IssuedAt))
-		case len(v.Values) == 0:
-			reject(i, 0, "values", "no forecast values")
-		case n == 0:
-			// Every lead was rejected already (by the caller's conversion).
-			continue
-		case quantileProblem(v) != nil:
-			q := quantileProblem(v)
-			reject(i, 0, q.Field, "%s", q.Reason)
-		default:
-			// Leads beyond the horizon and infinite values are rejected one by one.
-			for h := 1; h <= len(v.Values); h++ {
-				x := v.Values[h-1]
-				switch {
-				case math.IsNaN(x):
-				case h > se.Horizon:
-					reject(i, h, "values", "lead %d is beyond the series horizon %d", h, se.Horizon)
-					v.Values[h-1] = math.NaN()
-					ack.Rejected++
-				case !se.step.Add(v.Origin, h).Before(MaxTime):
-					reject(i, h, "values", "the target of lead %d, %s, is at or after %s", h,
-						se.step.Add(v.Origin, h).UTC().Format(time.RFC3339), MaxTime.Format(time.RFC3339))
-					v.Values[h-1] = math.NaN()
-					ack.Rejected++
-				case math.IsInf(x, 0):
-					reject(i, h, "values", "not a finite number")
-					v.Values[h-1] = math.NaN()
-					ack.Rejected++
-				}
-			}
-			if countPoints(v.Values) > 0 {
-				items = append(items, item{i, v, se})
-			}
-			continue
-		}
-		// A vector rejected whole counts its points, and one when it had none.
-		ack.Rejected += max(n, 1)
-	}
+	items := checkForecasts(vs, series, firstIndex, &ack)
 	if len(items) == 0 {
 		return ack, nil
 	}
 	now := time.Now().UTC()
-	fkeys := items2keys(items, func(it item) (*Series, string, time.Time) { return it.se, it.v.Model, it.v.Origin })
-	spans := items2spans(items, func(it item) (*Series, time.Time, int) { return it.se, it.v.Origin, len(it.v.Values) })
+	fkeys := items2keys(items, func(it forecastItem) (*Series, string, time.Time) { return it.se, it.v.Model, it.v.Origin })
+	spans := items2spans(items, func(it forecastItem) (*Series, time.Time, int) { return it.se, it.v.Origin, len(it.v.Values) })
 	// merge applies the batch to the stored rows (none: every vector new)
 	// and returns the rows to write with the batch's acknowledgement.
 	merge := func(stored map[forecastKey]*forecastRow, known map[int64]map[int64]bool) (map[forecastKey]*forecastRow, Ack) {
-		a := ack
-		rows := stored
-		if rows == nil {
-			rows = make(map[forecastKey]*forecastRow, len(items))
-		}
-		for _, it := range items {
-			k := forecastKey{it.se.ID, it.v.Model, it.v.Origin.UnixNano()}
-			r := rows[k]
-			if r == nil {
-				r = &forecastRow{model: it.v.Model, origin: it.v.Origin, firstRecv: now}
-				rows[k] = r
-			}
-			r.se = it.se
-			mergeForecast(r, it.v, known[it.se.ID], now, &a)
-		}
-		return rows, a
+		return mergeItems(items, stored, known, now, ack)
 	}
 	var newModels []modelKey
 	var done Ack
@@ -304,6 +237,114 @@ func (s *Store) writeForecasts(ctx context.Context, once Once, vs []ForecastVect
 	return done, nil
 }
 
+// forecastItem is a vector of a batch with points to store.
+type forecastItem struct {
+	i  int
+	v  *ForecastVector
+	se *Series
+}
+
+// checkForecasts validates a batch: every vector or lead that cannot be
+// stored is rejected into ack (a rejected lead is set to NaN), and the
+// vectors left with points are returned.
+func checkForecasts(vs []ForecastVector, series map[string]*Series, firstIndex int, ack *Ack) []forecastItem {
+	reject := func(i, lead int, field, format string, args ...any) {
+		ack.Rejections = append(ack.Rejections, Rejection{firstIndex + i, lead, field, fmt.Sprintf(format, args...), lead == 0})
+	}
+	var items []forecastItem
+	for i := range vs {
+		v := &vs[i]
+		se := series[v.Series]
+		n := countPoints(v.Values)
+		switch {
+		case se == nil:
+			reject(i, 0, "series", "unknown series %q: create it first", v.Series)
+		case !modelPattern.MatchString(v.Model):
+			reject(i, 0, "model", "want 1–200 characters of A-Z a-z 0-9 _ . : / -")
+		case v.OriginInvalid != "":
+			reject(i, 0, "origin_time", "%s", v.OriginInvalid)
+		case v.IssueInvalid != "":
+			reject(i, 0, "issue_time", "%s", v.IssueInvalid)
+		case gridProblem(se, v.Origin) != "":
+			reject(i, 0, "origin_time", "%s", gridProblem(se, v.Origin))
+		case !v.IssuedAt.IsZero() && timeProblem(v.IssuedAt) != "":
+			reject(i, 0, "issue_time", "%s", timeProblem(v.IssuedAt))
+		case v.Problem != nil:
+			reject(i, 0, v.Problem.Field, "%s", v.Problem.Reason)
+		case n == 0 && v.Refused == 0:
+			reject(i, 0, "values", "no forecast values")
+		case n == 0:
+			// Every lead was rejected already (by the caller's conversion).
+			continue
+		case quantileProblem(v) != nil:
+			q := quantileProblem(v)
+			reject(i, 0, q.Field, "%s", q.Reason)
+		default:
+			checkLeads(se, v, func(h int, field, format string, args ...any) {
+				reject(i, h, field, format, args...)
+				ack.Rejected++
+			})
+			if countPoints(v.Values) > 0 {
+				items = append(items, forecastItem{i, v, se})
+			}
+			continue
+		}
+		// A vector rejected whole counts its points (those the caller
+		// refused are counted already), and one when it had none.
+		ack.Rejected += n
+		if n+int64(v.Refused) == 0 {
+			ack.Rejected++
+		}
+	}
+	return items
+}
+
+// checkLeads rejects, one by one, the leads of v beyond the horizon of se,
+// with a target at or after MaxTime or with an infinite value, and sets
+// them to NaN. The field blamed is "lead" for the first two, "values" for
+// the last.
+func checkLeads(se *Series, v *ForecastVector, reject func(lead int, field, format string, args ...any)) {
+	for h := 1; h <= len(v.Values); h++ {
+		x := v.Values[h-1]
+		switch {
+		case math.IsNaN(x):
+			continue
+		case h > se.Horizon:
+			reject(h, "lead", "lead %d is beyond the series horizon %d", h, se.Horizon)
+		case !se.step.Add(v.Origin, h).Before(MaxTime):
+			reject(h, "lead", "the target of lead %d, %s, is at or after %s", h,
+				se.step.Add(v.Origin, h).UTC().Format(time.RFC3339), MaxTime.Format(time.RFC3339))
+		case math.IsInf(x, 0):
+			reject(h, "values", "not a finite number")
+		default:
+			continue
+		}
+		v.Values[h-1] = math.NaN()
+	}
+}
+
+// mergeItems applies a batch's vectors to the stored rows (nil: every
+// vector new), with the actuals known for their targets, and returns the
+// rows to write with the batch's acknowledgement: ack and what merging
+// counted.
+func mergeItems(items []forecastItem, stored map[forecastKey]*forecastRow, known map[int64]map[int64]bool, now time.Time, ack Ack) (map[forecastKey]*forecastRow, Ack) {
+	rows := stored
+	if rows == nil {
+		rows = make(map[forecastKey]*forecastRow, len(items))
+	}
+	for _, it := range items {
+		k := forecastKey{it.se.ID, it.v.Model, it.v.Origin.UnixNano()}
+		r := rows[k]
+		if r == nil {
+			r = &forecastRow{model: it.v.Model, origin: it.v.Origin, firstRecv: now}
+			rows[k] = r
+		}
+		r.se = it.se
+		mergeForecast(r, it.v, known[it.se.ID], now, &ack)
+	}
+	return rows, ack
+}
+
 // quantileProblem says which quantile of a vector cannot be stored and
 // why; nil when all can. Values are per lead, as the vector's Values.
 func quantileProblem(v *ForecastVector) *FieldViolation {
@@ -358,20 +399,7 @@ func items2spans[T any](items []T, f func(T) (*Series, time.Time, int)) map[int6
 // stored beside the scored value when it had one (a re-issue replaces only
 // values whose actual has not arrived); anything else is stored.
 func mergeForecast(r *forecastRow, v *ForecastVector, known map[int64]bool, now time.Time, ack *Ack) {
-	if n := len(v.Values); n > len(r.vals) {
-		grown := make([]float64, n)
-		copy(grown, r.vals)
-		for i := len(r.vals); i < n; i++ {
-			grown[i] = math.NaN()
-		}
-		r.vals = grown
-		if r.late != nil {
-			r.late = append(r.late, make([]bool, n-len(r.late))...)
-		}
-	}
-	for len(r.lateVals) < len(r.vals) {
-		r.lateVals = append(r.lateVals, math.NaN())
-	}
+	r.grow(len(v.Values))
 	step := r.se.step
 	inUse := false // a value in use changed: the vector's issue time and quantiles follow this push
 	for i, x := range v.Values {
@@ -421,6 +449,24 @@ func mergeForecast(r *forecastRow, v *ForecastVector, known map[int64]bool, now 
 		if r.issuedAt.IsZero() {
 			r.issuedAt = now
 		}
+	}
+}
+
+// grow makes room in r for n leads, the new ones without values.
+func (r *forecastRow) grow(n int) {
+	if n > len(r.vals) {
+		grown := make([]float64, n)
+		copy(grown, r.vals)
+		for i := len(r.vals); i < n; i++ {
+			grown[i] = math.NaN()
+		}
+		r.vals = grown
+		if r.late != nil {
+			r.late = append(r.late, make([]bool, n-len(r.late))...)
+		}
+	}
+	for len(r.lateVals) < len(r.vals) {
+		r.lateVals = append(r.lateVals, math.NaN())
 	}
 }
 
@@ -679,73 +725,14 @@ func (s *Store) writeActuals(ctx context.Context, once Once, as []Actual, firstI
 	if err != nil {
 		return ack, err
 	}
-	type key = actualKey
-	chains := map[key][]float64{} // values pushed for a time, in batch order
-	var order []key
-	for i, a := range as {
-		se := series[a.Series]
-		var field, reason string
-		switch {
-		case se == nil:
-			field, reason = "series", fmt.Sprintf("unknown series %q: create it first", a.Series)
-		case a.TimeInvalid != "":
-			field, reason = "time", a.TimeInvalid
-		case gridProblem(se, a.Time) != "":
-			field, reason = "time", gridProblem(se, a.Time)
-		case math.IsNaN(a.Value) || math.IsInf(a.Value, 0):
-			field, reason = "value", "not a finite number"
-		}
-		if field != "" {
-			ack.Rejected++
-			ack.Rejections = append(ack.Rejections, Rejection{firstIndex + i, 0, field, reason, true})
-			continue
-		}
-		k := key{se.ID, a.Time.UnixNano()}
-		if _, ok := chains[k]; !ok {
-			order = append(order, k)
-		}
-		chains[k] = append(chains[k], a.Value)
-	}
-	if len(order) == 0 {
+	bt := checkActuals(as, series, firstIndex, &ack)
+	if len(bt.order) == 0 {
 		return ack, nil
 	}
-	ids, times := make([]int64, len(order)), make([]time.Time, len(order))
-	for i, k := range order {
-		ids[i], times[i] = k.id, time.Unix(0, k.t)
-	}
+	ids, times := bt.ids, bt.times
 	byID := make(map[int64]*Series, len(series))
 	for _, se := range series {
 		byID[se.ID] = se
-	}
-	// settle counts the batch against the values stored before it and says
-	// what to write: rows for new times, changed values for stored ones.
-	settle := func(stored map[key]float64) settledActuals {
-		var st settledActuals
-		st.fresh = map[int64][]time.Time{}
-		for i, k := range order {
-			prev, exists := stored[k]
-			var revs int32
-			for _, v := range chains[k] {
-				switch {
-				case !exists:
-					st.ack.Accepted++
-				case v == prev:
-					st.ack.Duplicate++
-				default:
-					st.ack.Revised++
-					revs++
-				}
-				prev, exists = v, true
-			}
-			switch old, had := stored[k]; {
-			case !had:
-				st.fresh[k.id] = append(st.fresh[k.id], times[i])
-				st.ins.add(ids[i], times[i], prev, revs)
-			case old != prev:
-				st.upd.add(ids[i], times[i], prev, revs)
-			}
-		}
-		return st
 	}
 	var st settledActuals
 	write := func(tx pgx.Tx) error {
@@ -758,7 +745,7 @@ func (s *Store) writeActuals(ctx context.Context, once Once, as []Actual, firstI
 		// batch the next one reads first, so a re-push of a whole file does
 		// not pay for a failed insert per batch.
 		if !s.actualsConflict.Load() {
-			st = settle(nil)
+			st = bt.settle(nil)
 			ok, err := tryNewActuals(ctx, tx, ids, &st, now, byID)
 			if err != nil || ok {
 				return err
@@ -771,7 +758,7 @@ func (s *Store) writeActuals(ctx context.Context, once Once, as []Actual, firstI
 		if err != nil {
 			return err
 		}
-		st = settle(stored)
+		st = bt.settle(stored)
 		if len(stored) == 0 {
 			s.actualsConflict.Store(false)
 		}
@@ -818,6 +805,86 @@ func (s *Store) writeActuals(ctx context.Context, once Once, as []Actual, firstI
 type actualKey struct {
 	id int64
 	t  int64
+}
+
+// actualsBatch is the valid actuals of a batch: the values pushed for each
+// (series, time), in batch order, and those keys in the order first pushed,
+// also as columns of ids and times.
+type actualsBatch struct {
+	chains map[actualKey][]float64
+	order  []actualKey
+	ids    []int64
+	times  []time.Time
+}
+
+// checkActuals validates a batch: every actual that cannot be stored is
+// rejected into ack, and the others are returned.
+func checkActuals(as []Actual, series map[string]*Series, firstIndex int, ack *Ack) *actualsBatch {
+	bt := &actualsBatch{chains: map[actualKey][]float64{}}
+	for i, a := range as {
+		se := series[a.Series]
+		var field, reason string
+		switch {
+		case se == nil:
+			field, reason = "series", fmt.Sprintf("unknown series %q: create it first", a.Series)
+		case a.TimeInvalid != "":
+			field, reason = "time", a.TimeInvalid
+		case gridProblem(se, a.Time) != "":
+			field, reason = "time", gridProblem(se, a.Time)
+		case math.IsNaN(a.Value) || math.IsInf(a.Value, 0):
+			field, reason = "value", "not a finite number"
+		}
+		if field != "" {
+			ack.Rejected++
+			ack.Rejections = append(ack.Rejections, Rejection{firstIndex + i, 0, field, reason, true})
+			continue
+		}
+		k := actualKey{se.ID, a.Time.UnixNano()}
+		if _, ok := bt.chains[k]; !ok {
+			bt.order = append(bt.order, k)
+		}
+		bt.chains[k] = append(bt.chains[k], a.Value)
+	}
+	bt.ids, bt.times = make([]int64, len(bt.order)), make([]time.Time, len(bt.order))
+	for i, k := range bt.order {
+		bt.ids[i], bt.times[i] = k.id, time.Unix(0, k.t)
+	}
+	return bt
+}
+
+// settle counts the batch against the values stored before it and says
+// what to write: rows for new times, changed values for stored ones.
+func (bt *actualsBatch) settle(stored map[actualKey]float64) settledActuals {
+	var st settledActuals
+	st.fresh = map[int64][]time.Time{}
+	for i, k := range bt.order {
+		prev, exists := stored[k]
+		var revs int32
+		for _, v := range bt.chains[k] {
+			switch {
+			case !exists:
+				st.ack.Accepted++
+			case v == prev:
+				// The stored value stays, bit for bit: −0 does not replace 0.
+				st.ack.Duplicate++
+				continue
+			default:
+				st.ack.Revised++
+				revs++
+			}
+			prev, exists = v, true
+		}
+		// A revision that a later one in the batch undid is still counted
+		// and recorded: the row's revisions and receive time say so.
+		switch _, had := stored[k]; {
+		case !had:
+			st.fresh[k.id] = append(st.fresh[k.id], bt.times[i])
+			st.ins.add(bt.ids[i], bt.times[i], prev, revs)
+		case revs > 0:
+			st.upd.add(bt.ids[i], bt.times[i], prev, revs)
+		}
+	}
+	return st
 }
 
 // actualRows are columns of actuals to write: series id, time, value and
@@ -993,44 +1060,49 @@ func completedQuery(byID map[int64]*Series, fresh map[int64][]time.Time) (string
 		JOIN series_models ff ON ff.series_id = r.series_id
 		JOIN LATERAL (SELECT series_id, origin, vals, late FROM forecasts f
 			WHERE f.series_id = r.series_id AND f.model = ff.model AND f.origin >= r.lo AND f.origin < r.hi OFFSET 0) f ON true`
-	count := func(rows pgx.Rows) (int64, error) {
-		defer rows.Close()
-		// Calendar steps make target arithmetic costly, and a feed's series
-		// share steps and origins: remember each target.
-		type target struct {
-			step   scoring.Step
-			origin int64
-			lead   int
-		}
-		targets := map[target]int64{}
-		var n int64
-		for rows.Next() {
-			var id int64
-			var o time.Time
-			var vals []pgtype.Float8
-			var late []bool
-			if err := rows.Scan(&id, &o, &vals, &late); err != nil {
-				return 0, err
-			}
-			se, set := byID[id], sets[id]
-			for i, v := range vals {
-				if !v.Valid || (i < len(late) && late[i]) {
-					continue
-				}
-				k := target{se.step, o.UnixNano(), i + 1}
-				t, ok := targets[k]
-				if !ok {
-					t = se.step.Add(o, i+1).UnixNano()
-					targets[k] = t
-				}
-				if set[t] {
-					n++
-				}
-			}
-		}
-		return n, rows.Err()
-	}
+	count := func(rows pgx.Rows) (int64, error) { return countCompletedRows(rows, byID, sets) }
 	return q, []any{ids, los, his}, count
+}
+
+// countCompletedRows counts, in the vectors of completedQuery's rows, the
+// values (not late) whose targets are in sets (by series id: the new
+// actuals' times in Unix nanoseconds). It closes rows.
+func countCompletedRows(rows pgx.Rows, byID map[int64]*Series, sets map[int64]map[int64]bool) (int64, error) {
+	defer rows.Close()
+	// Calendar steps make target arithmetic costly, and a feed's series
+	// share steps and origins: remember each target.
+	type target struct {
+		step   scoring.Step
+		origin int64
+		lead   int
+	}
+	targets := map[target]int64{}
+	var n int64
+	for rows.Next() {
+		var id int64
+		var o time.Time
+		var vals []pgtype.Float8
+		var late []bool
+		if err := rows.Scan(&id, &o, &vals, &late); err != nil {
+			return 0, err
+		}
+		se, set := byID[id], sets[id]
+		for i, v := range vals {
+			if !v.Valid || (i < len(late) && late[i]) {
+				continue
+			}
+			k := target{se.step, o.UnixNano(), i + 1}
+			t, ok := targets[k]
+			if !ok {
+				t = se.step.Add(o, i+1).UnixNano()
+				targets[k] = t
+			}
+			if set[t] {
+				n++
+			}
+		}
+	}
+	return n, rows.Err()
 }
 
 // subMicro is the reason for refusing a time PostgreSQL cannot store

@@ -188,6 +188,11 @@ func (s *Store) seriesByKey(ctx context.Context, key string) (*Series, error) {
 	if se != nil {
 		return se, nil
 	}
+	if !ValidKey(key) {
+		// No stored series has it, and PostgreSQL refuses some such keys
+		// (a NUL byte) as text: asking would be an internal error.
+		return nil, fmt.Errorf("series %q: %w", key, ErrNotFound)
+	}
 	se, err := scanSeries(s.pool.QueryRow(ctx, "SELECT "+seriesColumns+" FROM series WHERE key = $1", key))
 	if errors.Is(err, pgx.ErrNoRows) {
 		return nil, fmt.Errorf("series %q: %w", key, ErrNotFound)
@@ -208,7 +213,7 @@ func (s *Store) seriesByKeys(ctx context.Context, keys []string) (map[string]*Se
 	for _, k := range keys {
 		if se := s.series[k]; se != nil {
 			out[k] = se
-		} else {
+		} else if ValidKey(k) { // an invalid key is unknown without asking (see seriesByKey)
 			missing = append(missing, k)
 		}
 	}

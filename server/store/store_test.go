@@ -25,6 +25,7 @@ func TestMain(m *testing.M) { os.Exit(storetest.Main(m)) }
 var t0 = time.Date(2026, 1, 1, 0, 0, 0, 0, time.UTC)
 
 func ctxT(t *testing.T) context.Context {
+	t.Helper()
 	ctx, cancel := context.WithTimeout(context.Background(), 2*time.Minute)
 	t.Cleanup(cancel)
 	return ctx
@@ -161,7 +162,7 @@ func TestRejections(t *testing.T) {
 	if ack.Accepted != 4 || ack.Rejected != 4 {
 		t.Errorf("ack %+v, want 4 accepted 4 rejected", ack)
 	}
-	want := map[[2]int]string{{10, 4}: "values", {11, 0}: "series", {12, 0}: "model", {13, 1}: "values"}
+	want := map[[2]int]string{{10, 4}: "lead", {11, 0}: "series", {12, 0}: "model", {13, 1}: "values"}
 	for _, r := range ack.Rejections {
 		if want[[2]int{r.Index, r.Lead}] != r.Field {
 			t.Errorf("unexpected rejection %+v", r)

@@ -60,7 +60,8 @@ type DriftServiceClient interface {
 	// first replays every stored event after that one that matches the
 	// filters, then continues live, with no gap and no repeat. So a client
 	// that records each processed event's token and reconnects with the last
-	// one misses nothing. INVALID_ARGUMENT for a malformed token.
+	// one misses nothing. INVALID_ARGUMENT for a malformed token or one this
+	// service never issued (newer than its newest event).
 	WatchDriftEvents(ctx context.Context, in *WatchDriftEventsRequest, opts ...grpc.CallOption) (grpc.ServerStreamingClient[WatchDriftEventsResponse], error)
 	// GetDriftHistory replays the stored production period of a (series,
 	// model) against its active baseline and returns every state transition,
@@ -161,7 +162,8 @@ type DriftServiceServer interface {
 	// first replays every stored event after that one that matches the
 	// filters, then continues live, with no gap and no repeat. So a client
 	// that records each processed event's token and reconnects with the last
-	// one misses nothing. INVALID_ARGUMENT for a malformed token.
+	// one misses nothing. INVALID_ARGUMENT for a malformed token or one this
+	// service never issued (newer than its newest event).
 	WatchDriftEvents(*WatchDriftEventsRequest, grpc.ServerStreamingServer[WatchDriftEventsResponse]) error
 	// GetDriftHistory replays the stored production period of a (series,
 	// model) against its active baseline and returns every state transition,

@@ -927,15 +927,21 @@ type StoredForecast struct {
 	state protoimpl.MessageState `protogen:"open.v1"`
 	// The origin.
 	OriginTime *timestamppb.Timestamp `protobuf:"bytes,1,opt,name=origin_time,json=originTime,proto3" json:"origin_time,omitempty"`
-	// The issue time as sent, or the receive time of the first push that
-	// stored a value when none was sent.
+	// The issue time of the latest push that changed a value in use (a
+	// re-issue is a newer issue): as sent, or that push's receive time when
+	// it sent none. A late value stored beside a value in use leaves it.
 	IssueTime *timestamppb.Timestamp `protobuf:"bytes,2,opt,name=issue_time,json=issueTime,proto3" json:"issue_time,omitempty"`
 	// When the first value of this vector was committed.
 	FirstReceiveTime *timestamppb.Timestamp `protobuf:"bytes,3,opt,name=first_receive_time,json=firstReceiveTime,proto3" json:"first_receive_time,omitempty"`
 	// When a value of this vector was last committed.
 	ReceiveTime *timestamppb.Timestamp `protobuf:"bytes,4,opt,name=receive_time,json=receiveTime,proto3" json:"receive_time,omitempty"`
 	// One entry per lead with a value, ascending by lead.
-	Points        []*StoredPoint `protobuf:"bytes,5,rep,name=points,proto3" json:"points,omitempty"`
+	Points []*StoredPoint `protobuf:"bytes,5,rep,name=points,proto3" json:"points,omitempty"`
+	// The quantile forecasts of the latest push that sent quantiles and
+	// changed a value in use: per level, values for the same leads and in
+	// the same order as points; NaN for a point whose lead that push did not
+	// cover.
+	Quantiles     []*QuantileValues `protobuf:"bytes,6,rep,name=quantiles,proto3" json:"quantiles,omitempty"`
 	unknownFields protoimpl.UnknownFields
 	sizeCache     protoimpl.SizeCache
 }
@@ -1001,6 +1007,13 @@ func (x *StoredForecast) GetReceiveTime() *timestamppb.Timestamp {
 func (x *StoredForecast) GetPoints() []*StoredPoint {
 	if x != nil {
 		return x.Points
+	}
+	return nil
+}
+
+func (x *StoredForecast) GetQuantiles() []*QuantileValues {
+	if x != nil {
+		return x.Quantiles
 	}
 	return nil
 }
@@ -1143,7 +1156,7 @@ const file_aftercast_v1_forecast_proto_rawDesc = "" +
 	"page_token\x18\x06 \x01(\tR\tpageToken\"{\n" +
 	"\x15ListForecastsResponse\x12:\n" +
 	"\tforecasts\x18\x01 \x03(\v2\x1c.aftercast.v1.StoredForecastR\tforecasts\x12&\n" +
-	"\x0fnext_page_token\x18\x02 \x01(\tR\rnextPageToken\"\xc4\x02\n" +
+	"\x0fnext_page_token\x18\x02 \x01(\tR\rnextPageToken\"\x80\x03\n" +
 	"\x0eStoredForecast\x12;\n" +
 	"\vorigin_time\x18\x01 \x01(\v2\x1a.google.protobuf.TimestampR\n" +
 	"originTime\x129\n" +
@@ -1151,7 +1164,8 @@ const file_aftercast_v1_forecast_proto_rawDesc = "" +
 	"issue_time\x18\x02 \x01(\v2\x1a.google.protobuf.TimestampR\tissueTime\x12H\n" +
 	"\x12first_receive_time\x18\x03 \x01(\v2\x1a.google.protobuf.TimestampR\x10firstReceiveTime\x12=\n" +
 	"\freceive_time\x18\x04 \x01(\v2\x1a.google.protobuf.TimestampR\vreceiveTime\x121\n" +
-	"\x06points\x18\x05 \x03(\v2\x19.aftercast.v1.StoredPointR\x06points\"\x84\x01\n" +
+	"\x06points\x18\x05 \x03(\v2\x19.aftercast.v1.StoredPointR\x06points\x12:\n" +
+	"\tquantiles\x18\x06 \x03(\v2\x1c.aftercast.v1.QuantileValuesR\tquantiles\"\x84\x01\n" +
 	"\vStoredPoint\x12\x12\n" +
 	"\x04lead\x18\x01 \x01(\x05R\x04lead\x12\x14\n" +
 	"\x05value\x18\x02 \x01(\x01R\x05value\x12\x12\n" +
@@ -1214,17 +1228,18 @@ var file_aftercast_v1_forecast_proto_depIdxs = []int32{
 	15, // 16: aftercast.v1.StoredForecast.first_receive_time:type_name -> google.protobuf.Timestamp
 	15, // 17: aftercast.v1.StoredForecast.receive_time:type_name -> google.protobuf.Timestamp
 	14, // 18: aftercast.v1.StoredForecast.points:type_name -> aftercast.v1.StoredPoint
-	7,  // 19: aftercast.v1.ForecastService.PushForecasts:input_type -> aftercast.v1.PushForecastsRequest
-	9,  // 20: aftercast.v1.ForecastService.StreamForecasts:input_type -> aftercast.v1.StreamForecastsRequest
-	11, // 21: aftercast.v1.ForecastService.ListForecasts:input_type -> aftercast.v1.ListForecastsRequest
-	8,  // 22: aftercast.v1.ForecastService.PushForecasts:output_type -> aftercast.v1.PushForecastsResponse
-	10, // 23: aftercast.v1.ForecastService.StreamForecasts:output_type -> aftercast.v1.StreamForecastsResponse
-	12, // 24: aftercast.v1.ForecastService.ListForecasts:output_type -> aftercast.v1.ListForecastsResponse
-	22, // [22:25] is the sub-list for method output_type
-	19, // [19:22] is the sub-list for method input_type
-	19, // [19:19] is the sub-list for extension type_name
-	19, // [19:19] is the sub-list for extension extendee
-	0,  // [0:19] is the sub-list for field type_name
+	4,  // 19: aftercast.v1.StoredForecast.quantiles:type_name -> aftercast.v1.QuantileValues
+	7,  // 20: aftercast.v1.ForecastService.PushForecasts:input_type -> aftercast.v1.PushForecastsRequest
+	9,  // 21: aftercast.v1.ForecastService.StreamForecasts:input_type -> aftercast.v1.StreamForecastsRequest
+	11, // 22: aftercast.v1.ForecastService.ListForecasts:input_type -> aftercast.v1.ListForecastsRequest
+	8,  // 23: aftercast.v1.ForecastService.PushForecasts:output_type -> aftercast.v1.PushForecastsResponse
+	10, // 24: aftercast.v1.ForecastService.StreamForecasts:output_type -> aftercast.v1.StreamForecastsResponse
+	12, // 25: aftercast.v1.ForecastService.ListForecasts:output_type -> aftercast.v1.ListForecastsResponse
+	23, // [23:26] is the sub-list for method output_type
+	20, // [20:23] is the sub-list for method input_type
+	20, // [20:20] is the sub-list for extension type_name
+	20, // [20:20] is the sub-list for extension extendee
+	0,  // [0:20] is the sub-list for field type_name
 }
 
 func init() { file_aftercast_v1_forecast_proto_init() }
