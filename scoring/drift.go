@@ -82,6 +82,20 @@ type Transition struct {
 	Reason  string  `json:"reason,omitempty"`
 }
 
+// inUnits restates a transition judged on scaled quantities (method.md
+// §4a) in the series' unit for people: the window's plain value of the
+// metric, and the limit times the window's mean scale. Without scaling it
+// is unchanged.
+func (t Transition) inUnits(v WindowValues) Transition {
+	switch t.Metric {
+	case MetricMAE:
+		t.Value, t.Limit = v.MAE, t.Limit*v.Scale
+	case MetricME:
+		t.Value, t.Limit = v.ME, t.Limit*v.Scale
+	}
+	return t
+}
+
 // Detector is the drift state machine of method.md §5 for one lead (on the
 // lead's windows and bands) or for a series (on the pooled decision-lead
 // windows and their bands). Feed it one [Evaluation] per scored origin, in

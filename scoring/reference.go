@@ -15,6 +15,7 @@ type ReferenceSpec struct {
 	Decision  []int // ascending; the pooled series quantity averages these leads
 	Window    int
 	MASEScale float64
+	Mode      ScaleMode // level scaling of §4a; "" is auto
 }
 
 // Reference is a baseline prepared for judging (method.md §4): per lead,
@@ -33,7 +34,10 @@ type LeadReference struct {
 	Lead          int
 	Abs, Sq, Bias Summary // of |e|, e², e; Sq is empty for the pooled quantity
 	Verdict       Verdict
-	Expected      Metrics // every metric over the lead's backtest pairs; zero for the pooled quantity
+	Expected      Metrics // every metric over the lead's backtest pairs, unscaled; zero for the pooled quantity
+	// Scale is the level scale of §4a the quantities were divided by (b̂
+	// and φ as fitted; b = 0 in absolute mode).
+	Scale Scale
 	// limits[n-1] are the bounds of the bands for a window of n ≤ the live
 	// window, kept as bare numbers: a prepared baseline is cached for every
 	// judged (series, model), so its size matters.
@@ -60,30 +64,51 @@ func NewReference(backtest []Pair, spec ReferenceSpec) *Reference {
 	r.Decision = slices.Clone(spec.Decision)
 	ps := slices.Clone(backtest)
 	slices.SortFunc(ps, comparePairs)
-	byLead := map[int][]Quantity{}
-	acc := map[int]*Accumulator{}
-	var pooled []Quantity
+	byLead := map[int][][]Pair{}
+	var pooled [][]Pair
 	eachOrigin(ps, func(_ time.Time, group []Pair) {
-		for _, p := range group {
-			byLead[p.Lead] = append(byLead[p.Lead], pairQuantity(p))
-			if acc[p.Lead] == nil {
-				acc[p.Lead] = &Accumulator{}
-			}
-			acc[p.Lead].Add(p.Actual, p.Forecast)
+		for i, p := range group {
+			byLead[p.Lead] = append(byLead[p.Lead], group[i:i+1])
 		}
-		if q, ok := poolOrigin(group, r.Decision); ok {
-			pooled = append(pooled, q)
+		if dp := decisionPairs(group, r.Decision); len(dp) > 0 {
+			pooled = append(pooled, dp)
 		}
 	})
-	for h, qs := range byLead {
+	for h, origins := range byLead {
+		sc := fitPairs(origins, spec.Window, spec.Mode)
+		qs := make([]Quantity, len(origins))
+		var acc Accumulator
+		for i, o := range origins {
+			qs[i] = pairQuantity(o[0], sc)
+			acc.Add(o[0].Actual, o[0].Forecast)
+		}
 		l := r.newLead(h, h, qs, true)
-		l.Expected = acc[h].Metrics(spec.MASEScale)
+		l.Scale, l.Expected = sc, acc.Metrics(spec.MASEScale)
 		r.leads[h] = l
 	}
 	if len(pooled) > 0 {
-		r.pooled = r.newLead(0, slices.Max(r.Decision), pooled, false)
+		sc := fitPairs(pooled, spec.Window, spec.Mode)
+		qs := make([]Quantity, len(pooled))
+		for i, dp := range pooled {
+			qs[i], _ = poolOrigin(dp, r.Decision, sc)
+		}
+		r.pooled = r.newLead(0, slices.Max(r.Decision), qs, false)
+		r.pooled.Scale = sc
 	}
 	return r
+}
+
+// fitPairs fits the scale of a quantity to its backtest origins (each one
+// pair, or the decision leads' pairs).
+func fitPairs(origins [][]Pair, n int, mode ScaleMode) Scale {
+	fs, es := make([][]float64, len(origins)), make([][]float64, len(origins))
+	for i, o := range origins {
+		fs[i], es[i] = make([]float64, len(o)), make([]float64, len(o))
+		for j, p := range o {
+			fs[i][j], es[i][j] = p.Forecast, p.Actual-p.Forecast
+		}
+	}
+	return FitScale(fs, es, n, mode)
 }
 
 // newLead summarises one quantity series; lag is the lead that bounds the
@@ -148,6 +173,27 @@ func (l *LeadReference) Bands(n int) BandSet {
 	if l.Lead > 0 {
 		b.RMSE = l.Sq.bandOf(MetricRMSE, n, lim.rmse[0], lim.rmse[1], math.Inf(-1), lim.rmse[2])
 	}
+	return b
+}
+
+// InUnits turns bands of the scaled quantities into the series' unit for
+// a window of these values (method.md §4a): MAE and ME bounds times the
+// window's mean scale, RMSE bounds times the root of its mean squared
+// scale — what the backtest promises for a window at these levels.
+// Without scaling (scales of 1) the bands are unchanged.
+func (b BandSet) InUnits(v WindowValues) BandSet {
+	if v.N == 0 {
+		return b
+	}
+	b.MAE, b.ME, b.RMSE = b.MAE.times(v.Scale), b.ME.times(v.Scale), b.RMSE.times(v.ScaleRMSE)
+	return b
+}
+
+func (b Band) times(s float64) Band {
+	if s == 1 || b.Metric == "" {
+		return b
+	}
+	b.Expected, b.Lower, b.Upper, b.AlarmLower, b.AlarmUpper = b.Expected*s, b.Lower*s, b.Upper*s, b.AlarmLower*s, b.AlarmUpper*s
 	return b
 }
 

@@ -72,7 +72,8 @@ type Judgement struct {
 	Origin time.Time
 	Lead   int
 	WindowValues
-	Bands BandSet
+	Bands  BandSet // in the series' unit for this window (see BandSet.InUnits)
+	Judged BandSet // of the scaled quantities, as judged
 }
 
 // Status is a lead's state at the end of a replay, with the window it was
@@ -82,7 +83,8 @@ type Status struct {
 	Lead int
 	LeadState
 	Window WindowValues
-	Bands  BandSet
+	Bands  BandSet // in the series' unit for the window (see BandSet.InUnits)
+	Judged BandSet // of the scaled quantities, as judged
 	Reason string
 }
 
@@ -207,11 +209,20 @@ func (rp *replayer) start(from Checkpoint) error {
 // fill rebuilds the windows from an origin before the checkpoint.
 func (rp *replayer) fill(origin time.Time, group []Pair) {
 	for _, p := range group {
-		rp.windows[p.Lead].Push(origin, pairQuantity(p))
+		rp.windows[p.Lead].Push(origin, pairQuantity(p, rp.scale(p.Lead)))
 	}
-	if q, ok := poolOrigin(group, rp.ref.Decision); ok {
+	if q, ok := poolOrigin(group, rp.ref.Decision, rp.scale(0)); ok {
 		rp.windows[0].Push(origin, q)
 	}
+}
+
+// scale is the level scale of lead h (0: the pooled quantity); none (b =
+// 0) for a lead without a backtest, which is never judged.
+func (rp *replayer) scale(h int) Scale {
+	if l := rp.ref.Lead(h); l != nil {
+		return l.Scale
+	}
+	return Scale{}
 }
 
 func (rp *replayer) checkWindows() error {
@@ -227,12 +238,12 @@ func (rp *replayer) checkWindows() error {
 // evaluate judges every lead scored at origin, then the series.
 func (rp *replayer) evaluate(origin time.Time, group []Pair) {
 	rp.cp.Seq++
-	if q, ok := poolOrigin(group, rp.ref.Decision); ok {
+	if q, ok := poolOrigin(group, rp.ref.Decision, rp.scale(0)); ok {
 		rp.windows[0].Push(origin, q)
 		rp.judge(0, origin)
 	}
 	for _, p := range group {
-		rp.windows[p.Lead].Push(origin, pairQuantity(p))
+		rp.windows[p.Lead].Push(origin, pairQuantity(p, rp.scale(p.Lead)))
 		rp.judge(p.Lead, origin)
 	}
 	rp.cp.Origin = origin
@@ -253,10 +264,11 @@ func (rp *replayer) judge(h int, origin time.Time) {
 	}
 	b := l.Bands(v.N)
 	if slices.Contains(rp.opt.Judge, h) {
-		rp.out.Judgements = append(rp.out.Judgements, Judgement{Origin: origin, Lead: h, WindowValues: v, Bands: b})
+		rp.out.Judgements = append(rp.out.Judgements, Judgement{Origin: origin, Lead: h, WindowValues: v, Bands: b.InUnits(v), Judged: b})
 	}
-	t := s.Detector.Observe(Evaluation{N: v.N, MAE: v.MAE, ME: v.ME, MAEBand: b.MAE, MEBand: b.ME})
+	t := s.Detector.Observe(Evaluation{N: v.N, MAE: v.JudgedMAE, ME: v.JudgedME, MAEBand: b.MAE, MEBand: b.ME})
 	if t.Changed {
+		t = t.inUnits(v)
 		s.Onset, s.Entered, s.OnsetEval = origin, t, s.Evals
 		rp.out.History = append(rp.out.History, Change{Origin: origin, Lead: h, Transition: t})
 	}
@@ -283,7 +295,8 @@ func (rp *replayer) status() []Status {
 		if s.N > 0 {
 			st.Window = rp.windows[h].Values()
 			if l := rp.ref.Lead(h); l != nil {
-				st.Bands = l.Bands(s.N)
+				st.Judged = l.Bands(s.N)
+				st.Bands = st.Judged.InUnits(st.Window)
 			}
 		}
 		out = append(out, st)

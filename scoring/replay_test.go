@@ -79,12 +79,12 @@ func TestPoolOrigin(t *testing.T) {
 		{"lead 4 missing", []Pair{p(1, 2), p(7, 1)}, false, 0, 0},
 		{"other order of signs", []Pair{p(1, -0.5), p(4, 0.5)}, true, 0.5, 0},
 	} {
-		q, ok := poolOrigin(c.ps, []int{1, 4})
+		q, ok := poolOrigin(c.ps, []int{1, 4}, Scale{})
 		if ok != c.ok || ok && (q.Abs != c.abs || q.E != c.bias || !math.IsNaN(q.Sq)) {
 			t.Errorf("%s: %+v %v, want |e| %v, e %v, ok %v", c.name, q, ok, c.abs, c.bias, c.ok)
 		}
 	}
-	if _, ok := poolOrigin([]Pair{p(1, 1)}, nil); ok {
+	if _, ok := poolOrigin([]Pair{p(1, 1)}, nil, Scale{}); ok {
 		t.Error("pooling over no decision leads counted the origin")
 	}
 }
@@ -97,14 +97,15 @@ func TestWindow(t *testing.T) {
 	}
 	es := []float64{1, -2, 4, -8, 16}
 	for i, e := range es {
-		w.Push(day(i), pairQuantity(Pair{Actual: e}))
+		w.Push(day(i), pairQuantity(Pair{Actual: e}, Scale{}))
 		lo := max(0, i-2)
 		var a, s, m float64
 		for _, x := range es[lo : i+1] {
 			a, s, m = a+math.Abs(x), s+x*x, m+x
 		}
 		n := float64(i - lo + 1)
-		want := WindowValues{N: i - lo + 1, MAE: a / n, RMSE: math.Sqrt(s / n), ME: m / n}
+		want := WindowValues{N: i - lo + 1, MAE: a / n, RMSE: math.Sqrt(s / n), ME: m / n,
+			JudgedMAE: a / n, JudgedRMSE: math.Sqrt(s / n), JudgedME: m / n, Scale: 1, ScaleRMSE: 1} // no scaling: judged = plain
 		if got := w.Values(); got != want || !w.Oldest().Equal(day(lo)) {
 			t.Errorf("after %d: %+v oldest %v, want %+v oldest %v", i, got, w.Oldest(), want, day(lo))
 		}

@@ -9,40 +9,66 @@ import (
 
 // Quantity is what one scored pair, or one origin's pooled decision leads,
 // contributes to a live window and to a band (method.md §4 step 1): |e|
-// for MAE, e² for RMSE (the band is built on the MSE), e for ME. The
+// for MAE, e² for RMSE (the band is built on the MSE), e for ME, each
+// divided by the level scale of §4a — these are what is judged — and the
+// same in the series' unit, with the scale, for what people read. The
 // backtest and production go through the same functions, so a window and
 // its band always measure the same thing.
 type Quantity struct {
-	Abs, Sq, E float64
+	Abs, Sq, E    float64 // judged: |e|/s, e²/s², e/s
+	UAbs, USq, UE float64 // in the series' unit
+	S, S2         float64 // s(ŷ) and s(ŷ)² (means over the decision leads for the pooled quantity)
 }
 
-// pairQuantity is the quantity of one pair, e = actual − forecast.
-func pairQuantity(p Pair) Quantity {
+// pairQuantity is the quantity of one pair, e = actual − forecast, under
+// the scale sc.
+func pairQuantity(p Pair, sc Scale) Quantity {
 	e := p.Actual - p.Forecast
-	return Quantity{Abs: math.Abs(e), Sq: e * e, E: e}
+	s := sc.Of(p.Forecast)
+	return Quantity{Abs: math.Abs(e) / s, Sq: e * e / (s * s), E: e / s, UAbs: math.Abs(e), USq: e * e, UE: e, S: s, S2: s * s}
 }
 
 // poolOrigin is the pooled quantity of one origin (method.md §5): the mean
-// over the decision leads of |e| and of e. ps are the origin's pairs in
-// ascending lead order; ok is false when a decision lead has no pair (such
-// an origin does not count for the series state). The pooled quantity has
-// no RMSE: Sq is NaN.
-func poolOrigin(ps []Pair, decision []int) (q Quantity, ok bool) {
-	var a, b sum
+// over the decision leads of each pair's quantity under the pooled scale
+// sc. ps are the origin's pairs in ascending lead order; ok is false when
+// a decision lead has no pair (such an origin does not count for the
+// series state). The pooled quantity has no RMSE: Sq and USq are NaN.
+func poolOrigin(ps []Pair, decision []int, sc Scale) (q Quantity, ok bool) {
+	dp := decisionPairs(ps, decision)
+	if len(dp) == 0 {
+		return Quantity{}, false
+	}
+	var a, e, ua, ue, s, s2 sum
+	for _, p := range dp {
+		x := pairQuantity(p, sc)
+		a.add(x.Abs)
+		e.add(x.E)
+		ua.add(x.UAbs)
+		ue.add(x.UE)
+		s.add(x.S)
+		s2.add(x.S2)
+	}
+	n := float64(len(dp))
+	nan := math.NaN()
+	return Quantity{Abs: a.value() / n, Sq: nan, E: e.value() / n, UAbs: ua.value() / n, USq: nan, UE: ue.value() / n,
+		S: s.value() / n, S2: s2.value() / n}, true
+}
+
+// decisionPairs are the pairs of an origin's decision leads, or nil when
+// one is missing.
+func decisionPairs(ps []Pair, decision []int) []Pair {
+	out := make([]Pair, 0, len(decision))
 	i := 0
 	for _, h := range decision {
 		for i < len(ps) && ps[i].Lead < h {
 			i++
 		}
 		if i == len(ps) || ps[i].Lead != h {
-			return Quantity{}, false
+			return nil
 		}
-		x := pairQuantity(ps[i])
-		a.add(x.Abs)
-		b.add(x.E)
+		out = append(out, ps[i])
 	}
-	n := float64(len(decision))
-	return Quantity{Abs: a.value() / n, Sq: math.NaN(), E: b.value() / n}, len(decision) > 0
+	return out
 }
 
 // Window is a live window of method.md §5: the last n origins' quantities
@@ -80,11 +106,20 @@ func (w *Window) Oldest() time.Time {
 	return w.origins[w.head]
 }
 
-// WindowValues are the metrics of a window: its size, MAE, RMSE and ME
-// (NaN when the window is empty; RMSE NaN for the pooled quantity).
+// WindowValues are the metrics of a window: its size; MAE, RMSE and ME in
+// the series' unit, which people read; the same metrics of the scaled
+// quantities, which the detector judges against the bands; and the
+// window's mean scale, which turns a band into the series' unit (method.md
+// §4a). Metrics are NaN when the window is empty; RMSE is NaN for the
+// pooled quantity. Without scaling the judged metrics equal the others and
+// the scales are 1.
 type WindowValues struct {
-	N             int
-	MAE, RMSE, ME float64
+	N                               int
+	MAE, RMSE, ME                   float64
+	JudgedMAE, JudgedRMSE, JudgedME float64
+	// Scale is the mean s(ŷ) over the window's pairs; ScaleRMSE the root of
+	// the mean s(ŷ)², for RMSE.
+	Scale, ScaleRMSE float64
 }
 
 // Values computes the window's metrics. The sums run over the entries
@@ -95,17 +130,23 @@ func (w *Window) Values() WindowValues {
 	n := len(w.qs)
 	if n == 0 {
 		nan := math.NaN()
-		return WindowValues{MAE: nan, RMSE: nan, ME: nan}
+		return WindowValues{MAE: nan, RMSE: nan, ME: nan, JudgedMAE: nan, JudgedRMSE: nan, JudgedME: nan, Scale: nan, ScaleRMSE: nan}
 	}
-	var a, s, e float64
+	var a, s, e, ua, us, ue, sc, sc2 float64
 	for i := range n {
 		q := w.qs[(w.head+i)%n]
 		a += q.Abs
 		s += q.Sq
 		e += q.E
+		ua += q.UAbs
+		us += q.USq
+		ue += q.UE
+		sc += q.S
+		sc2 += q.S2
 	}
 	nf := float64(n)
-	return WindowValues{N: n, MAE: a / nf, RMSE: math.Sqrt(s / nf), ME: e / nf}
+	return WindowValues{N: n, MAE: ua / nf, RMSE: math.Sqrt(us / nf), ME: ue / nf,
+		JudgedMAE: a / nf, JudgedRMSE: math.Sqrt(s / nf), JudgedME: e / nf, Scale: sc / nf, ScaleRMSE: math.Sqrt(sc2 / nf)}
 }
 
 // fingerprint hashes the window's origins and quantities, oldest first; 0
@@ -135,12 +176,17 @@ func (w *Window) fingerprint() uint64 {
 // nil) the bands are zero.
 func Windows(l *LeadReference, n int, pairs []Pair) []Judgement {
 	w := NewWindow(n)
+	var sc Scale
+	if l != nil {
+		sc = l.Scale
+	}
 	out := make([]Judgement, 0, len(pairs))
 	for _, p := range pairs {
-		w.Push(p.Origin, pairQuantity(p))
+		w.Push(p.Origin, pairQuantity(p, sc))
 		j := Judgement{Origin: p.Origin, Lead: p.Lead, WindowValues: w.Values()}
 		if l != nil {
-			j.Bands = l.Bands(j.N)
+			j.Judged = l.Bands(j.N)
+			j.Bands = j.Judged.InUnits(j.WindowValues)
 		}
 		out = append(out, j)
 	}
