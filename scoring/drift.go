@@ -79,7 +79,11 @@ type Transition struct {
 	Value   float64 `json:"value"`
 	Limit   float64 `json:"limit"`
 	KEff    float64 `json:"k_eff"` // of the metric's band; 0 when no metric
-	Reason  string  `json:"reason,omitempty"`
+	// Scale is the window's mean level scale (method.md §4a) that Value and
+	// Limit were restated in the series' unit with; 0 when there was no
+	// scaling (a scale of 1).
+	Scale  float64 `json:"scale,omitempty"`
+	Reason string  `json:"reason,omitempty"`
 }
 
 // inUnits restates a transition judged on scaled quantities (method.md
@@ -87,11 +91,14 @@ type Transition struct {
 // metric, and the limit times the window's mean scale. Without scaling it
 // is unchanged.
 func (t Transition) inUnits(v WindowValues) Transition {
+	if v.Scale == 1 {
+		return t
+	}
 	switch t.Metric {
 	case MetricMAE:
-		t.Value, t.Limit = v.MAE, t.Limit*v.Scale
+		t.Value, t.Limit, t.Scale = v.MAE, t.Limit*v.Scale, v.Scale
 	case MetricME:
-		t.Value, t.Limit = v.ME, t.Limit*v.Scale
+		t.Value, t.Limit, t.Scale = v.ME, t.Limit*v.Scale, v.Scale
 	}
 	return t
 }

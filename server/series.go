@@ -2,12 +2,14 @@ package server
 
 import (
 	"context"
+	"fmt"
 	"log/slog"
 	"strings"
 
 	"google.golang.org/protobuf/types/known/timestamppb"
 
 	aftercastv1 "github.com/aftercast/aftercast/api/aftercast/v1"
+	"github.com/aftercast/aftercast/scoring"
 	"github.com/aftercast/aftercast/server/drift"
 	"github.com/aftercast/aftercast/server/store"
 )
@@ -46,7 +48,35 @@ func seriesToProto(s store.Series) *aftercastv1.Series {
 	}
 	return &aftercastv1.Series{Key: s.Key, Step: s.Step, Horizon: int32(s.Horizon), Season: int32(s.Season),
 		Unit: s.Unit, TimeZone: s.TimeZone, DecisionLeads: leads, CreateTime: timestamppb.New(s.CreatedAt),
-		GridAnchorTime: timestamppb.New(s.GridAnchor)}
+		GridAnchorTime: timestamppb.New(s.GridAnchor), ErrorScale: errorScaleToProto(s.ErrorScale)}
+}
+
+func errorScaleToProto(m scoring.ScaleMode) aftercastv1.ErrorScale {
+	if m == scoring.ScaleAbsolute {
+		return aftercastv1.ErrorScale_ERROR_SCALE_ABSOLUTE
+	}
+	return aftercastv1.ErrorScale_ERROR_SCALE_AUTO
+}
+
+// errorScaleFromProto reads a mode; unspecified is "" (the default).
+func errorScaleFromProto(e aftercastv1.ErrorScale) (scoring.ScaleMode, error) {
+	switch e {
+	case aftercastv1.ErrorScale_ERROR_SCALE_UNSPECIFIED:
+		return "", nil
+	case aftercastv1.ErrorScale_ERROR_SCALE_AUTO:
+		return scoring.ScaleAuto, nil
+	case aftercastv1.ErrorScale_ERROR_SCALE_ABSOLUTE:
+		return scoring.ScaleAbsolute, nil
+	}
+	return "", invalidArg("series.error_scale", fmt.Sprintf("unknown value %d", e))
+}
+
+func leadsFromProto(ls []int32) []int {
+	out := make([]int, len(ls))
+	for i, h := range ls {
+		out[i] = int(h)
+	}
+	return out
 }
 
 func (s *seriesService) CreateSeries(ctx context.Context, req *aftercastv1.CreateSeriesRequest) (*aftercastv1.CreateSeriesResponse, error) {
@@ -54,12 +84,13 @@ func (s *seriesService) CreateSeries(ctx context.Context, req *aftercastv1.Creat
 	if p == nil {
 		return nil, invalidArg("series", "missing")
 	}
-	leads := make([]int, len(p.GetDecisionLeads()))
-	for i, h := range p.GetDecisionLeads() {
-		leads[i] = int(h)
+	mode, err := errorScaleFromProto(p.GetErrorScale())
+	if err != nil {
+		return nil, err
 	}
 	in := store.Series{Key: p.GetKey(), Step: p.GetStep(), Horizon: int(p.GetHorizon()),
-		Season: int(p.GetSeason()), Unit: p.GetUnit(), TimeZone: p.GetTimeZone(), DecisionLeads: leads}
+		Season: int(p.GetSeason()), Unit: p.GetUnit(), TimeZone: p.GetTimeZone(), DecisionLeads: leadsFromProto(p.GetDecisionLeads()),
+		ErrorScale: mode}
 	if a := p.GetGridAnchorTime(); a != nil {
 		in.GridAnchor = a.AsTime()
 	}
@@ -68,6 +99,45 @@ func (s *seriesService) CreateSeries(ctx context.Context, req *aftercastv1.Creat
 		return nil, s.status(ctx, err)
 	}
 	return &aftercastv1.CreateSeriesResponse{Series: seriesToProto(se), Created: created}, nil
+}
+
+// UpdateSeries changes the error scale or decision leads; the store marks
+// the series for a replay, which the evaluator is woken to run.
+func (s *seriesService) UpdateSeries(ctx context.Context, req *aftercastv1.UpdateSeriesRequest) (*aftercastv1.UpdateSeriesResponse, error) {
+	p := req.GetSeries()
+	if !store.ValidKey(p.GetKey()) {
+		return nil, invalidArg("series.key", nameRule)
+	}
+	if len(req.GetUpdateMask().GetPaths()) == 0 {
+		return nil, invalidArg("update_mask", `name the fields to change: "error_scale", "decision_leads"`)
+	}
+	var u store.SeriesUpdate
+	for _, path := range req.GetUpdateMask().GetPaths() {
+		switch path {
+		case "error_scale":
+			mode, err := errorScaleFromProto(p.GetErrorScale())
+			if err != nil {
+				return nil, err
+			}
+			if mode == "" {
+				return nil, invalidArg("series.error_scale", "unspecified: want ERROR_SCALE_AUTO or ERROR_SCALE_ABSOLUTE")
+			}
+			u.ErrorScale = &mode
+		case "decision_leads":
+			leads := leadsFromProto(p.GetDecisionLeads())
+			u.DecisionLeads = &leads
+		default:
+			return nil, invalidArg("update_mask", fmt.Sprintf("%q cannot be changed: only error_scale and decision_leads", path))
+		}
+	}
+	se, changed, err := s.store.UpdateSeries(ctx, p.GetKey(), u)
+	if err != nil {
+		return nil, s.status(ctx, err)
+	}
+	if changed {
+		s.drift.Wake()
+	}
+	return &aftercastv1.UpdateSeriesResponse{Series: seriesToProto(se), Changed: changed}, nil
 }
 
 func (s *seriesService) GetSeries(ctx context.Context, req *aftercastv1.GetSeriesRequest) (*aftercastv1.GetSeriesResponse, error) {

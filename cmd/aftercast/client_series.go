@@ -12,6 +12,7 @@ import (
 	"github.com/aftercast/aftercast/scoring"
 	"google.golang.org/grpc/codes"
 	"google.golang.org/grpc/status"
+	"google.golang.org/protobuf/types/known/fieldmaskpb"
 	"google.golang.org/protobuf/types/known/timestamppb"
 )
 
@@ -21,6 +22,7 @@ func runSeries(args []string, stdout, stderr io.Writer) error {
 		sub{"get", func(args []string) error { return seriesGet(args, stdout, stderr) }},
 		sub{"list", func(args []string) error { return seriesList(args, stdout, stderr) }},
 		sub{"models", func(args []string) error { return seriesModels(args, stdout, stderr) }},
+		sub{"update", func(args []string) error { return seriesUpdate(args, stdout, stderr) }},
 	)
 }
 
@@ -39,6 +41,10 @@ func seriesCreate(args []string, stdout, stderr io.Writer) error {
 	fs.StringVar(&s.Unit, "unit", "", "unit of the values, such as MW (informational)")
 	fs.StringVar(&s.TimeZone, "tz", "UTC", "IANA time zone whose calendar the calendar steps follow")
 	fs.StringVar(&decisions, "decision-leads", "", "leads the business acts on, e.g. 25-48 (default all)")
+	fs.Func("error-scale", errorScaleHelp+" (default auto)", func(v string) (err error) {
+		s.ErrorScale, err = parseErrorScale(v)
+		return err
+	})
 	fs.Func("grid-anchor", "an RFC 3339 time the series' grid starts from; origins and actual times must be that plus whole steps "+
 		"(default: local midnight of 2000-01-01, a Monday 2000-01-03 for week steps)", func(v string) error {
 		t, err := time.Parse(time.RFC3339Nano, v)
@@ -81,7 +87,7 @@ func seriesCreate(args []string, stdout, stderr io.Writer) error {
 	defer cancel()
 	resp, err := aftercastv1.NewSeriesServiceClient(conn).CreateSeries(ctx, &aftercastv1.CreateSeriesRequest{Series: &s})
 	if status.Code(err) == codes.AlreadyExists {
-		return fmt.Errorf("series %s already exists with different settings, which never change in place: use another key", s.Key)
+		return fmt.Errorf("series %s already exists with different settings: step, horizon, zone and grid never change in place (use another key); `aftercast series update` changes the error scale and decision leads", s.Key)
 	}
 	if err != nil {
 		return cf.rpcError(err, "")
@@ -91,6 +97,93 @@ func seriesCreate(args []string, stdout, stderr io.Writer) error {
 	} else {
 		fmt.Fprintf(stdout, "series %s already exists with the same settings\n", s.Key)
 	}
+	return nil
+}
+
+const errorScaleHelp = "how errors are scaled before they are judged: auto (divided by a power of the forecast level " +
+	"fitted to each baseline, so a high season is judged against what the backtest promised at such levels) or absolute (as they are)"
+
+func parseErrorScale(v string) (aftercastv1.ErrorScale, error) {
+	switch v {
+	case "auto":
+		return aftercastv1.ErrorScale_ERROR_SCALE_AUTO, nil
+	case "absolute":
+		return aftercastv1.ErrorScale_ERROR_SCALE_ABSOLUTE, nil
+	}
+	return 0, errors.New("want auto or absolute")
+}
+
+// errorScaleName is the CLI's name of a mode.
+func errorScaleName(e aftercastv1.ErrorScale) string {
+	if e == aftercastv1.ErrorScale_ERROR_SCALE_ABSOLUTE {
+		return "absolute"
+	}
+	return "auto"
+}
+
+// seriesUpdate changes the settings that only decide how the stored data
+// is judged; the service then replays the production period.
+func seriesUpdate(args []string, stdout, stderr io.Writer) error {
+	fs := newFlags("series update", "KEY", stderr)
+	cf := addClientFlags(fs)
+	var (
+		s    aftercastv1.Series
+		mask []string
+	)
+	fs.Func("error-scale", errorScaleHelp, func(v string) (err error) {
+		s.ErrorScale, err = parseErrorScale(v)
+		mask = append(mask, "error_scale")
+		return err
+	})
+	fs.Func("decision-leads", "leads the business acts on, e.g. 25-48, or all", func(v string) error {
+		s.DecisionLeads = nil
+		if v != "all" {
+			leads, err := scoring.ParseLeads(v)
+			if err != nil {
+				return err
+			}
+			for _, h := range leads {
+				s.DecisionLeads = append(s.DecisionLeads, int32(h))
+			}
+		}
+		mask = append(mask, "decision_leads")
+		return nil
+	})
+	pos, err := parseArgs(fs, args)
+	if err != nil {
+		return err
+	}
+	if len(pos) != 1 || len(mask) == 0 {
+		if len(pos) == 1 {
+			fmt.Fprintln(stderr, "aftercast series update: give --error-scale or --decision-leads")
+		}
+		fs.Usage()
+		return errUsage
+	}
+	if err := textArg("KEY", pos[0]); err != nil {
+		return err
+	}
+	s.Key = pos[0]
+	conn, err := cf.dial()
+	if err != nil {
+		return err
+	}
+	defer conn.Close()
+	ctx, cancel := cf.call()
+	defer cancel()
+	resp, err := aftercastv1.NewSeriesServiceClient(conn).UpdateSeries(ctx, &aftercastv1.UpdateSeriesRequest{Series: &s,
+		UpdateMask: &fieldmaskpb.FieldMask{Paths: mask}})
+	if err != nil {
+		return cf.rpcError(err, fmt.Sprintf("series %s", s.Key))
+	}
+	got := resp.GetSeries()
+	if !resp.GetChanged() {
+		fmt.Fprintf(stdout, "series %s already has error scale %s and decision leads %s: nothing changed\n",
+			s.Key, errorScaleName(got.GetErrorScale()), decisionLeads(got))
+		return nil
+	}
+	fmt.Fprintf(stdout, "series %s: error scale %s, decision leads %s; its production period is being re-judged "+
+		"(events with cause baseline; `aftercast drift` shows when it is done)\n", s.Key, errorScaleName(got.GetErrorScale()), decisionLeads(got))
 	return nil
 }
 
@@ -125,8 +218,8 @@ func seriesGet(args []string, stdout, stderr io.Writer) error {
 	}
 	tw := tabwriter.NewWriter(stdout, 0, 0, 2, ' ', 0)
 	o := seriesOut(s)
-	fmt.Fprintf(tw, "key\t%s\nstep\t%s\ngrid from\t%s\nhorizon\t%d\nseason\t%d\nunit\t%s\ntime zone\t%s\ndecision leads\t%s\ncreated\t%s\n",
-		o.Key, o.Step, orDash(o.GridAnchorTime), o.Horizon, o.Season, orDash(o.Unit), o.TimeZone, decisionLeads(s), orDash(o.CreateTime))
+	fmt.Fprintf(tw, "key\t%s\nstep\t%s\ngrid from\t%s\nhorizon\t%d\nseason\t%d\nunit\t%s\ntime zone\t%s\ndecision leads\t%s\nerror scale\t%s\ncreated\t%s\n",
+		o.Key, o.Step, orDash(o.GridAnchorTime), o.Horizon, o.Season, orDash(o.Unit), o.TimeZone, decisionLeads(s), o.ErrorScale, orDash(o.CreateTime))
 	return tw.Flush()
 }
 
@@ -175,11 +268,11 @@ func seriesList(args []string, stdout, stderr io.Writer) error {
 		return nil
 	}
 	tw := tabwriter.NewWriter(stdout, 0, 0, 2, ' ', 0)
-	fmt.Fprintln(tw, "KEY\tSTEP\tHORIZON\tSEASON\tUNIT\tTIME ZONE\tDECISION LEADS\tCREATED")
+	fmt.Fprintln(tw, "KEY\tSTEP\tHORIZON\tSEASON\tUNIT\tTIME ZONE\tDECISION LEADS\tERROR SCALE\tCREATED")
 	for _, s := range all {
 		o := seriesOut(s)
-		fmt.Fprintf(tw, "%s\t%s\t%d\t%d\t%s\t%s\t%s\t%s\n", o.Key, o.Step, o.Horizon, o.Season, orDash(o.Unit),
-			o.TimeZone, decisionLeads(s), orDash(o.CreateTime))
+		fmt.Fprintf(tw, "%s\t%s\t%d\t%d\t%s\t%s\t%s\t%s\t%s\n", o.Key, o.Step, o.Horizon, o.Season, orDash(o.Unit),
+			o.TimeZone, decisionLeads(s), o.ErrorScale, orDash(o.CreateTime))
 	}
 	return tw.Flush()
 }
@@ -195,12 +288,13 @@ type seriesJSON struct {
 	TimeZone       string  `json:"time_zone"`
 	DecisionLeads  []int32 `json:"decision_leads"` // empty: all leads
 	GridAnchorTime string  `json:"grid_anchor_time"`
+	ErrorScale     string  `json:"error_scale"` // auto or absolute
 	CreateTime     string  `json:"create_time"`
 }
 
 func seriesOut(s *aftercastv1.Series) seriesJSON {
 	o := seriesJSON{Key: s.GetKey(), Step: s.GetStep(), Horizon: s.GetHorizon(), Season: s.GetSeason(), Unit: s.GetUnit(),
-		TimeZone: s.GetTimeZone(), DecisionLeads: append([]int32{}, s.GetDecisionLeads()...)}
+		TimeZone: s.GetTimeZone(), DecisionLeads: append([]int32{}, s.GetDecisionLeads()...), ErrorScale: errorScaleName(s.GetErrorScale())}
 	if s.GetCreateTime() != nil {
 		o.CreateTime = s.GetCreateTime().AsTime().Format(time.RFC3339Nano)
 	}

@@ -12,14 +12,15 @@ import (
 )
 
 // refKey names a prepared baseline. A baseline version never changes once
-// stored; the series' horizon and decision leads are part of the key
-// because the pooled quantity depends on them.
+// stored; the series' horizon, decision leads and error scale are part of
+// the key because the pooled quantity and the scales depend on them.
 type refKey struct {
 	series   int64
 	model    string
 	version  int
 	horizon  int
 	decision string
+	mode     scoring.ScaleMode
 }
 
 // refCache keeps the most recently used prepared baselines. Preparing one
@@ -68,7 +69,7 @@ func (c *refCache) put(k refKey, r *scoring.Reference) {
 // reference returns the prepared baseline version of (se, model).
 func (e *Evaluator) reference(ctx context.Context, se *store.Series, model string, version int) (*scoring.Reference, error) {
 	dec := se.Decision()
-	k := refKey{se.ID, model, version, se.Horizon, fmt.Sprint(dec)}
+	k := refKey{se.ID, model, version, se.Horizon, fmt.Sprint(dec), se.ErrorScale}
 	if r := e.refs.get(k); r != nil {
 		return r, nil
 	}
@@ -77,7 +78,7 @@ func (e *Evaluator) reference(ctx context.Context, se *store.Series, model strin
 		return nil, err
 	}
 	r := scoring.NewReference(backtestPairs(b), scoring.ReferenceSpec{Horizon: se.Horizon, Decision: slices.Clone(dec),
-		Window: scoring.DriftWindow, MASEScale: b.MASEScale})
+		Window: scoring.DriftWindow, MASEScale: b.MASEScale, Mode: se.ErrorScale})
 	e.refs.put(k, r)
 	return r, nil
 }

@@ -10,6 +10,7 @@
 package drift
 
 import (
+	"cmp"
 	"context"
 	"fmt"
 	"log/slog"
@@ -415,7 +416,7 @@ func (j *job) event(ev scoring.Event, now time.Time) store.DriftEvent {
 	}
 	out.Value, out.Limit, out.KEff = ev.Value, ev.Limit, ev.KEff
 	if l := j.ref.Lead(ev.Lead); l != nil && ev.N > 0 {
-		b := l.Bands(ev.N)
+		b := l.Bands(ev.N).InUnits(scoring.WindowValues{N: ev.N, Scale: cmp.Or(ev.Scale, 1), ScaleRMSE: 1})
 		if ev.Metric == scoring.MetricME {
 			out.BandLower, out.BandUpper = b.ME.AlarmLower, b.ME.AlarmUpper
 		} else {

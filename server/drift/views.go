@@ -27,7 +27,7 @@ func snapshotOf(st scoring.Status) store.Snapshot {
 	if a := b.MAE; a.Metric != "" {
 		snap.MAEExpected, snap.MAEBandLower, snap.MAEBandUpper, snap.MAEAlarmLimit = fin(a.Expected), fin(a.Lower), fin(a.Upper), fin(a.AlarmUpper)
 		snap.KEff = fin(a.KEff)
-		if w.MAE > a.AlarmUpper {
+		if w.JudgedMAE > st.Judged.MAE.AlarmUpper {
 			snap.Breached = append(snap.Breached, scoring.MetricMAE)
 		}
 	}
@@ -38,7 +38,7 @@ func snapshotOf(st scoring.Status) store.Snapshot {
 	if m := b.ME; m.Metric != "" {
 		snap.MEExpected, snap.MEBandLower, snap.MEBandUpper = fin(m.Expected), fin(m.Lower), fin(m.Upper)
 		snap.MEAlarmLower, snap.MEAlarmUpper = fin(m.AlarmLower), fin(m.AlarmUpper)
-		if w.ME < m.AlarmLower || w.ME > m.AlarmUpper {
+		if j := st.Judged.ME; w.JudgedME < j.AlarmLower || w.JudgedME > j.AlarmUpper {
 			snap.Breached = append(snap.Breached, scoring.MetricME)
 		}
 	}

@@ -168,20 +168,29 @@ func (s *Store) ClaimDrift(ctx context.Context, limit int) (*DriftClaim, error) 
 		return nil, fmt.Errorf("starting transaction: %w", err)
 	}
 	byID := map[int64]*ClaimedSeries{}
-	rows, err = c.tx.Query(ctx, `SELECT id, key FROM series WHERE id = ANY($1)`, c.locked)
+	// The series are read in the snapshot, not from the cache: their error
+	// scale and decision leads are judged with, and another replica may
+	// have changed them (with a mark this claim holds).
+	rows, err = c.tx.Query(ctx, "SELECT "+seriesColumns+" FROM series WHERE id = ANY($1)", c.locked)
 	if err != nil {
 		return nil, fmt.Errorf("claiming drift marks: %w", err)
 	}
-	keys := map[int64]string{}
-	var id int64
-	var key string
-	if _, err := pgx.ForEachRow(rows, []any{&id, &key}, func() error { keys[id] = key; return nil }); err != nil {
+	byKey := map[int64]*Series{}
+	for rows.Next() {
+		se, err := scanSeries(rows)
+		if err != nil {
+			rows.Close()
+			return nil, fmt.Errorf("claiming drift marks: %w", err)
+		}
+		byKey[se.ID] = se
+	}
+	if err := rows.Err(); err != nil {
 		return nil, fmt.Errorf("claiming drift marks: %w", err)
 	}
 	for _, id := range c.locked {
-		se, err := s.seriesByKey(ctx, keys[id])
-		if err != nil {
-			return nil, err
+		se := byKey[id]
+		if se == nil {
+			continue // deleted meanwhile: nothing to judge
 		}
 		cs := &ClaimedSeries{Series: se, States: map[string][]DriftStatus{}}
 		c.Series = append(c.Series, cs)

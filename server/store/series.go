@@ -25,14 +25,27 @@ type Series struct {
 	Unit          string
 	TimeZone      string
 	DecisionLeads []int // empty = all leads
+	// ErrorScale is how errors are scaled before they are judged
+	// (method.md §4a); "" on create means auto. It and DecisionLeads are
+	// the settings UpdateSeries may change.
+	ErrorScale scoring.ScaleMode
 	// GridAnchor is where the series' grid starts: origins and actual
 	// times are GridAnchor + k·step. Zero on create means the default
 	// (scoring.DefaultAnchor); a stored series always has it set.
 	GridAnchor time.Time
 	CreatedAt  time.Time
 
-	step scoring.Step
+	step     scoring.Step
+	cachedAt time.Time // when it was read; see seriesCacheTTL
 }
+
+// seriesCacheTTL bounds how long a replica serves a series from its cache.
+// Step, horizon, zone and grid never change, but another replica may
+// update the error scale or the decision leads; the evaluator reads those
+// fresh when it judges, and the rest of a replica follows within this.
+const seriesCacheTTL = 5 * time.Second
+
+func (s *Series) fresh() bool { return time.Since(s.cachedAt) < seriesCacheTTL }
 
 // StepValue is the parsed step in the series' zone.
 func (s *Series) StepValue() scoring.Step { return s.step }
@@ -87,6 +100,9 @@ func (s *Series) validate(maxHorizon int) error {
 	if s.Season < 0 {
 		bad("season", "want 0 (none) or a positive number of steps, got %d", s.Season)
 	}
+	if s.ErrorScale, err = scoring.ParseScaleMode(string(s.ErrorScale)); err != nil {
+		bad("error_scale", "want auto or absolute, got %q", s.ErrorScale)
+	}
 	if len(s.Unit) > 64 {
 		bad("unit", "at most 64 bytes")
 	}
@@ -106,7 +122,8 @@ func (s *Series) validate(maxHorizon int) error {
 
 func (s *Series) sameSettings(o *Series) bool {
 	return s.Step == o.Step && s.Horizon == o.Horizon && s.Season == o.Season && s.Unit == o.Unit &&
-		s.TimeZone == o.TimeZone && slices.Equal(s.DecisionLeads, o.DecisionLeads) && s.GridAnchor.Equal(o.GridAnchor)
+		s.TimeZone == o.TimeZone && slices.Equal(s.DecisionLeads, o.DecisionLeads) && s.GridAnchor.Equal(o.GridAnchor) &&
+		s.ErrorScale == o.ErrorScale
 }
 
 // CreateSeries creates a series. Creating one that exists with identical
@@ -119,10 +136,11 @@ func (s *Store) CreateSeries(ctx context.Context, in Series) (out Series, create
 	if in.DecisionLeads == nil {
 		in.DecisionLeads = []int{}
 	}
-	err = s.pool.QueryRow(ctx, `INSERT INTO series (key, step, horizon, season, unit, time_zone, decision_leads, grid_anchor)
-		VALUES ($1, $2, $3, $4, $5, $6, $7, $8) ON CONFLICT (key) DO NOTHING RETURNING id, created_at`,
-		in.Key, in.Step, in.Horizon, in.Season, in.Unit, in.TimeZone, in.DecisionLeads, in.GridAnchor).Scan(&in.ID, &in.CreatedAt)
+	err = s.pool.QueryRow(ctx, `INSERT INTO series (key, step, horizon, season, unit, time_zone, decision_leads, grid_anchor, error_scale)
+		VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9) ON CONFLICT (key) DO NOTHING RETURNING id, created_at`,
+		in.Key, in.Step, in.Horizon, in.Season, in.Unit, in.TimeZone, in.DecisionLeads, in.GridAnchor, string(in.ErrorScale)).Scan(&in.ID, &in.CreatedAt)
 	if err == nil {
+		in.cachedAt = time.Now()
 		s.remember(&in)
 		return in, true, nil
 	}
@@ -139,21 +157,75 @@ func (s *Store) CreateSeries(ctx context.Context, in Series) (out Series, create
 	return existing, false, nil
 }
 
+// SeriesUpdate is what UpdateSeries changes: the fields that are set.
+type SeriesUpdate struct {
+	ErrorScale    *scoring.ScaleMode
+	DecisionLeads *[]int // empty: all leads
+}
+
+// UpdateSeries changes a series' error scale or decision leads. Both
+// change what the stored production data is judged against, so a change
+// marks every model of the series for a replay of its whole production
+// period (cause baseline, method.md §5), in the same transaction. changed
+// is false when the settings were already so; nothing is marked then.
+func (s *Store) UpdateSeries(ctx context.Context, key string, u SeriesUpdate) (out Series, changed bool, err error) {
+	err = s.inTx(ctx, func(tx pgx.Tx) error {
+		se, err := scanSeries(tx.QueryRow(ctx, "SELECT "+seriesColumns+" FROM series WHERE key = $1 FOR UPDATE", key))
+		if errors.Is(err, pgx.ErrNoRows) {
+			return fmt.Errorf("series %q: %w", key, ErrNotFound)
+		}
+		if err != nil {
+			return fmt.Errorf("reading series: %w", err)
+		}
+		next := *se
+		if u.ErrorScale != nil {
+			next.ErrorScale = *u.ErrorScale
+		}
+		if u.DecisionLeads != nil {
+			next.DecisionLeads = slices.Clone(*u.DecisionLeads)
+			if next.DecisionLeads == nil {
+				next.DecisionLeads = []int{}
+			}
+		}
+		if err := next.validate(max(s.limits.MaxHorizon, se.Horizon)); err != nil {
+			return err
+		}
+		out = next
+		if next.ErrorScale == se.ErrorScale && slices.Equal(next.DecisionLeads, se.DecisionLeads) {
+			return nil
+		}
+		changed = true
+		b := &pgx.Batch{}
+		b.Queue(`UPDATE series SET error_scale = $2, decision_leads = $3 WHERE id = $1`, se.ID, string(next.ErrorScale), next.DecisionLeads)
+		b.Queue(`INSERT INTO drift_marks (series_id, model, from_origin, cause) VALUES ($1, NULL, NULL, 'baseline')`, se.ID)
+		return tx.SendBatch(ctx, b).Close()
+	})
+	if err != nil {
+		return Series{}, false, err
+	}
+	out.cachedAt = time.Now()
+	s.remember(&out)
+	return out, changed, nil
+}
+
 func (s *Store) remember(se *Series) {
 	s.mu.Lock()
 	s.series[se.Key] = se
 	s.mu.Unlock()
 }
 
-const seriesColumns = "id, key, step, horizon, season, unit, time_zone, decision_leads, grid_anchor, created_at"
+const seriesColumns = "id, key, step, horizon, season, unit, time_zone, decision_leads, grid_anchor, created_at, error_scale"
 
 func scanSeries(row pgx.Row) (*Series, error) {
 	var se Series
 	var leads []int32
 	var anchor pgtype.Timestamptz
-	if err := row.Scan(&se.ID, &se.Key, &se.Step, &se.Horizon, &se.Season, &se.Unit, &se.TimeZone, &leads, &anchor, &se.CreatedAt); err != nil {
+	var mode string
+	if err := row.Scan(&se.ID, &se.Key, &se.Step, &se.Horizon, &se.Season, &se.Unit, &se.TimeZone, &leads, &anchor, &se.CreatedAt, &mode); err != nil {
 		return nil, err
 	}
+	se.ErrorScale = scoring.ScaleMode(mode)
+	se.cachedAt = time.Now()
 	se.DecisionLeads = make([]int, len(leads))
 	for i, h := range leads {
 		se.DecisionLeads[i] = int(h)
@@ -185,7 +257,7 @@ func (s *Store) seriesByKey(ctx context.Context, key string) (*Series, error) {
 	s.mu.RLock()
 	se := s.series[key]
 	s.mu.RUnlock()
-	if se != nil {
+	if se != nil && se.fresh() {
 		return se, nil
 	}
 	if !ValidKey(key) {
@@ -211,7 +283,7 @@ func (s *Store) seriesByKeys(ctx context.Context, keys []string) (map[string]*Se
 	var missing []string
 	s.mu.RLock()
 	for _, k := range keys {
-		if se := s.series[k]; se != nil {
+		if se := s.series[k]; se != nil && se.fresh() {
 			out[k] = se
 		} else if ValidKey(k) { // an invalid key is unknown without asking (see seriesByKey)
 			missing = append(missing, k)

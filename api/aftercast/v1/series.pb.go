@@ -9,6 +9,7 @@ package aftercastv1
 import (
 	protoreflect "google.golang.org/protobuf/reflect/protoreflect"
 	protoimpl "google.golang.org/protobuf/runtime/protoimpl"
+	fieldmaskpb "google.golang.org/protobuf/types/known/fieldmaskpb"
 	timestamppb "google.golang.org/protobuf/types/known/timestamppb"
 	reflect "reflect"
 	sync "sync"
@@ -21,6 +22,63 @@ const (
 	// Verify that runtime/protoimpl is sufficiently up-to-date.
 	_ = protoimpl.EnforceVersion(protoimpl.MaxVersion - 20)
 )
+
+// ErrorScale is how a series' errors are scaled before they are judged
+// against the backtest (method.md §4a).
+type ErrorScale int32
+
+const (
+	// On create: ERROR_SCALE_AUTO. Never returned.
+	ErrorScale_ERROR_SCALE_UNSPECIFIED ErrorScale = 0
+	// Errors are divided by max(|forecast|, φ)^b̂, with b̂ and φ fitted to
+	// each baseline (b̂ = 0 when the backtest's level hardly varies or its
+	// error does not grow with it), so a season of high levels and large
+	// errors is judged against what the backtest promised at such levels.
+	ErrorScale_ERROR_SCALE_AUTO ErrorScale = 1
+	// Errors are judged as they are (b = 0): the plain band of method.md §4.
+	ErrorScale_ERROR_SCALE_ABSOLUTE ErrorScale = 2
+)
+
+// Enum value maps for ErrorScale.
+var (
+	ErrorScale_name = map[int32]string{
+		0: "ERROR_SCALE_UNSPECIFIED",
+		1: "ERROR_SCALE_AUTO",
+		2: "ERROR_SCALE_ABSOLUTE",
+	}
+	ErrorScale_value = map[string]int32{
+		"ERROR_SCALE_UNSPECIFIED": 0,
+		"ERROR_SCALE_AUTO":        1,
+		"ERROR_SCALE_ABSOLUTE":    2,
+	}
+)
+
+func (x ErrorScale) Enum() *ErrorScale {
+	p := new(ErrorScale)
+	*p = x
+	return p
+}
+
+func (x ErrorScale) String() string {
+	return protoimpl.X.EnumStringOf(x.Descriptor(), protoreflect.EnumNumber(x))
+}
+
+func (ErrorScale) Descriptor() protoreflect.EnumDescriptor {
+	return file_aftercast_v1_series_proto_enumTypes[0].Descriptor()
+}
+
+func (ErrorScale) Type() protoreflect.EnumType {
+	return &file_aftercast_v1_series_proto_enumTypes[0]
+}
+
+func (x ErrorScale) Number() protoreflect.EnumNumber {
+	return protoreflect.EnumNumber(x)
+}
+
+// Deprecated: Use ErrorScale.Descriptor instead.
+func (ErrorScale) EnumDescriptor() ([]byte, []int) {
+	return file_aftercast_v1_series_proto_rawDescGZIP(), []int{0}
+}
 
 // Series is one forecast quantity, such as a substation's heat load or a
 // store's daily sales of one item (method.md §1).
@@ -54,7 +112,8 @@ type Series struct {
 	// Decision leads: the leads the business acts on (for example 4 for a
 	// four-day reorder time), each in 1..horizon. They choose the leads
 	// pooled into the series-level drift state. Empty means all leads
-	// 1..horizon. Returned sorted ascending without repeats.
+	// 1..horizon. Returned sorted ascending without repeats. Changed with
+	// UpdateSeries.
 	DecisionLeads []int32 `protobuf:"varint,7,rep,packed,name=decision_leads,json=decisionLeads,proto3" json:"decision_leads,omitempty"`
 	// Output only: when the series was created. Ignored on create.
 	CreateTime *timestamppb.Timestamp `protobuf:"bytes,8,opt,name=create_time,json=createTime,proto3" json:"create_time,omitempty"`
@@ -67,8 +126,11 @@ type Series struct {
 	// Set it for a daily series whose values are stamped 05:00, for
 	// example. Immutable; always returned.
 	GridAnchorTime *timestamppb.Timestamp `protobuf:"bytes,9,opt,name=grid_anchor_time,json=gridAnchorTime,proto3" json:"grid_anchor_time,omitempty"`
-	unknownFields  protoimpl.UnknownFields
-	sizeCache      protoimpl.SizeCache
+	// How errors are scaled before they are judged. Unspecified on create:
+	// auto. Always returned. Changed with UpdateSeries.
+	ErrorScale    ErrorScale `protobuf:"varint,10,opt,name=error_scale,json=errorScale,proto3,enum=aftercast.v1.ErrorScale" json:"error_scale,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
 }
 
 func (x *Series) Reset() {
@@ -162,6 +224,13 @@ func (x *Series) GetGridAnchorTime() *timestamppb.Timestamp {
 		return x.GridAnchorTime
 	}
 	return nil
+}
+
+func (x *Series) GetErrorScale() ErrorScale {
+	if x != nil {
+		return x.ErrorScale
+	}
+	return ErrorScale_ERROR_SCALE_UNSPECIFIED
 }
 
 // CreateSeriesRequest is the request of SeriesService.CreateSeries.
@@ -636,11 +705,123 @@ func (x *SeriesModel) GetBaselineVersion() int32 {
 	return 0
 }
 
+// UpdateSeriesRequest is the request of SeriesService.UpdateSeries.
+type UpdateSeriesRequest struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// The series, with key set and the fields named in update_mask.
+	Series *Series `protobuf:"bytes,1,opt,name=series,proto3" json:"series,omitempty"`
+	// The fields to change: "error_scale", "decision_leads" (an empty list
+	// means all leads). Required.
+	UpdateMask    *fieldmaskpb.FieldMask `protobuf:"bytes,2,opt,name=update_mask,json=updateMask,proto3" json:"update_mask,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *UpdateSeriesRequest) Reset() {
+	*x = UpdateSeriesRequest{}
+	mi := &file_aftercast_v1_series_proto_msgTypes[10]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *UpdateSeriesRequest) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*UpdateSeriesRequest) ProtoMessage() {}
+
+func (x *UpdateSeriesRequest) ProtoReflect() protoreflect.Message {
+	mi := &file_aftercast_v1_series_proto_msgTypes[10]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use UpdateSeriesRequest.ProtoReflect.Descriptor instead.
+func (*UpdateSeriesRequest) Descriptor() ([]byte, []int) {
+	return file_aftercast_v1_series_proto_rawDescGZIP(), []int{10}
+}
+
+func (x *UpdateSeriesRequest) GetSeries() *Series {
+	if x != nil {
+		return x.Series
+	}
+	return nil
+}
+
+func (x *UpdateSeriesRequest) GetUpdateMask() *fieldmaskpb.FieldMask {
+	if x != nil {
+		return x.UpdateMask
+	}
+	return nil
+}
+
+// UpdateSeriesResponse is the response of SeriesService.UpdateSeries.
+type UpdateSeriesResponse struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// The series as stored after the update.
+	Series *Series `protobuf:"bytes,1,opt,name=series,proto3" json:"series,omitempty"`
+	// True when a setting changed and the production period is being
+	// re-judged.
+	Changed       bool `protobuf:"varint,2,opt,name=changed,proto3" json:"changed,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *UpdateSeriesResponse) Reset() {
+	*x = UpdateSeriesResponse{}
+	mi := &file_aftercast_v1_series_proto_msgTypes[11]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *UpdateSeriesResponse) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*UpdateSeriesResponse) ProtoMessage() {}
+
+func (x *UpdateSeriesResponse) ProtoReflect() protoreflect.Message {
+	mi := &file_aftercast_v1_series_proto_msgTypes[11]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use UpdateSeriesResponse.ProtoReflect.Descriptor instead.
+func (*UpdateSeriesResponse) Descriptor() ([]byte, []int) {
+	return file_aftercast_v1_series_proto_rawDescGZIP(), []int{11}
+}
+
+func (x *UpdateSeriesResponse) GetSeries() *Series {
+	if x != nil {
+		return x.Series
+	}
+	return nil
+}
+
+func (x *UpdateSeriesResponse) GetChanged() bool {
+	if x != nil {
+		return x.Changed
+	}
+	return false
+}
+
 var File_aftercast_v1_series_proto protoreflect.FileDescriptor
 
 const file_aftercast_v1_series_proto_rawDesc = "" +
 	"\n" +
-	"\x19aftercast/v1/series.proto\x12\faftercast.v1\x1a\x1fgoogle/protobuf/timestamp.proto\"\xbb\x02\n" +
+	"\x19aftercast/v1/series.proto\x12\faftercast.v1\x1a google/protobuf/field_mask.proto\x1a\x1fgoogle/protobuf/timestamp.proto\"\xf6\x02\n" +
 	"\x06Series\x12\x10\n" +
 	"\x03key\x18\x01 \x01(\tR\x03key\x12\x12\n" +
 	"\x04step\x18\x02 \x01(\tR\x04step\x12\x18\n" +
@@ -651,7 +832,10 @@ const file_aftercast_v1_series_proto_rawDesc = "" +
 	"\x0edecision_leads\x18\a \x03(\x05R\rdecisionLeads\x12;\n" +
 	"\vcreate_time\x18\b \x01(\v2\x1a.google.protobuf.TimestampR\n" +
 	"createTime\x12D\n" +
-	"\x10grid_anchor_time\x18\t \x01(\v2\x1a.google.protobuf.TimestampR\x0egridAnchorTime\"C\n" +
+	"\x10grid_anchor_time\x18\t \x01(\v2\x1a.google.protobuf.TimestampR\x0egridAnchorTime\x129\n" +
+	"\verror_scale\x18\n" +
+	" \x01(\x0e2\x18.aftercast.v1.ErrorScaleR\n" +
+	"errorScale\"C\n" +
 	"\x13CreateSeriesRequest\x12,\n" +
 	"\x06series\x18\x01 \x01(\v2\x14.aftercast.v1.SeriesR\x06series\"^\n" +
 	"\x14CreateSeriesResponse\x12,\n" +
@@ -677,14 +861,27 @@ const file_aftercast_v1_series_proto_rawDesc = "" +
 	"\vSeriesModel\x12\x14\n" +
 	"\x05model\x18\x01 \x01(\tR\x05model\x12D\n" +
 	"\x10last_origin_time\x18\x02 \x01(\v2\x1a.google.protobuf.TimestampR\x0elastOriginTime\x12)\n" +
-	"\x10baseline_version\x18\x03 \x01(\x05R\x0fbaselineVersion2\xd6\x02\n" +
+	"\x10baseline_version\x18\x03 \x01(\x05R\x0fbaselineVersion\"\x80\x01\n" +
+	"\x13UpdateSeriesRequest\x12,\n" +
+	"\x06series\x18\x01 \x01(\v2\x14.aftercast.v1.SeriesR\x06series\x12;\n" +
+	"\vupdate_mask\x18\x02 \x01(\v2\x1a.google.protobuf.FieldMaskR\n" +
+	"updateMask\"^\n" +
+	"\x14UpdateSeriesResponse\x12,\n" +
+	"\x06series\x18\x01 \x01(\v2\x14.aftercast.v1.SeriesR\x06series\x12\x18\n" +
+	"\achanged\x18\x02 \x01(\bR\achanged*Y\n" +
+	"\n" +
+	"ErrorScale\x12\x1b\n" +
+	"\x17ERROR_SCALE_UNSPECIFIED\x10\x00\x12\x14\n" +
+	"\x10ERROR_SCALE_AUTO\x10\x01\x12\x18\n" +
+	"\x14ERROR_SCALE_ABSOLUTE\x10\x022\xad\x03\n" +
 	"\rSeriesService\x12U\n" +
 	"\fCreateSeries\x12!.aftercast.v1.CreateSeriesRequest\x1a\".aftercast.v1.CreateSeriesResponse\x12L\n" +
 	"\tGetSeries\x12\x1e.aftercast.v1.GetSeriesRequest\x1a\x1f.aftercast.v1.GetSeriesResponse\x12O\n" +
 	"\n" +
 	"ListSeries\x12\x1f.aftercast.v1.ListSeriesRequest\x1a .aftercast.v1.ListSeriesResponse\x12O\n" +
 	"\n" +
-	"ListModels\x12\x1f.aftercast.v1.ListModelsRequest\x1a .aftercast.v1.ListModelsResponseB=Z;github.com/aftercast/aftercast/api/aftercast/v1;aftercastv1b\x06proto3"
+	"ListModels\x12\x1f.aftercast.v1.ListModelsRequest\x1a .aftercast.v1.ListModelsResponse\x12U\n" +
+	"\fUpdateSeries\x12!.aftercast.v1.UpdateSeriesRequest\x1a\".aftercast.v1.UpdateSeriesResponseB=Z;github.com/aftercast/aftercast/api/aftercast/v1;aftercastv1b\x06proto3"
 
 var (
 	file_aftercast_v1_series_proto_rawDescOnce sync.Once
@@ -698,42 +895,53 @@ func file_aftercast_v1_series_proto_rawDescGZIP() []byte {
 	return file_aftercast_v1_series_proto_rawDescData
 }
 
-var file_aftercast_v1_series_proto_msgTypes = make([]protoimpl.MessageInfo, 10)
+var file_aftercast_v1_series_proto_enumTypes = make([]protoimpl.EnumInfo, 1)
+var file_aftercast_v1_series_proto_msgTypes = make([]protoimpl.MessageInfo, 12)
 var file_aftercast_v1_series_proto_goTypes = []any{
-	(*Series)(nil),                // 0: aftercast.v1.Series
-	(*CreateSeriesRequest)(nil),   // 1: aftercast.v1.CreateSeriesRequest
-	(*CreateSeriesResponse)(nil),  // 2: aftercast.v1.CreateSeriesResponse
-	(*GetSeriesRequest)(nil),      // 3: aftercast.v1.GetSeriesRequest
-	(*GetSeriesResponse)(nil),     // 4: aftercast.v1.GetSeriesResponse
-	(*ListSeriesRequest)(nil),     // 5: aftercast.v1.ListSeriesRequest
-	(*ListSeriesResponse)(nil),    // 6: aftercast.v1.ListSeriesResponse
-	(*ListModelsRequest)(nil),     // 7: aftercast.v1.ListModelsRequest
-	(*ListModelsResponse)(nil),    // 8: aftercast.v1.ListModelsResponse
-	(*SeriesModel)(nil),           // 9: aftercast.v1.SeriesModel
-	(*timestamppb.Timestamp)(nil), // 10: google.protobuf.Timestamp
+	(ErrorScale)(0),               // 0: aftercast.v1.ErrorScale
+	(*Series)(nil),                // 1: aftercast.v1.Series
+	(*CreateSeriesRequest)(nil),   // 2: aftercast.v1.CreateSeriesRequest
+	(*CreateSeriesResponse)(nil),  // 3: aftercast.v1.CreateSeriesResponse
+	(*GetSeriesRequest)(nil),      // 4: aftercast.v1.GetSeriesRequest
+	(*GetSeriesResponse)(nil),     // 5: aftercast.v1.GetSeriesResponse
+	(*ListSeriesRequest)(nil),     // 6: aftercast.v1.ListSeriesRequest
+	(*ListSeriesResponse)(nil),    // 7: aftercast.v1.ListSeriesResponse
+	(*ListModelsRequest)(nil),     // 8: aftercast.v1.ListModelsRequest
+	(*ListModelsResponse)(nil),    // 9: aftercast.v1.ListModelsResponse
+	(*SeriesModel)(nil),           // 10: aftercast.v1.SeriesModel
+	(*UpdateSeriesRequest)(nil),   // 11: aftercast.v1.UpdateSeriesRequest
+	(*UpdateSeriesResponse)(nil),  // 12: aftercast.v1.UpdateSeriesResponse
+	(*timestamppb.Timestamp)(nil), // 13: google.protobuf.Timestamp
+	(*fieldmaskpb.FieldMask)(nil), // 14: google.protobuf.FieldMask
 }
 var file_aftercast_v1_series_proto_depIdxs = []int32{
-	10, // 0: aftercast.v1.Series.create_time:type_name -> google.protobuf.Timestamp
-	10, // 1: aftercast.v1.Series.grid_anchor_time:type_name -> google.protobuf.Timestamp
-	0,  // 2: aftercast.v1.CreateSeriesRequest.series:type_name -> aftercast.v1.Series
-	0,  // 3: aftercast.v1.CreateSeriesResponse.series:type_name -> aftercast.v1.Series
-	0,  // 4: aftercast.v1.GetSeriesResponse.series:type_name -> aftercast.v1.Series
-	0,  // 5: aftercast.v1.ListSeriesResponse.series:type_name -> aftercast.v1.Series
-	9,  // 6: aftercast.v1.ListModelsResponse.models:type_name -> aftercast.v1.SeriesModel
-	10, // 7: aftercast.v1.SeriesModel.last_origin_time:type_name -> google.protobuf.Timestamp
-	1,  // 8: aftercast.v1.SeriesService.CreateSeries:input_type -> aftercast.v1.CreateSeriesRequest
-	3,  // 9: aftercast.v1.SeriesService.GetSeries:input_type -> aftercast.v1.GetSeriesRequest
-	5,  // 10: aftercast.v1.SeriesService.ListSeries:input_type -> aftercast.v1.ListSeriesRequest
-	7,  // 11: aftercast.v1.SeriesService.ListModels:input_type -> aftercast.v1.ListModelsRequest
-	2,  // 12: aftercast.v1.SeriesService.CreateSeries:output_type -> aftercast.v1.CreateSeriesResponse
-	4,  // 13: aftercast.v1.SeriesService.GetSeries:output_type -> aftercast.v1.GetSeriesResponse
-	6,  // 14: aftercast.v1.SeriesService.ListSeries:output_type -> aftercast.v1.ListSeriesResponse
-	8,  // 15: aftercast.v1.SeriesService.ListModels:output_type -> aftercast.v1.ListModelsResponse
-	12, // [12:16] is the sub-list for method output_type
-	8,  // [8:12] is the sub-list for method input_type
-	8,  // [8:8] is the sub-list for extension type_name
-	8,  // [8:8] is the sub-list for extension extendee
-	0,  // [0:8] is the sub-list for field type_name
+	13, // 0: aftercast.v1.Series.create_time:type_name -> google.protobuf.Timestamp
+	13, // 1: aftercast.v1.Series.grid_anchor_time:type_name -> google.protobuf.Timestamp
+	0,  // 2: aftercast.v1.Series.error_scale:type_name -> aftercast.v1.ErrorScale
+	1,  // 3: aftercast.v1.CreateSeriesRequest.series:type_name -> aftercast.v1.Series
+	1,  // 4: aftercast.v1.CreateSeriesResponse.series:type_name -> aftercast.v1.Series
+	1,  // 5: aftercast.v1.GetSeriesResponse.series:type_name -> aftercast.v1.Series
+	1,  // 6: aftercast.v1.ListSeriesResponse.series:type_name -> aftercast.v1.Series
+	10, // 7: aftercast.v1.ListModelsResponse.models:type_name -> aftercast.v1.SeriesModel
+	13, // 8: aftercast.v1.SeriesModel.last_origin_time:type_name -> google.protobuf.Timestamp
+	1,  // 9: aftercast.v1.UpdateSeriesRequest.series:type_name -> aftercast.v1.Series
+	14, // 10: aftercast.v1.UpdateSeriesRequest.update_mask:type_name -> google.protobuf.FieldMask
+	1,  // 11: aftercast.v1.UpdateSeriesResponse.series:type_name -> aftercast.v1.Series
+	2,  // 12: aftercast.v1.SeriesService.CreateSeries:input_type -> aftercast.v1.CreateSeriesRequest
+	4,  // 13: aftercast.v1.SeriesService.GetSeries:input_type -> aftercast.v1.GetSeriesRequest
+	6,  // 14: aftercast.v1.SeriesService.ListSeries:input_type -> aftercast.v1.ListSeriesRequest
+	8,  // 15: aftercast.v1.SeriesService.ListModels:input_type -> aftercast.v1.ListModelsRequest
+	11, // 16: aftercast.v1.SeriesService.UpdateSeries:input_type -> aftercast.v1.UpdateSeriesRequest
+	3,  // 17: aftercast.v1.SeriesService.CreateSeries:output_type -> aftercast.v1.CreateSeriesResponse
+	5,  // 18: aftercast.v1.SeriesService.GetSeries:output_type -> aftercast.v1.GetSeriesResponse
+	7,  // 19: aftercast.v1.SeriesService.ListSeries:output_type -> aftercast.v1.ListSeriesResponse
+	9,  // 20: aftercast.v1.SeriesService.ListModels:output_type -> aftercast.v1.ListModelsResponse
+	12, // 21: aftercast.v1.SeriesService.UpdateSeries:output_type -> aftercast.v1.UpdateSeriesResponse
+	17, // [17:22] is the sub-list for method output_type
+	12, // [12:17] is the sub-list for method input_type
+	12, // [12:12] is the sub-list for extension type_name
+	12, // [12:12] is the sub-list for extension extendee
+	0,  // [0:12] is the sub-list for field type_name
 }
 
 func init() { file_aftercast_v1_series_proto_init() }
@@ -746,13 +954,14 @@ func file_aftercast_v1_series_proto_init() {
 		File: protoimpl.DescBuilder{
 			GoPackagePath: reflect.TypeOf(x{}).PkgPath(),
 			RawDescriptor: unsafe.Slice(unsafe.StringData(file_aftercast_v1_series_proto_rawDesc), len(file_aftercast_v1_series_proto_rawDesc)),
-			NumEnums:      0,
-			NumMessages:   10,
+			NumEnums:      1,
+			NumMessages:   12,
 			NumExtensions: 0,
 			NumServices:   1,
 		},
 		GoTypes:           file_aftercast_v1_series_proto_goTypes,
 		DependencyIndexes: file_aftercast_v1_series_proto_depIdxs,
+		EnumInfos:         file_aftercast_v1_series_proto_enumTypes,
 		MessageInfos:      file_aftercast_v1_series_proto_msgTypes,
 	}.Build()
 	File_aftercast_v1_series_proto = out.File

@@ -23,6 +23,7 @@ const (
 	SeriesService_GetSeries_FullMethodName    = "/aftercast.v1.SeriesService/GetSeries"
 	SeriesService_ListSeries_FullMethodName   = "/aftercast.v1.SeriesService/ListSeries"
 	SeriesService_ListModels_FullMethodName   = "/aftercast.v1.SeriesService/ListModels"
+	SeriesService_UpdateSeries_FullMethodName = "/aftercast.v1.SeriesService/UpdateSeries"
 )
 
 // SeriesServiceClient is the client API for SeriesService service.
@@ -34,12 +35,13 @@ const (
 type SeriesServiceClient interface {
 	// CreateSeries registers a series. It is idempotent: creating a series
 	// whose key exists with identical settings (step, horizon, season, unit,
-	// time_zone, decision_leads) changes nothing and returns the stored series
-	// with created = false.
+	// time_zone, decision_leads, grid_anchor_time, error_scale) changes
+	// nothing and returns the stored series with created = false.
 	//
 	// Errors:
-	//   - ALREADY_EXISTS: the key exists with different settings. Settings
-	//     are never changed in place, since stored leads depend on them.
+	//   - ALREADY_EXISTS: the key exists with different settings. Step,
+	//     horizon, zone and grid are never changed, since stored leads depend
+	//     on them; UpdateSeries changes the error scale and decision leads.
 	//   - INVALID_ARGUMENT: a setting is malformed; the status carries a
 	//     google.rpc.BadRequest with one field violation per problem.
 	CreateSeries(ctx context.Context, in *CreateSeriesRequest, opts ...grpc.CallOption) (*CreateSeriesResponse, error)
@@ -50,6 +52,17 @@ type SeriesServiceClient interface {
 	// ListModels lists the models with forecasts or a baseline for one
 	// series, by name. NOT_FOUND for an unknown series.
 	ListModels(ctx context.Context, in *ListModelsRequest, opts ...grpc.CallOption) (*ListModelsResponse, error)
+	// UpdateSeries changes the settings that only decide how the stored data
+	// is judged: error_scale and decision_leads (named in update_mask). A
+	// change replays the whole production period of every model of the
+	// series against its active baseline (method.md §5); the events it
+	// announces have cause "baseline". Updating to the current settings
+	// changes nothing and returns changed = false.
+	//
+	// Errors: NOT_FOUND for an unknown series; INVALID_ARGUMENT for a path
+	// other than those two, or a malformed value (BadRequest field
+	// violations).
+	UpdateSeries(ctx context.Context, in *UpdateSeriesRequest, opts ...grpc.CallOption) (*UpdateSeriesResponse, error)
 }
 
 type seriesServiceClient struct {
@@ -100,6 +113,16 @@ func (c *seriesServiceClient) ListModels(ctx context.Context, in *ListModelsRequ
 	return out, nil
 }
 
+func (c *seriesServiceClient) UpdateSeries(ctx context.Context, in *UpdateSeriesRequest, opts ...grpc.CallOption) (*UpdateSeriesResponse, error) {
+	cOpts := append([]grpc.CallOption{grpc.StaticMethod()}, opts...)
+	out := new(UpdateSeriesResponse)
+	err := c.cc.Invoke(ctx, SeriesService_UpdateSeries_FullMethodName, in, out, cOpts...)
+	if err != nil {
+		return nil, err
+	}
+	return out, nil
+}
+
 // SeriesServiceServer is the server API for SeriesService service.
 // All implementations must embed UnimplementedSeriesServiceServer
 // for forward compatibility.
@@ -109,12 +132,13 @@ func (c *seriesServiceClient) ListModels(ctx context.Context, in *ListModelsRequ
 type SeriesServiceServer interface {
 	// CreateSeries registers a series. It is idempotent: creating a series
 	// whose key exists with identical settings (step, horizon, season, unit,
-	// time_zone, decision_leads) changes nothing and returns the stored series
-	// with created = false.
+	// time_zone, decision_leads, grid_anchor_time, error_scale) changes
+	// nothing and returns the stored series with created = false.
 	//
 	// Errors:
-	//   - ALREADY_EXISTS: the key exists with different settings. Settings
-	//     are never changed in place, since stored leads depend on them.
+	//   - ALREADY_EXISTS: the key exists with different settings. Step,
+	//     horizon, zone and grid are never changed, since stored leads depend
+	//     on them; UpdateSeries changes the error scale and decision leads.
 	//   - INVALID_ARGUMENT: a setting is malformed; the status carries a
 	//     google.rpc.BadRequest with one field violation per problem.
 	CreateSeries(context.Context, *CreateSeriesRequest) (*CreateSeriesResponse, error)
@@ -125,6 +149,17 @@ type SeriesServiceServer interface {
 	// ListModels lists the models with forecasts or a baseline for one
 	// series, by name. NOT_FOUND for an unknown series.
 	ListModels(context.Context, *ListModelsRequest) (*ListModelsResponse, error)
+	// UpdateSeries changes the settings that only decide how the stored data
+	// is judged: error_scale and decision_leads (named in update_mask). A
+	// change replays the whole production period of every model of the
+	// series against its active baseline (method.md §5); the events it
+	// announces have cause "baseline". Updating to the current settings
+	// changes nothing and returns changed = false.
+	//
+	// Errors: NOT_FOUND for an unknown series; INVALID_ARGUMENT for a path
+	// other than those two, or a malformed value (BadRequest field
+	// violations).
+	UpdateSeries(context.Context, *UpdateSeriesRequest) (*UpdateSeriesResponse, error)
 	mustEmbedUnimplementedSeriesServiceServer()
 }
 
@@ -146,6 +181,9 @@ func (UnimplementedSeriesServiceServer) ListSeries(context.Context, *ListSeriesR
 }
 func (UnimplementedSeriesServiceServer) ListModels(context.Context, *ListModelsRequest) (*ListModelsResponse, error) {
 	return nil, status.Error(codes.Unimplemented, "method ListModels not implemented")
+}
+func (UnimplementedSeriesServiceServer) UpdateSeries(context.Context, *UpdateSeriesRequest) (*UpdateSeriesResponse, error) {
+	return nil, status.Error(codes.Unimplemented, "method UpdateSeries not implemented")
 }
 func (UnimplementedSeriesServiceServer) mustEmbedUnimplementedSeriesServiceServer() {}
 func (UnimplementedSeriesServiceServer) testEmbeddedByValue()                       {}
@@ -240,6 +278,24 @@ func _SeriesService_ListModels_Handler(srv interface{}, ctx context.Context, dec
 	return interceptor(ctx, in, info, handler)
 }
 
+func _SeriesService_UpdateSeries_Handler(srv interface{}, ctx context.Context, dec func(interface{}) error, interceptor grpc.UnaryServerInterceptor) (interface{}, error) {
+	in := new(UpdateSeriesRequest)
+	if err := dec(in); err != nil {
+		return nil, err
+	}
+	if interceptor == nil {
+		return srv.(SeriesServiceServer).UpdateSeries(ctx, in)
+	}
+	info := &grpc.UnaryServerInfo{
+		Server:     srv,
+		FullMethod: SeriesService_UpdateSeries_FullMethodName,
+	}
+	handler := func(ctx context.Context, req interface{}) (interface{}, error) {
+		return srv.(SeriesServiceServer).UpdateSeries(ctx, req.(*UpdateSeriesRequest))
+	}
+	return interceptor(ctx, in, info, handler)
+}
+
 // SeriesService_ServiceDesc is the grpc.ServiceDesc for SeriesService service.
 // It's only intended for direct use with grpc.RegisterService,
 // and not to be introspected or modified (even as a copy)
@@ -262,6 +318,10 @@ var SeriesService_ServiceDesc = grpc.ServiceDesc{
 		{
 			MethodName: "ListModels",
 			Handler:    _SeriesService_ListModels_Handler,
+		},
+		{
+			MethodName: "UpdateSeries",
+			Handler:    _SeriesService_UpdateSeries_Handler,
 		},
 	},
 	Streams:  []grpc.StreamDesc{},
