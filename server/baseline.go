@@ -71,9 +71,33 @@ func (s *baselineService) ImportBaseline(stream aftercastv1.BaselineService_Impo
 	s.drift.Wake()
 	resp := &aftercastv1.ImportBaselineResponse{Model: model}
 	for _, v := range vs {
-		resp.Baselines = append(resp.Baselines, &aftercastv1.ImportedBaseline{Version: versionToProto(v), Created: v.Created})
+		ib := &aftercastv1.ImportedBaseline{Version: versionToProto(v), Created: v.Created}
+		if err := s.describeScale(ctx, ib); err != nil {
+			return s.status(ctx, err)
+		}
+		resp.Baselines = append(resp.Baselines, ib)
 	}
 	return stream.SendAndClose(resp)
+}
+
+// describeScale adds the series' error scale and the pooled quantity's b̂
+// to an imported version: preparing it here also warms the evaluator's
+// cache for the replay the import marked.
+func (s *baselineService) describeScale(ctx context.Context, ib *aftercastv1.ImportedBaseline) error {
+	v := ib.GetVersion()
+	se, err := s.store.GetSeries(ctx, v.GetSeries())
+	if err != nil {
+		return err
+	}
+	ib.ErrorScale = errorScaleToProto(se.ErrorScale)
+	_, _, pooled, err := s.drift.BaselineView(ctx, v.GetSeries(), v.GetModel(), int(v.GetVersion()), scoring.DriftWindow)
+	if err != nil {
+		return err
+	}
+	if pooled != nil {
+		ib.PooledErrorScaleExponent = pooled.Scale.B
+	}
+	return nil
 }
 
 var warningKinds = map[string]aftercastv1.BaselineWarningKind{
@@ -184,7 +208,11 @@ func (s *baselineService) GetBaseline(ctx context.Context, req *aftercastv1.GetB
 	if err != nil {
 		return nil, s.status(ctx, err)
 	}
-	resp := &aftercastv1.GetBaselineResponse{Version: versionToProto(v), WindowN: int32(n)}
+	se, err := s.store.GetSeries(ctx, req.GetSeries())
+	if err != nil {
+		return nil, s.status(ctx, err)
+	}
+	resp := &aftercastv1.GetBaselineResponse{Version: versionToProto(v), WindowN: int32(n), ErrorScale: errorScaleToProto(se.ErrorScale)}
 	for _, l := range leads {
 		resp.Leads = append(resp.Leads, leadViewToProto(l))
 	}
@@ -208,7 +236,7 @@ func bandToProto(b scoring.Band) *aftercastv1.MetricBand {
 
 func leadViewToProto(l drift.LeadView) *aftercastv1.BaselineLead {
 	p := &aftercastv1.BaselineLead{Lead: int32(l.Lead), K: int32(l.K), KEff: l.KEff, Mae: bandToProto(l.MAE), Rmse: bandToProto(l.RMSE),
-		Me: bandToProto(l.ME), Usable: l.Usable, UnusableReason: l.Reason}
+		Me: bandToProto(l.ME), Usable: l.Usable, UnusableReason: l.Reason, ErrorScaleExponent: l.Scale.B, ErrorScaleFloor: l.Scale.Phi}
 	if l.Lead > 0 {
 		p.Expected = metricsToProto(l.Expected)
 	}

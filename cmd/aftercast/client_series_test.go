@@ -1,8 +1,13 @@
 package main
 
 import (
+	"encoding/json"
+	"fmt"
+	"math"
+	"math/rand/v2"
 	"strings"
 	"testing"
+	"time"
 
 	"github.com/aftercast/aftercast/server"
 )
@@ -44,5 +49,51 @@ func TestSeriesErrorScale(t *testing.T) {
 	}
 	if code, _, errs := run("series", "update", "es/a"); code != 2 || !strings.Contains(errs, "give --error-scale or --decision-leads") {
 		t.Errorf("nothing to update: exit %d\n%s", code, errs)
+	}
+}
+
+// A backtest whose errors grow with a seasonal level (invented data): the
+// import says the error scale grows with level and baseline show lists b̂
+// and φ per lead; in absolute mode both say errors are judged as they are.
+func TestBaselineReportsTheErrorScale(t *testing.T) {
+	t.Parallel()
+	addr := startService(t, server.Config{})
+	r := rand.New(rand.NewPCG(3, 4))
+	var b strings.Builder
+	b.WriteString("series,origin_time,target_time,forecast,actual\n")
+	t0 := time.Date(2025, 1, 1, 0, 0, 0, 0, time.UTC)
+	for k := range 365 {
+		o := t0.AddDate(0, 0, k)
+		l := 100 * (1 + 0.5*math.Cos(2*math.Pi*float64(k)/365))
+		for _, key := range []string{"es/auto", "es/abs"} {
+			fmt.Fprintf(&b, "%s,%s,%s,%g,%g\n", key, o.Format(time.RFC3339), o.AddDate(0, 0, 1).Format(time.RFC3339), l, l+5*l/100*r.NormFloat64())
+		}
+	}
+	file := writeTemp(t, b.String())
+	for _, c := range [][]string{{"es/auto", "auto"}, {"es/abs", "absolute"}} {
+		if code, out, errs := cliRun("series", "create", "--addr", addr, "--step", "1d", "--horizon", "1", "--error-scale", c[1], c[0]); code != 0 {
+			t.Fatal(out, errs)
+		}
+	}
+	code, out, errs := cliRun("baseline", "import", "--addr", addr, "--model", "m", file)
+	if code != 0 || !strings.Contains(out, "es/auto: version 1 created\n  error scale grows with level: b̂ = ") ||
+		!strings.Contains(out, "es/abs: version 1 created\n  error scale absolute: errors are judged as they are") {
+		t.Fatalf("import: exit %d\n%s%s", code, out, errs)
+	}
+	_, out, _ = cliRun("baseline", "show", "--addr", addr, "--series", "es/auto", "--model", "m", "--format", "json")
+	var doc struct {
+		ErrorScale string `json:"error_scale"`
+		Leads      []struct {
+			B   float64 `json:"error_scale_exponent"`
+			Phi float64 `json:"error_scale_floor"`
+		} `json:"leads"`
+	}
+	if err := json.Unmarshal([]byte(out), &doc); err != nil || doc.ErrorScale != "auto" || len(doc.Leads) != 1 ||
+		doc.Leads[0].B < 0.5 || doc.Leads[0].B > 1 || math.Abs(doc.Leads[0].Phi-5) > 0.01 {
+		t.Errorf("baseline show --format json: %v\n%s", err, out)
+	}
+	if _, out, _ := cliRun("baseline", "show", "--addr", addr, "--series", "es/auto", "--model", "m"); !strings.Contains(out, "B̂") ||
+		!strings.Contains(out, "error scale auto:") {
+		t.Errorf("baseline show:\n%s", out)
 	}
 }

@@ -62,12 +62,13 @@ type LeadView struct {
 	MAE, RMSE, ME scoring.Band    // RMSE is zero for the pooled entry
 	Usable        bool
 	Reason        string
+	Scale         scoring.Scale // b̂ and φ of method.md §4a; the bands are of errors divided by it
 }
 
 func viewOf(l *scoring.LeadReference, n int) LeadView {
 	b := l.Bands(n)
 	return LeadView{Lead: l.Lead, K: l.Abs.K, KEff: l.Abs.KEff, Expected: l.Expected, MAE: b.MAE, RMSE: b.RMSE, ME: b.ME,
-		Usable: l.Verdict.Usable, Reason: l.Verdict.Reason}
+		Usable: l.Verdict.Usable, Reason: l.Verdict.Reason, Scale: l.Scale}
 }
 
 // BaselineView returns a baseline version (0: the active one) with what it

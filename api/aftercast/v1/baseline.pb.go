@@ -373,9 +373,15 @@ type ImportedBaseline struct {
 	Version *BaselineVersion `protobuf:"bytes,1,opt,name=version,proto3" json:"version,omitempty"`
 	// True when the import made this version; false when the upload equalled
 	// the active version and nothing was stored.
-	Created       bool `protobuf:"varint,2,opt,name=created,proto3" json:"created,omitempty"`
-	unknownFields protoimpl.UnknownFields
-	sizeCache     protoimpl.SizeCache
+	Created bool `protobuf:"varint,2,opt,name=created,proto3" json:"created,omitempty"`
+	// The series' error scale, and the exponent b̂ fitted to this version's
+	// pooled decision-lead quantity under it (method.md §4a; 0 in absolute
+	// mode, or when the level hardly varies or the errors do not grow with
+	// it). Absent (0) when no backtest origin has every decision lead.
+	ErrorScale               ErrorScale `protobuf:"varint,3,opt,name=error_scale,json=errorScale,proto3,enum=aftercast.v1.ErrorScale" json:"error_scale,omitempty"`
+	PooledErrorScaleExponent float64    `protobuf:"fixed64,4,opt,name=pooled_error_scale_exponent,json=pooledErrorScaleExponent,proto3" json:"pooled_error_scale_exponent,omitempty"`
+	unknownFields            protoimpl.UnknownFields
+	sizeCache                protoimpl.SizeCache
 }
 
 func (x *ImportedBaseline) Reset() {
@@ -420,6 +426,20 @@ func (x *ImportedBaseline) GetCreated() bool {
 		return x.Created
 	}
 	return false
+}
+
+func (x *ImportedBaseline) GetErrorScale() ErrorScale {
+	if x != nil {
+		return x.ErrorScale
+	}
+	return ErrorScale_ERROR_SCALE_UNSPECIFIED
+}
+
+func (x *ImportedBaseline) GetPooledErrorScaleExponent() float64 {
+	if x != nil {
+		return x.PooledErrorScaleExponent
+	}
+	return 0
 }
 
 // BaselineVersion summarises one baseline version of one (series, model).
@@ -726,6 +746,8 @@ type GetBaselineResponse struct {
 	state protoimpl.MessageState `protogen:"open.v1"`
 	// Summary of the version returned.
 	Version *BaselineVersion `protobuf:"bytes,1,opt,name=version,proto3" json:"version,omitempty"`
+	// The series' error scale the bands below were prepared with.
+	ErrorScale ErrorScale `protobuf:"varint,5,opt,name=error_scale,json=errorScale,proto3,enum=aftercast.v1.ErrorScale" json:"error_scale,omitempty"`
 	// The window size n, in origins, that every band and limit below is for.
 	WindowN int32 `protobuf:"varint,2,opt,name=window_n,json=windowN,proto3" json:"window_n,omitempty"`
 	// One entry per lead with at least one backtest row, ascending by lead.
@@ -776,6 +798,13 @@ func (x *GetBaselineResponse) GetVersion() *BaselineVersion {
 	return nil
 }
 
+func (x *GetBaselineResponse) GetErrorScale() ErrorScale {
+	if x != nil {
+		return x.ErrorScale
+	}
+	return ErrorScale_ERROR_SCALE_UNSPECIFIED
+}
+
 func (x *GetBaselineResponse) GetWindowN() int32 {
 	if x != nil {
 		return x.WindowN
@@ -824,8 +853,17 @@ type BaselineLead struct {
 	// Why the lead is not usable, with K and K_eff, such as "K = 120 < 180";
 	// empty when usable.
 	UnusableReason string `protobuf:"bytes,9,opt,name=unusable_reason,json=unusableReason,proto3" json:"unusable_reason,omitempty"`
-	unknownFields  protoimpl.UnknownFields
-	sizeCache      protoimpl.SizeCache
+	// The level scale of method.md §4a: s(ŷ) = max(|ŷ|, floor)^exponent,
+	// fitted to this lead's backtest (to the pooled quantity's for the
+	// pooled entry). With an exponent above 0, mae, rmse and me (and k_eff)
+	// are of errors divided by s(ŷ), the quantities judged: a live window's
+	// expectation and band in the series' unit are these times the window's
+	// mean s(ŷ) (root mean s(ŷ)² for RMSE), as GetAccuracy and
+	// ListDriftStates report them. expected is always in the series' unit.
+	ErrorScaleExponent float64 `protobuf:"fixed64,10,opt,name=error_scale_exponent,json=errorScaleExponent,proto3" json:"error_scale_exponent,omitempty"`
+	ErrorScaleFloor    float64 `protobuf:"fixed64,11,opt,name=error_scale_floor,json=errorScaleFloor,proto3" json:"error_scale_floor,omitempty"`
+	unknownFields      protoimpl.UnknownFields
+	sizeCache          protoimpl.SizeCache
 }
 
 func (x *BaselineLead) Reset() {
@@ -919,6 +957,20 @@ func (x *BaselineLead) GetUnusableReason() string {
 		return x.UnusableReason
 	}
 	return ""
+}
+
+func (x *BaselineLead) GetErrorScaleExponent() float64 {
+	if x != nil {
+		return x.ErrorScaleExponent
+	}
+	return 0
+}
+
+func (x *BaselineLead) GetErrorScaleFloor() float64 {
+	if x != nil {
+		return x.ErrorScaleFloor
+	}
+	return 0
 }
 
 // ListBaselineVersionsRequest is the request of
@@ -1058,7 +1110,7 @@ var File_aftercast_v1_baseline_proto protoreflect.FileDescriptor
 
 const file_aftercast_v1_baseline_proto_rawDesc = "" +
 	"\n" +
-	"\x1baftercast/v1/baseline.proto\x12\faftercast.v1\x1a\x1aaftercast/v1/metrics.proto\x1a\x1fgoogle/protobuf/timestamp.proto\"\xd3\x01\n" +
+	"\x1baftercast/v1/baseline.proto\x12\faftercast.v1\x1a\x1aaftercast/v1/metrics.proto\x1a\x19aftercast/v1/series.proto\x1a\x1fgoogle/protobuf/timestamp.proto\"\xd3\x01\n" +
 	"\vBacktestRow\x12\x16\n" +
 	"\x06series\x18\x01 \x01(\tR\x06series\x12;\n" +
 	"\vorigin_time\x18\x02 \x01(\v2\x1a.google.protobuf.TimestampR\n" +
@@ -1077,10 +1129,13 @@ const file_aftercast_v1_baseline_proto_rawDesc = "" +
 	"\x10training_actuals\x18\x03 \x03(\v2\x1c.aftercast.v1.TrainingActualR\x0ftrainingActuals\"l\n" +
 	"\x16ImportBaselineResponse\x12\x14\n" +
 	"\x05model\x18\x01 \x01(\tR\x05model\x12<\n" +
-	"\tbaselines\x18\x02 \x03(\v2\x1e.aftercast.v1.ImportedBaselineR\tbaselines\"e\n" +
+	"\tbaselines\x18\x02 \x03(\v2\x1e.aftercast.v1.ImportedBaselineR\tbaselines\"\xdf\x01\n" +
 	"\x10ImportedBaseline\x127\n" +
 	"\aversion\x18\x01 \x01(\v2\x1d.aftercast.v1.BaselineVersionR\aversion\x12\x18\n" +
-	"\acreated\x18\x02 \x01(\bR\acreated\"\xc8\x04\n" +
+	"\acreated\x18\x02 \x01(\bR\acreated\x129\n" +
+	"\verror_scale\x18\x03 \x01(\x0e2\x18.aftercast.v1.ErrorScaleR\n" +
+	"errorScale\x12=\n" +
+	"\x1bpooled_error_scale_exponent\x18\x04 \x01(\x01R\x18pooledErrorScaleExponent\"\xc8\x04\n" +
 	"\x0fBaselineVersion\x12\x16\n" +
 	"\x06series\x18\x01 \x01(\tR\x06series\x12\x14\n" +
 	"\x05model\x18\x02 \x01(\tR\x05model\x12\x18\n" +
@@ -1111,12 +1166,14 @@ const file_aftercast_v1_baseline_proto_rawDesc = "" +
 	"\bwindow_n\x18\x04 \x01(\x05H\x01R\awindowN\x88\x01\x01B\n" +
 	"\n" +
 	"\b_versionB\v\n" +
-	"\t_window_n\"\xcf\x01\n" +
+	"\t_window_n\"\x8a\x02\n" +
 	"\x13GetBaselineResponse\x127\n" +
-	"\aversion\x18\x01 \x01(\v2\x1d.aftercast.v1.BaselineVersionR\aversion\x12\x19\n" +
+	"\aversion\x18\x01 \x01(\v2\x1d.aftercast.v1.BaselineVersionR\aversion\x129\n" +
+	"\verror_scale\x18\x05 \x01(\x0e2\x18.aftercast.v1.ErrorScaleR\n" +
+	"errorScale\x12\x19\n" +
 	"\bwindow_n\x18\x02 \x01(\x05R\awindowN\x120\n" +
 	"\x05leads\x18\x03 \x03(\v2\x1a.aftercast.v1.BaselineLeadR\x05leads\x122\n" +
-	"\x06pooled\x18\x04 \x01(\v2\x1a.aftercast.v1.BaselineLeadR\x06pooled\"\xc5\x02\n" +
+	"\x06pooled\x18\x04 \x01(\v2\x1a.aftercast.v1.BaselineLeadR\x06pooled\"\xa3\x03\n" +
 	"\fBaselineLead\x12\x12\n" +
 	"\x04lead\x18\x01 \x01(\x05R\x04lead\x12\f\n" +
 	"\x01k\x18\x02 \x01(\x05R\x01k\x12\x13\n" +
@@ -1126,7 +1183,10 @@ const file_aftercast_v1_baseline_proto_rawDesc = "" +
 	"\x04rmse\x18\x06 \x01(\v2\x18.aftercast.v1.MetricBandR\x04rmse\x12(\n" +
 	"\x02me\x18\a \x01(\v2\x18.aftercast.v1.MetricBandR\x02me\x12\x16\n" +
 	"\x06usable\x18\b \x01(\bR\x06usable\x12'\n" +
-	"\x0funusable_reason\x18\t \x01(\tR\x0eunusableReason\"\x87\x01\n" +
+	"\x0funusable_reason\x18\t \x01(\tR\x0eunusableReason\x120\n" +
+	"\x14error_scale_exponent\x18\n" +
+	" \x01(\x01R\x12errorScaleExponent\x12*\n" +
+	"\x11error_scale_floor\x18\v \x01(\x01R\x0ferrorScaleFloor\"\x87\x01\n" +
 	"\x1bListBaselineVersionsRequest\x12\x16\n" +
 	"\x06series\x18\x01 \x01(\tR\x06series\x12\x14\n" +
 	"\x05model\x18\x02 \x01(\tR\x05model\x12\x1b\n" +
@@ -1177,8 +1237,9 @@ var file_aftercast_v1_baseline_proto_goTypes = []any{
 	(*ListBaselineVersionsRequest)(nil),  // 11: aftercast.v1.ListBaselineVersionsRequest
 	(*ListBaselineVersionsResponse)(nil), // 12: aftercast.v1.ListBaselineVersionsResponse
 	(*timestamppb.Timestamp)(nil),        // 13: google.protobuf.Timestamp
-	(*AccuracyMetrics)(nil),              // 14: aftercast.v1.AccuracyMetrics
-	(*MetricBand)(nil),                   // 15: aftercast.v1.MetricBand
+	(ErrorScale)(0),                      // 14: aftercast.v1.ErrorScale
+	(*AccuracyMetrics)(nil),              // 15: aftercast.v1.AccuracyMetrics
+	(*MetricBand)(nil),                   // 16: aftercast.v1.MetricBand
 }
 var file_aftercast_v1_baseline_proto_depIdxs = []int32{
 	13, // 0: aftercast.v1.BacktestRow.origin_time:type_name -> google.protobuf.Timestamp
@@ -1188,30 +1249,32 @@ var file_aftercast_v1_baseline_proto_depIdxs = []int32{
 	2,  // 4: aftercast.v1.ImportBaselineRequest.training_actuals:type_name -> aftercast.v1.TrainingActual
 	5,  // 5: aftercast.v1.ImportBaselineResponse.baselines:type_name -> aftercast.v1.ImportedBaseline
 	6,  // 6: aftercast.v1.ImportedBaseline.version:type_name -> aftercast.v1.BaselineVersion
-	13, // 7: aftercast.v1.BaselineVersion.create_time:type_name -> google.protobuf.Timestamp
-	13, // 8: aftercast.v1.BaselineVersion.first_origin_time:type_name -> google.protobuf.Timestamp
-	13, // 9: aftercast.v1.BaselineVersion.last_origin_time:type_name -> google.protobuf.Timestamp
-	7,  // 10: aftercast.v1.BaselineVersion.warnings:type_name -> aftercast.v1.BaselineWarning
-	0,  // 11: aftercast.v1.BaselineWarning.kind:type_name -> aftercast.v1.BaselineWarningKind
-	6,  // 12: aftercast.v1.GetBaselineResponse.version:type_name -> aftercast.v1.BaselineVersion
-	10, // 13: aftercast.v1.GetBaselineResponse.leads:type_name -> aftercast.v1.BaselineLead
-	10, // 14: aftercast.v1.GetBaselineResponse.pooled:type_name -> aftercast.v1.BaselineLead
-	14, // 15: aftercast.v1.BaselineLead.expected:type_name -> aftercast.v1.AccuracyMetrics
-	15, // 16: aftercast.v1.BaselineLead.mae:type_name -> aftercast.v1.MetricBand
-	15, // 17: aftercast.v1.BaselineLead.rmse:type_name -> aftercast.v1.MetricBand
-	15, // 18: aftercast.v1.BaselineLead.me:type_name -> aftercast.v1.MetricBand
-	6,  // 19: aftercast.v1.ListBaselineVersionsResponse.versions:type_name -> aftercast.v1.BaselineVersion
-	3,  // 20: aftercast.v1.BaselineService.ImportBaseline:input_type -> aftercast.v1.ImportBaselineRequest
-	8,  // 21: aftercast.v1.BaselineService.GetBaseline:input_type -> aftercast.v1.GetBaselineRequest
-	11, // 22: aftercast.v1.BaselineService.ListBaselineVersions:input_type -> aftercast.v1.ListBaselineVersionsRequest
-	4,  // 23: aftercast.v1.BaselineService.ImportBaseline:output_type -> aftercast.v1.ImportBaselineResponse
-	9,  // 24: aftercast.v1.BaselineService.GetBaseline:output_type -> aftercast.v1.GetBaselineResponse
-	12, // 25: aftercast.v1.BaselineService.ListBaselineVersions:output_type -> aftercast.v1.ListBaselineVersionsResponse
-	23, // [23:26] is the sub-list for method output_type
-	20, // [20:23] is the sub-list for method input_type
-	20, // [20:20] is the sub-list for extension type_name
-	20, // [20:20] is the sub-list for extension extendee
-	0,  // [0:20] is the sub-list for field type_name
+	14, // 7: aftercast.v1.ImportedBaseline.error_scale:type_name -> aftercast.v1.ErrorScale
+	13, // 8: aftercast.v1.BaselineVersion.create_time:type_name -> google.protobuf.Timestamp
+	13, // 9: aftercast.v1.BaselineVersion.first_origin_time:type_name -> google.protobuf.Timestamp
+	13, // 10: aftercast.v1.BaselineVersion.last_origin_time:type_name -> google.protobuf.Timestamp
+	7,  // 11: aftercast.v1.BaselineVersion.warnings:type_name -> aftercast.v1.BaselineWarning
+	0,  // 12: aftercast.v1.BaselineWarning.kind:type_name -> aftercast.v1.BaselineWarningKind
+	6,  // 13: aftercast.v1.GetBaselineResponse.version:type_name -> aftercast.v1.BaselineVersion
+	14, // 14: aftercast.v1.GetBaselineResponse.error_scale:type_name -> aftercast.v1.ErrorScale
+	10, // 15: aftercast.v1.GetBaselineResponse.leads:type_name -> aftercast.v1.BaselineLead
+	10, // 16: aftercast.v1.GetBaselineResponse.pooled:type_name -> aftercast.v1.BaselineLead
+	15, // 17: aftercast.v1.BaselineLead.expected:type_name -> aftercast.v1.AccuracyMetrics
+	16, // 18: aftercast.v1.BaselineLead.mae:type_name -> aftercast.v1.MetricBand
+	16, // 19: aftercast.v1.BaselineLead.rmse:type_name -> aftercast.v1.MetricBand
+	16, // 20: aftercast.v1.BaselineLead.me:type_name -> aftercast.v1.MetricBand
+	6,  // 21: aftercast.v1.ListBaselineVersionsResponse.versions:type_name -> aftercast.v1.BaselineVersion
+	3,  // 22: aftercast.v1.BaselineService.ImportBaseline:input_type -> aftercast.v1.ImportBaselineRequest
+	8,  // 23: aftercast.v1.BaselineService.GetBaseline:input_type -> aftercast.v1.GetBaselineRequest
+	11, // 24: aftercast.v1.BaselineService.ListBaselineVersions:input_type -> aftercast.v1.ListBaselineVersionsRequest
+	4,  // 25: aftercast.v1.BaselineService.ImportBaseline:output_type -> aftercast.v1.ImportBaselineResponse
+	9,  // 26: aftercast.v1.BaselineService.GetBaseline:output_type -> aftercast.v1.GetBaselineResponse
+	12, // 27: aftercast.v1.BaselineService.ListBaselineVersions:output_type -> aftercast.v1.ListBaselineVersionsResponse
+	25, // [25:28] is the sub-list for method output_type
+	22, // [22:25] is the sub-list for method input_type
+	22, // [22:22] is the sub-list for extension type_name
+	22, // [22:22] is the sub-list for extension extendee
+	0,  // [0:22] is the sub-list for field type_name
 }
 
 func init() { file_aftercast_v1_baseline_proto_init() }
@@ -1220,6 +1283,7 @@ func file_aftercast_v1_baseline_proto_init() {
 		return
 	}
 	file_aftercast_v1_metrics_proto_init()
+	file_aftercast_v1_series_proto_init()
 	file_aftercast_v1_baseline_proto_msgTypes[5].OneofWrappers = []any{}
 	file_aftercast_v1_baseline_proto_msgTypes[6].OneofWrappers = []any{}
 	file_aftercast_v1_baseline_proto_msgTypes[7].OneofWrappers = []any{}

@@ -32,7 +32,7 @@ var (
 	transitionKeys = []string{"lead", "origin_time", "previous", "state", "metric", "value", "limit", "window_n", "k_eff", "reason"}
 	versionKeys    = []string{"series", "model", "version", "active", "create_time", "first_origin_time", "last_origin_time",
 		"origin_cadence_steps", "max_lead", "rows", "training_actuals", "mase_scale", "warnings"}
-	baselineLeadKeys = []string{"lead", "k", "k_eff", "usable", "reason", "expected", "mae", "rmse", "me"}
+	baselineLeadKeys = []string{"lead", "k", "k_eff", "usable", "reason", "expected", "mae", "rmse", "me", "error_scale_exponent", "error_scale_floor"}
 	upperBandKeys    = []string{"expected", "band_lower", "band_upper", "alarm_upper", "k_eff"}
 	twoSidedKeys     = []string{"expected", "band_lower", "band_upper", "alarm_lower", "alarm_upper", "k_eff"}
 
@@ -318,9 +318,9 @@ func TestBaselineJSON(t *testing.T) {
 				{Kind: aftercastv1.BaselineWarningKind_BASELINE_WARNING_KIND_NO_TRAINING_ACTUALS, Message: "no training actuals"},
 				{Kind: aftercastv1.BaselineWarningKind_BASELINE_WARNING_KIND_LEAD_NOT_USABLE, Lead: i32(1), Message: "K = 3 < 180"},
 			}},
-		WindowN: 30,
+		WindowN: 30, ErrorScale: aftercastv1.ErrorScale_ERROR_SCALE_ABSOLUTE,
 		Leads: []*aftercastv1.BaselineLead{
-			{Lead: 1, K: 3, KEff: 2.5, Expected: expected, UnusableReason: "K = 3 < 180",
+			{Lead: 1, K: 3, KEff: 2.5, Expected: expected, UnusableReason: "K = 3 < 180", ErrorScaleExponent: 0.5, ErrorScaleFloor: 4,
 				Mae:  &aftercastv1.MetricBand{Expected: 1, BandLower: 0.5, BandUpper: 1.5, AlarmUpper: 1.7, KEff: 2.5},
 				Rmse: &aftercastv1.MetricBand{Expected: 1.3, BandLower: 0.6, BandUpper: 1.9, AlarmUpper: 2.1, KEff: 2.4},
 				Me:   &aftercastv1.MetricBand{Expected: 0.3, BandLower: -0.5, BandUpper: 1.1, AlarmLower: f(-0.8), AlarmUpper: 1.4, KEff: 2.6}},
@@ -329,8 +329,8 @@ func TestBaselineJSON(t *testing.T) {
 		Pooled: &aftercastv1.BaselineLead{Lead: 0, K: 1, KEff: 1, Usable: true},
 	}
 	doc := decode(t, ToBaseline(resp))
-	checkKeys(t, "baseline", doc, append([]string{"window_n", "leads", "pooled"}, versionKeys...), nil)
-	if doc["mase_scale"] != nil || doc["version"] != 3.0 || doc["window_n"] != 30.0 || doc["first_origin_time"] != "2025-09-01T12:00:00Z" {
+	checkKeys(t, "baseline", doc, append([]string{"error_scale", "window_n", "leads", "pooled"}, versionKeys...), nil)
+	if doc["error_scale"] != "absolute" || doc["mase_scale"] != nil || doc["version"] != 3.0 || doc["window_n"] != 30.0 || doc["first_origin_time"] != "2025-09-01T12:00:00Z" {
 		t.Errorf("baseline %v", doc)
 	}
 	ws := doc["warnings"].([]any)
@@ -346,7 +346,7 @@ func TestBaselineJSON(t *testing.T) {
 	checkKeys(t, "mae", l1["mae"], upperBandKeys, nil)
 	checkKeys(t, "rmse", l1["rmse"], upperBandKeys, nil)
 	checkKeys(t, "me", l1["me"], twoSidedKeys, nil)
-	if l1["usable"] != false || l1["reason"] != "K = 3 < 180" || l1["me"].(map[string]any)["alarm_lower"] != -0.8 {
+	if l1["usable"] != false || l1["reason"] != "K = 3 < 180" || l1["error_scale_exponent"] != 0.5 || l1["error_scale_floor"] != 4.0 || l1["me"].(map[string]any)["alarm_lower"] != -0.8 {
 		t.Errorf("lead 1 %v", l1)
 	}
 
@@ -380,11 +380,12 @@ func TestBaselineJSON(t *testing.T) {
 func TestImportJSON(t *testing.T) {
 	t.Parallel()
 	doc := decode(t, ToImport(&aftercastv1.ImportBaselineResponse{Model: "m", Baselines: []*aftercastv1.ImportedBaseline{
-		{Version: &aftercastv1.BaselineVersion{Series: "a", Version: 2, MaseScale: f(1.5)}, Created: false},
+		{Version: &aftercastv1.BaselineVersion{Series: "a", Version: 2, MaseScale: f(1.5)}, Created: false, PooledErrorScaleExponent: 0.9},
 	}}))
 	b := doc["baselines"].([]any)[0]
-	checkKeys(t, "imported", b, append([]string{"created"}, versionKeys...), nil)
-	if m := b.(map[string]any); m["created"] != false || m["mase_scale"] != 1.5 || !reflect.DeepEqual(m["warnings"], []any{}) {
+	checkKeys(t, "imported", b, append([]string{"created", "error_scale", "pooled_error_scale_exponent"}, versionKeys...), nil)
+	if m := b.(map[string]any); m["created"] != false || m["mase_scale"] != 1.5 || !reflect.DeepEqual(m["warnings"], []any{}) ||
+		m["error_scale"] != "auto" || m["pooled_error_scale_exponent"] != 0.9 {
 		t.Errorf("imported %v", m)
 	}
 }

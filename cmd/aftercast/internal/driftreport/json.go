@@ -378,6 +378,8 @@ func ToVersion(v *aftercastv1.BaselineVersion) Version {
 type Imported struct {
 	Created bool `json:"created"` // false: the upload equalled the active version
 	Version
+	ErrorScale               string  `json:"error_scale"`                 // the series' mode: auto or absolute
+	PooledErrorScaleExponent float64 `json:"pooled_error_scale_exponent"` // b̂ of the decision-lead quantity
 }
 
 // Import is the JSON document of `aftercast baseline import`.
@@ -390,7 +392,8 @@ type Import struct {
 func ToImport(r *aftercastv1.ImportBaselineResponse) Import {
 	o := Import{Model: r.GetModel(), Baselines: make([]Imported, 0, len(r.GetBaselines()))}
 	for _, b := range r.GetBaselines() {
-		o.Baselines = append(o.Baselines, Imported{Created: b.GetCreated(), Version: ToVersion(b.GetVersion())})
+		o.Baselines = append(o.Baselines, Imported{Created: b.GetCreated(), Version: ToVersion(b.GetVersion()),
+			ErrorScale: ErrorScaleName(b.GetErrorScale()), PooledErrorScaleExponent: b.GetPooledErrorScaleExponent()})
 	}
 	return o
 }
@@ -454,11 +457,24 @@ type BaselineLead struct {
 	MAE      *UpperBand      `json:"mae"`
 	RMSE     *UpperBand      `json:"rmse"`
 	ME       *TwoSidedBand   `json:"me"`
+	// The level scale of method.md §4a, s(ŷ) = max(|ŷ|, φ)^b̂: with b̂ > 0
+	// the bands are of errors divided by it.
+	ErrorScaleExponent float64 `json:"error_scale_exponent"`
+	ErrorScaleFloor    float64 `json:"error_scale_floor"`
 }
 
 func toBaselineLead(l *aftercastv1.BaselineLead) BaselineLead {
 	return BaselineLead{Lead: l.GetLead(), K: l.GetK(), KEff: num(l.GetKEff()), Usable: l.GetUsable(), Reason: str(l.GetUnusableReason()),
-		Expected: toMetrics(l.GetExpected()), MAE: toUpper(l.GetMae()), RMSE: toUpper(l.GetRmse()), ME: toTwoSided(l.GetMe())}
+		Expected: toMetrics(l.GetExpected()), MAE: toUpper(l.GetMae()), RMSE: toUpper(l.GetRmse()), ME: toTwoSided(l.GetMe()),
+		ErrorScaleExponent: l.GetErrorScaleExponent(), ErrorScaleFloor: l.GetErrorScaleFloor()}
+}
+
+// ErrorScaleName is the CLI's name of a series' error scale.
+func ErrorScaleName(e aftercastv1.ErrorScale) string {
+	if e == aftercastv1.ErrorScale_ERROR_SCALE_ABSOLUTE {
+		return "absolute"
+	}
+	return "auto"
 }
 
 // Baseline is the JSON document of `aftercast baseline show`: the
@@ -466,14 +482,16 @@ func toBaselineLead(l *aftercastv1.BaselineLead) BaselineLead {
 // window of window_n origins.
 type Baseline struct {
 	Version
-	WindowN int32          `json:"window_n"`
-	Leads   []BaselineLead `json:"leads"`
-	Pooled  *BaselineLead  `json:"pooled"`
+	ErrorScale string         `json:"error_scale"` // the series' mode: auto or absolute
+	WindowN    int32          `json:"window_n"`
+	Leads      []BaselineLead `json:"leads"`
+	Pooled     *BaselineLead  `json:"pooled"`
 }
 
 // ToBaseline converts a GetBaseline response.
 func ToBaseline(r *aftercastv1.GetBaselineResponse) Baseline {
-	o := Baseline{Version: ToVersion(r.GetVersion()), WindowN: r.GetWindowN(), Leads: make([]BaselineLead, 0, len(r.GetLeads()))}
+	o := Baseline{Version: ToVersion(r.GetVersion()), ErrorScale: ErrorScaleName(r.GetErrorScale()), WindowN: r.GetWindowN(),
+		Leads: make([]BaselineLead, 0, len(r.GetLeads()))}
 	for _, l := range r.GetLeads() {
 		o.Leads = append(o.Leads, toBaselineLead(l))
 	}

@@ -58,11 +58,24 @@ func WriteImport(w io.Writer, r *aftercastv1.ImportBaselineResponse) error {
 		} else {
 			fmt.Fprintf(w, "\n%s: unchanged (same as active version %d)\n", v.GetSeries(), v.GetVersion())
 		}
+		fmt.Fprintf(w, "  %s\n", scaleSummary(b.GetErrorScale(), b.GetPooledErrorScaleExponent()))
 		if err := writeVersion(w, v, "  "); err != nil {
 			return err
 		}
 	}
 	return nil
+}
+
+// scaleSummary says in one line how the series' errors will be scaled
+// (method.md §4a), from the pooled quantity's b̂.
+func scaleSummary(mode aftercastv1.ErrorScale, b float64) string {
+	switch {
+	case mode == aftercastv1.ErrorScale_ERROR_SCALE_ABSOLUTE:
+		return "error scale absolute: errors are judged as they are"
+	case b > 0:
+		return fmt.Sprintf("error scale grows with level: b̂ = %.2g on decision leads (errors are judged divided by level^b̂)", b)
+	}
+	return "error scale auto: b̂ = 0 on decision leads (the level hardly varies, or the errors do not grow with it): errors are judged as they are"
 }
 
 // writeVersion writes a version's summary as indented "name  value" lines.
@@ -126,8 +139,10 @@ func WriteBaseline(w io.Writer, r *aftercastv1.GetBaselineResponse) error {
 	}
 
 	fmt.Fprintf(w, "\nbands (95%%) and alarm limits (MAE, RMSE: p = 0.995; ME: p = 0.001, 0.999) for a window of %d origins\n", r.GetWindowN())
+	fmt.Fprintf(w, "error scale %s: where B̂ > 0 the bands are of errors divided by max(|forecast|, φ)^B̂; a live window's are these times its mean scale\n",
+		ErrorScaleName(r.GetErrorScale()))
 	tw = newTable(w)
-	fmt.Fprintln(tw, "LEAD\tK\tK_EFF\tMAE BAND\tMAE LIMIT\tRMSE BAND\tRMSE LIMIT\tME BAND\tME ALARM\tUSABLE")
+	fmt.Fprintln(tw, "LEAD\tK\tK_EFF\tB̂\tΦ\tMAE BAND\tMAE LIMIT\tRMSE BAND\tRMSE LIMIT\tME BAND\tME ALARM\tUSABLE")
 	row := func(lead string, l *aftercastv1.BaselineLead) {
 		usable := "yes"
 		if !l.GetUsable() {
@@ -144,7 +159,8 @@ func WriteBaseline(w io.Writer, r *aftercastv1.GetBaselineResponse) error {
 		if me == nil {
 			me = &TwoSidedBand{}
 		}
-		fmt.Fprintf(tw, "%s\t%d\t%s\t%s\t%s\t%s\t%s\t%s\t%s\t%s\n", lead, l.GetK(), human(b.KEff),
+		fmt.Fprintf(tw, "%s\t%d\t%s\t%s\t%s\t%s\t%s\t%s\t%s\t%s\t%s\t%s\n", lead, l.GetK(), human(b.KEff),
+			human(num(l.GetErrorScaleExponent())), human(num(l.GetErrorScaleFloor())),
 			interval(mae.BandLower, mae.BandUpper), human(mae.AlarmUpper), interval(rmse.BandLower, rmse.BandUpper), human(rmse.AlarmUpper),
 			interval(me.BandLower, me.BandUpper), interval(me.AlarmLower, me.AlarmUpper), usable)
 	}
