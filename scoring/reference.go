@@ -38,6 +38,10 @@ type LeadReference struct {
 	// Scale is the level scale of §4a the quantities were divided by (b̂
 	// and φ as fitted; b = 0 in absolute mode).
 	Scale Scale
+	// BacktestMAE is the plain mean |e| over the backtest (per origin for
+	// the pooled quantity), the average the level-adjusted expectation of
+	// a window is set beside.
+	BacktestMAE float64
 	// limits[n-1] are the bounds of the bands for a window of n ≤ the live
 	// window, kept as bare numbers: a prepared baseline is cached for every
 	// judged (series, model), so its size matters.
@@ -115,10 +119,12 @@ func fitPairs(origins [][]Pair, n int, mode ScaleMode) Scale {
 // lag window (the largest decision lead for the pooled quantity).
 func (r *Reference) newLead(lead, lag int, qs []Quantity, rmse bool) *LeadReference {
 	abs, sq, e := make([]float64, len(qs)), make([]float64, len(qs)), make([]float64, len(qs))
+	var plain sum
 	for i, q := range qs {
 		abs[i], sq[i], e[i] = q.Abs, q.Sq, q.E
+		plain.add(q.UAbs)
 	}
-	l := &LeadReference{Lead: lead, Abs: Summarize(abs, lag), Bias: Summarize(e, lag)}
+	l := &LeadReference{Lead: lead, Abs: Summarize(abs, lag), Bias: Summarize(e, lag), BacktestMAE: plain.value() / float64(len(qs))}
 	if rmse {
 		l.Sq = Summarize(sq, lag)
 	}

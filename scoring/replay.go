@@ -3,6 +3,7 @@ package scoring
 import (
 	"fmt"
 	"maps"
+	"math"
 	"slices"
 	"time"
 )
@@ -86,6 +87,9 @@ type Status struct {
 	Bands  BandSet // in the series' unit for the window (see BandSet.InUnits)
 	Judged BandSet // of the scaled quantities, as judged
 	Reason string
+	// BacktestMAE is the reference's plain backtest MAE (NaN without one),
+	// beside the level-adjusted expectation in Bands.
+	BacktestMAE float64
 }
 
 // Replayed is what a replay found.
@@ -291,7 +295,10 @@ func (rp *replayer) status() []Status {
 	out := make([]Status, 0, len(leads))
 	for _, h := range leads {
 		s := rp.cp.Leads[h]
-		st := Status{Lead: h, LeadState: *s, Reason: s.Detector.Reason}
+		st := Status{Lead: h, LeadState: *s, Reason: s.Detector.Reason, BacktestMAE: math.NaN()}
+		if l := rp.ref.Lead(h); l != nil {
+			st.BacktestMAE = l.BacktestMAE
+		}
 		if s.N > 0 {
 			st.Window = rp.windows[h].Values()
 			if l := rp.ref.Lead(h); l != nil {

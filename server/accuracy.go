@@ -62,7 +62,19 @@ func (s *accuracyService) GetAccuracy(ctx context.Context, req *aftercastv1.GetA
 	if err != nil {
 		return nil, s.status(ctx, err)
 	}
-	res, err := s.store.Accuracy(ctx, req.GetSeries(), req.GetModel(), toSelection(req.GetSelection()), scale)
+	// The level scales of the active baseline (method.md §4a) put each
+	// lead's band in the series' unit for the pairs selected.
+	ref, _, err := s.drift.Reference(ctx, req.GetSeries(), req.GetModel())
+	if err != nil {
+		return nil, s.status(ctx, err)
+	}
+	levels := map[int]scoring.Scale{}
+	for h := 1; ref != nil && h <= ref.Horizon; h++ {
+		if l := ref.Lead(h); l != nil {
+			levels[h] = l.Scale
+		}
+	}
+	res, err := s.store.AccuracyWithLevels(ctx, req.GetSeries(), req.GetModel(), toSelection(req.GetSelection()), scale, levels)
 	if err != nil {
 		return nil, s.status(ctx, err)
 	}
@@ -91,8 +103,11 @@ func (s *accuracyService) GetAccuracy(ctx context.Context, req *aftercastv1.GetA
 	for _, l := range withLateOnlyLeads(res) {
 		la := &aftercastv1.LeadAccuracy{Lead: int32(l.Lead), Metrics: metricsToProto(l.Metrics), LateCount: res.LateBy[l.Lead]}
 		if v, ok := views[l.Lead]; ok {
+			w := res.Levels[l.Lead].Window()
+			b := scoring.BandSet{MAE: v.MAE, RMSE: v.RMSE, ME: v.ME}.InUnits(w)
 			la.Baseline = &aftercastv1.LeadBaselineComparison{BaselineVersion: int32(version), K: int32(v.K), KEff: v.KEff,
-				WindowN: int32(l.N), State: stateToProto[states[l.Lead].State], Mae: bandToProto(v.MAE), Rmse: bandToProto(v.RMSE), Me: bandToProto(v.ME)}
+				WindowN: int32(l.N), State: stateToProto[states[l.Lead].State], Mae: bandToProto(b.MAE), Rmse: bandToProto(b.RMSE), Me: bandToProto(b.ME),
+				LevelScale: w.Scale, BacktestMae: optional(v.Expected.MAE)}
 		}
 		out.Leads = append(out.Leads, la)
 	}

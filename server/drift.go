@@ -65,7 +65,8 @@ func statusToProto(st store.DriftStatus) *aftercastv1.DriftStatus {
 		Mae: sn.MAE, MaeExpected: sn.MAEExpected, MaeBandLower: sn.MAEBandLower, MaeBandUpper: sn.MAEBandUpper, MaeAlarmLimit: sn.MAEAlarmLimit,
 		Me: sn.ME, MeExpected: sn.MEExpected, MeBandLower: sn.MEBandLower, MeBandUpper: sn.MEBandUpper,
 		MeAlarmLower: sn.MEAlarmLower, MeAlarmUpper: sn.MEAlarmUpper, KEff: sn.KEff,
-		OnsetMetric: metricToProto[sn.EnteredMetric], OnsetValue: sn.EnteredValue, OnsetLimit: sn.EnteredLimit, Reason: sn.Reason}
+		OnsetMetric: metricToProto[sn.EnteredMetric], OnsetValue: sn.EnteredValue, OnsetLimit: sn.EnteredLimit, Reason: sn.Reason,
+		LevelScale: sn.LevelScale, BacktestMae: sn.BacktestMAE}
 	//lint:ignore SA1019 sent for clients older than noticed_time
 	p.StateSinceTime = timeOrNil(st.Noticed) //nolint:staticcheck // SA1019: sent for clients older than noticed_time
 	for _, m := range sn.Breached {

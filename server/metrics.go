@@ -264,12 +264,12 @@ type stateCollector struct {
 	leadMAE, leadRMSE, leadME, leadPairs       *prometheus.Desc
 	leadExpected, leadBandLower, leadBandUpper *prometheus.Desc
 	leadAlarmUpper, leadAlarmLower, leadState  *prometheus.Desc
-	leadOnset                                  *prometheus.Desc
+	leadOnset, leadLevelScale                  *prometheus.Desc
 
 	seriesState, seriesMAE, seriesME, seriesPairs    *prometheus.Desc
 	seriesExpected, seriesBandLower, seriesBandUpper *prometheus.Desc
 	seriesAlarmUpper, seriesAlarmLower               *prometheus.Desc
-	seriesOnset, seriesSinceOnset                    *prometheus.Desc
+	seriesOnset, seriesSinceOnset, seriesLevelScale  *prometheus.Desc
 
 	lastOrigin, originInterval, lastActual, lastActualReceived *prometheus.Desc
 
@@ -289,7 +289,8 @@ func newStateCollector(st *atomic.Pointer[store.Store], log *slog.Logger, leads 
 		leadRMSE:       d("aftercast_lead_window_rmse", "Root mean squared error of the lead over the live window (series unit).", lead, nil),
 		leadME:         d("aftercast_lead_window_me", "Mean error (actual − forecast) of the lead over the live window (series unit).", lead, nil),
 		leadPairs:      d("aftercast_lead_window_pairs", "Scored pairs in the lead's live window.", lead, nil),
-		leadExpected:   d("aftercast_lead_expected", "What the backtest baseline expects of the lead's window, by metric (mae, rmse, me).", leadMetric, nil),
+		leadExpected:   d("aftercast_lead_expected", "What the backtest baseline expects of the lead's window, by metric (mae, rmse, me); level-adjusted when the errors are scaled (aftercast_lead_level_scale).", leadMetric, nil),
+		leadLevelScale: d("aftercast_lead_level_scale", "Mean level scale max(|forecast|, φ)^b̂ over the lead's live window (method §4a): expectations, bands and limits are the baseline's scaled ones times it; 1 without scaling.", lead, nil),
 		leadBandLower:  d("aftercast_lead_band_lower", "Lower end (p = 0.025) of the lead's central 95% band for a window of this size, by metric (mae, rmse, me).", leadMetric, nil),
 		leadBandUpper:  d("aftercast_lead_band_upper", "Upper end (p = 0.975) of the lead's central 95% band for a window of this size, by metric (mae, rmse, me).", leadMetric, nil),
 		leadAlarmUpper: d("aftercast_lead_alarm_upper", "Lead's alarm limit for a window of this size: the one-sided p = 0.995 bound for mae and rmse, the upper end (p = 0.999) of the two-sided alarm band for me.", leadMetric, nil),
@@ -301,7 +302,8 @@ func newStateCollector(st *atomic.Pointer[store.Store], log *slog.Logger, leads 
 		seriesMAE:        d("aftercast_series_window_mae", "Mean over the live window of the per-origin mean |error| of the decision leads (series unit).", pair, nil),
 		seriesME:         d("aftercast_series_window_me", "Mean over the live window of the per-origin mean error (actual − forecast) of the decision leads (series unit).", pair, nil),
 		seriesPairs:      d("aftercast_series_window_pairs", "Origins in the series' pooled live window.", pair, nil),
-		seriesExpected:   d("aftercast_series_expected", "What the backtest baseline expects of the pooled window, by metric (mae, me).", pairMetric, nil),
+		seriesExpected:   d("aftercast_series_expected", "What the backtest baseline expects of the pooled window, by metric (mae, me); level-adjusted when the errors are scaled (aftercast_series_level_scale).", pairMetric, nil),
+		seriesLevelScale: d("aftercast_series_level_scale", "Mean level scale max(|forecast|, φ)^b̂ over the pooled live window (method §4a): expectations, bands and limits are the baseline's scaled ones times it; 1 without scaling.", pair, nil),
 		seriesBandLower:  d("aftercast_series_band_lower", "Lower end (p = 0.025) of the pooled central 95% band for a window of this size, by metric (mae, me).", pairMetric, nil),
 		seriesBandUpper:  d("aftercast_series_band_upper", "Upper end (p = 0.975) of the pooled central 95% band for a window of this size, by metric (mae, me).", pairMetric, nil),
 		seriesAlarmUpper: d("aftercast_series_alarm_upper", "Pooled alarm limit for a window of this size: the one-sided p = 0.995 bound for mae, the upper end (p = 0.999) of the two-sided alarm band for me.", pairMetric, nil),
@@ -324,9 +326,9 @@ func newStateCollector(st *atomic.Pointer[store.Store], log *slog.Logger, leads 
 // Describe sends every family the collector may emit.
 func (c *stateCollector) Describe(ch chan<- *prometheus.Desc) {
 	for _, d := range []*prometheus.Desc{c.leadMAE, c.leadRMSE, c.leadME, c.leadPairs, c.leadExpected, c.leadBandLower,
-		c.leadBandUpper, c.leadAlarmUpper, c.leadAlarmLower, c.leadState, c.leadOnset, c.seriesState, c.seriesMAE, c.seriesME,
+		c.leadBandUpper, c.leadAlarmUpper, c.leadAlarmLower, c.leadState, c.leadOnset, c.leadLevelScale, c.seriesState, c.seriesMAE, c.seriesME,
 		c.seriesPairs, c.seriesExpected, c.seriesBandLower, c.seriesBandUpper, c.seriesAlarmUpper, c.seriesAlarmLower,
-		c.seriesOnset, c.seriesSinceOnset, c.lastOrigin, c.originInterval, c.lastActual, c.lastActualReceived,
+		c.seriesOnset, c.seriesSinceOnset, c.seriesLevelScale, c.lastOrigin, c.originInterval, c.lastActual, c.lastActualReceived,
 		c.marksPending, c.marksOldestAge, c.droppedDesc} {
 		ch <- d
 	}
@@ -469,6 +471,20 @@ func (c *stateCollector) emitSeries(ch chan<- prometheus.Metric, ss store.DriftS
 	gauge(ch, c.seriesAlarmUpper, sn.MAEAlarmLimit, s, m, mae)
 	gauge(ch, c.seriesAlarmUpper, sn.MEAlarmUpper, s, m, me)
 	gauge(ch, c.seriesAlarmLower, sn.MEAlarmLower, s, m, me)
+	levelScale(ch, c.seriesLevelScale, sn, s, m)
+}
+
+// levelScale exports a window's mean level scale, 1 when it is not
+// scaled, for a window that has pairs.
+func levelScale(ch chan<- prometheus.Metric, d *prometheus.Desc, sn store.Snapshot, labels ...string) {
+	if sn.WindowN == 0 || sn.MAEExpected == nil {
+		return
+	}
+	x := 1.0
+	if sn.LevelScale != nil {
+		x = *sn.LevelScale
+	}
+	ch <- prometheus.MustNewConstMetric(d, prometheus.GaugeValue, x, labels...)
 }
 
 func (c *stateCollector) emitLead(ch chan<- prometheus.Metric, ls store.DriftStatus) {
@@ -493,6 +509,7 @@ func (c *stateCollector) emitLead(ch chan<- prometheus.Metric, ls store.DriftSta
 	gauge(ch, c.leadAlarmUpper, sn.RMSEAlarmLimit, s, m, h, rmse)
 	gauge(ch, c.leadAlarmUpper, sn.MEAlarmUpper, s, m, h, me)
 	gauge(ch, c.leadAlarmLower, sn.MEAlarmLower, s, m, h, me)
+	levelScale(ch, c.leadLevelScale, sn, s, m, h)
 }
 
 // collectBacklog exports the drift marks waiting for the evaluators (of

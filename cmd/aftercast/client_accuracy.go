@@ -6,9 +6,11 @@ import (
 	"fmt"
 	"io"
 	"strings"
+	"text/tabwriter"
 	"time"
 
 	aftercastv1 "github.com/aftercast/aftercast/api/aftercast/v1"
+	"github.com/aftercast/aftercast/cmd/aftercast/internal/driftreport"
 	"github.com/aftercast/aftercast/cmd/aftercast/internal/export"
 	"github.com/aftercast/aftercast/cmd/aftercast/internal/report"
 	"github.com/aftercast/aftercast/scoring"
@@ -50,10 +52,42 @@ func runAccuracy(args []string, stdout, stderr io.Writer) error {
 	if err := report.Write(stdout, *format, []report.Result{r}); err != nil {
 		return err
 	}
-	if n := resp.GetOverallLateCount(); n > 0 && *format == "table" {
+	if *format != "table" {
+		return nil
+	}
+	if n := resp.GetOverallLateCount(); n > 0 {
 		fmt.Fprintf(stdout, "%d late pairs not scored (their forecast arrived after the actual was known)\n", n)
 	}
-	return nil
+	return writeAgainstBaseline(stdout, resp)
+}
+
+// writeAgainstBaseline prints each lead's MAE beside what the baseline
+// expects of that many origins at these forecast levels (method.md §4a):
+// the level-adjusted expectation, 95% band and alarm limit, with the
+// plain backtest MAE and the level scale that adjusted it.
+func writeAgainstBaseline(w io.Writer, resp *aftercastv1.GetAccuracyResponse) error {
+	var rows []*aftercastv1.LeadAccuracy
+	for _, l := range resp.GetLeads() {
+		if l.GetBaseline().GetMae() != nil && l.GetMetrics().Mae != nil {
+			rows = append(rows, l)
+		}
+	}
+	if len(rows) == 0 {
+		return nil
+	}
+	fmt.Fprintf(w, "\nagainst baseline version %d: MAE beside what the backtest promises for that many origins at these forecast levels\n",
+		rows[0].GetBaseline().GetBaselineVersion())
+	fmt.Fprintln(w, "(level scale ≠ 1: errors grow with the level, and the expectation is the backtest's scaled to it; backtest MAE is the plain average)")
+	tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', 0)
+	fmt.Fprintln(tw, "LEAD\tN\tMAE\tEXPECTED\t95% BAND\tALARM\tBACKTEST MAE\tLEVEL SCALE\tSTATE")
+	for _, l := range rows {
+		b := l.GetBaseline()
+		m := b.GetMae()
+		fmt.Fprintf(tw, "%d\t%d\t%.4g\t%.4g\t[%.4g, %.4g]\t%.4g\t%.4g\t%.3g\t%s\n", l.GetLead(), b.GetWindowN(), l.GetMetrics().GetMae(),
+			m.GetExpected(), m.GetBandLower(), m.GetBandUpper(), m.GetAlarmUpper(), b.GetBacktestMae(), b.GetLevelScale(),
+			driftreport.StateName(b.GetState()))
+	}
+	return tw.Flush()
 }
 
 // accuracyResult is a GetAccuracy response in the shape `aftercast

@@ -5,6 +5,8 @@ import (
 	"fmt"
 	"math"
 	"math/rand/v2"
+	"slices"
+	"strconv"
 	"strings"
 	"testing"
 	"time"
@@ -95,5 +97,35 @@ func TestBaselineReportsTheErrorScale(t *testing.T) {
 	if _, out, _ := cliRun("baseline", "show", "--addr", addr, "--series", "es/auto", "--model", "m"); !strings.Contains(out, "B̂") ||
 		!strings.Contains(out, "error scale auto:") {
 		t.Errorf("baseline show:\n%s", out)
+	}
+
+	// Ten production days in winter (level about 150): accuracy sets the
+	// lead's MAE beside the expectation scaled to that level.
+	var fc, ac strings.Builder
+	fc.WriteString("series,origin_time,target_time,forecast\n")
+	ac.WriteString("series,time,value\n")
+	for k := 365; k < 375; k++ {
+		o := t0.AddDate(0, 0, k)
+		l := 100 * (1 + 0.5*math.Cos(2*math.Pi*float64(k)/365))
+		fmt.Fprintf(&fc, "es/auto,%s,%s,%g\n", o.Format(time.RFC3339), o.AddDate(0, 0, 1).Format(time.RFC3339), l)
+		fmt.Fprintf(&ac, "es/auto,%s,%g\n", o.AddDate(0, 0, 1).Format(time.RFC3339), l+5*l/100*r.NormFloat64())
+	}
+	for _, push := range [][]string{{"push", "forecasts", "--addr", addr, "--model", "m", writeTemp(t, fc.String())},
+		{"push", "actuals", "--addr", addr, writeTemp(t, ac.String())}} {
+		if code, out, errs := cliRun(push...); code != 0 {
+			t.Fatal(out, errs)
+		}
+	}
+	_, out, _ = cliRun("accuracy", "--addr", addr, "--series", "es/auto", "--model", "m")
+	i := strings.Index(out, "against baseline version 1")
+	fields := strings.Fields(out[max(i, 0):])
+	j := slices.Index(fields, "STATE")
+	if i < 0 || j < 0 || len(fields) < j+10 {
+		t.Fatalf("accuracy has no comparison with the baseline:\n%s", out)
+	}
+	// LEAD N MAE EXPECTED [lo, hi] ALARM BACKTEST LEVEL STATE
+	row := fields[j+1:]
+	if scale, err := strconv.ParseFloat(row[8], 64); err != nil || scale < 140 || scale > 150 || row[0] != "1" || row[1] != "10" {
+		t.Errorf("accuracy's baseline row %q: want lead 1, 10 origins, a level scale near the winter level 148", row)
 	}
 }

@@ -24,6 +24,10 @@ func snapshotOf(st scoring.Status) store.Snapshot {
 		return snap
 	}
 	snap.MAE, snap.ME = fin(w.MAE), fin(w.ME)
+	if w.Scale != 1 {
+		snap.LevelScale = fin(w.Scale)
+	}
+	snap.BacktestMAE = fin(st.BacktestMAE)
 	if a := b.MAE; a.Metric != "" {
 		snap.MAEExpected, snap.MAEBandLower, snap.MAEBandUpper, snap.MAEAlarmLimit = fin(a.Expected), fin(a.Lower), fin(a.Upper), fin(a.AlarmUpper)
 		snap.KEff = fin(a.KEff)

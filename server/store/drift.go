@@ -40,6 +40,12 @@ type Snapshot struct {
 	MEAlarmLower   *float64 `json:"me_alarm_lower,omitempty"`
 	MEAlarmUpper   *float64 `json:"me_alarm_upper,omitempty"`
 	KEff           *float64 `json:"k_eff,omitempty"`
+	// LevelScale is the window's mean s(ŷ) (method.md §4a) the expectations
+	// and bands above were multiplied by: absent (1) without scaling.
+	// BacktestMAE is the plain MAE over the backtest pairs, beside the
+	// level-adjusted expectation.
+	LevelScale  *float64 `json:"level_scale,omitempty"`
+	BacktestMAE *float64 `json:"backtest_mae,omitempty"`
 	// Breached lists the metrics beyond their alarm limits at the last
 	// evaluation.
 	Breached []scoring.Metric `json:"breached,omitempty"`

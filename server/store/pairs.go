@@ -358,11 +358,38 @@ type AccuracyResult struct {
 	Table  scoring.Table
 	Late   int64         // pairs excluded by the hindsight guard
 	LateBy map[int]int64 // the same, per lead
+	// Levels sums, per lead, the level scales of the scored pairs under
+	// the scales asked for (AccuracyWithLevels); empty otherwise.
+	Levels map[int]*LevelSum
+}
+
+// LevelSum is the sum of the level scales s(ŷ) and of s(ŷ)² over a lead's
+// scored pairs (method.md §4a).
+type LevelSum struct {
+	N         int
+	Sum, Sum2 float64
+}
+
+// Window is the mean scale and root mean squared scale of the pairs, as a
+// live window reports them, for turning a band into the series' unit.
+func (l *LevelSum) Window() scoring.WindowValues {
+	if l == nil || l.N == 0 {
+		return scoring.WindowValues{Scale: 1, ScaleRMSE: 1}
+	}
+	n := float64(l.N)
+	return scoring.WindowValues{N: l.N, Scale: l.Sum / n, ScaleRMSE: math.Sqrt(l.Sum2 / n)}
 }
 
 // Accuracy scores the selected pairs of (series, model) per lead and
 // overall. scale is the MASE scale (NaN when unknown).
 func (s *Store) Accuracy(ctx context.Context, key, model string, sel Selection, scale float64) (AccuracyResult, error) {
+	return s.AccuracyWithLevels(ctx, key, model, sel, scale, nil)
+}
+
+// AccuracyWithLevels is Accuracy that also sums, per lead, the level
+// scales of the scored pairs under levels[lead] (leads without one are
+// left out).
+func (s *Store) AccuracyWithLevels(ctx context.Context, key, model string, sel Selection, scale float64, levels map[int]scoring.Scale) (AccuracyResult, error) {
 	se, err := s.seriesModel(ctx, key, model)
 	if err != nil {
 		return AccuracyResult{}, err
@@ -372,20 +399,29 @@ func (s *Store) Accuracy(ctx context.Context, key, model string, sel Selection, 
 	}
 	var tab scoring.Tabulator
 	var late int64
-	lateBy := map[int]int64{}
+	lateBy, sums := map[int]int64{}, map[int]*LevelSum{}
 	err = s.selectPairs(ctx, se, model, &sel, func(p Pair) bool {
 		if p.Late {
 			late++
 			lateBy[p.Lead]++
-		} else {
-			tab.Add(p.Lead, p.Actual, p.Forecast)
+			return true
+		}
+		tab.Add(p.Lead, p.Actual, p.Forecast)
+		if sc, ok := levels[p.Lead]; ok {
+			if sums[p.Lead] == nil {
+				sums[p.Lead] = &LevelSum{}
+			}
+			x := sc.Of(p.Forecast)
+			sums[p.Lead].N++
+			sums[p.Lead].Sum += x
+			sums[p.Lead].Sum2 += x * x
 		}
 		return true
 	})
 	if err != nil {
 		return AccuracyResult{}, err
 	}
-	return AccuracyResult{Series: *se, Table: tab.Table(scale), Late: late, LateBy: lateBy}, nil
+	return AccuracyResult{Series: *se, Table: tab.Table(scale), Late: late, LateBy: lateBy, Levels: sums}, nil
 }
 
 // seriesModel resolves a series and checks that the model has forecasts

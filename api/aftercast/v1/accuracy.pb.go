@@ -420,7 +420,16 @@ type LeadBaselineComparison struct {
 	Rmse *MetricBand `protobuf:"bytes,7,opt,name=rmse,proto3" json:"rmse,omitempty"`
 	// Expectation, 95% band and two-sided alarm band (p = 0.001, 0.999) of ME for window_n
 	// origins. Absent when the baseline cannot give them.
-	Me            *MetricBand `protobuf:"bytes,8,opt,name=me,proto3" json:"me,omitempty"`
+	Me *MetricBand `protobuf:"bytes,8,opt,name=me,proto3" json:"me,omitempty"`
+	// The mean level scale s(ŷ) = max(|forecast|, φ)^b̂ over this row's
+	// pairs (method.md §4a): the expectations and bands above are the
+	// baseline's for errors divided by s(ŷ), times this (RMSE: times the
+	// root mean s(ŷ)²) — what the backtest promises at these forecast
+	// levels. 1 when the series' errors are not scaled.
+	LevelScale float64 `protobuf:"fixed64,9,opt,name=level_scale,json=levelScale,proto3" json:"level_scale,omitempty"`
+	// The plain MAE over the lead's backtest pairs, beside the
+	// level-adjusted mae.expected.
+	BacktestMae   *float64 `protobuf:"fixed64,10,opt,name=backtest_mae,json=backtestMae,proto3,oneof" json:"backtest_mae,omitempty"`
 	unknownFields protoimpl.UnknownFields
 	sizeCache     protoimpl.SizeCache
 }
@@ -509,6 +518,20 @@ func (x *LeadBaselineComparison) GetMe() *MetricBand {
 		return x.Me
 	}
 	return nil
+}
+
+func (x *LeadBaselineComparison) GetLevelScale() float64 {
+	if x != nil {
+		return x.LevelScale
+	}
+	return 0
+}
+
+func (x *LeadBaselineComparison) GetBacktestMae() float64 {
+	if x != nil && x.BacktestMae != nil {
+		return *x.BacktestMae
+	}
+	return 0
 }
 
 // ListPairsRequest is the request of AccuracyService.ListPairs.
@@ -817,7 +840,7 @@ const file_aftercast_v1_accuracy_proto_rawDesc = "" +
 	"\ametrics\x18\x02 \x01(\v2\x1d.aftercast.v1.AccuracyMetricsR\ametrics\x12\x1d\n" +
 	"\n" +
 	"late_count\x18\x03 \x01(\x03R\tlateCount\x12@\n" +
-	"\bbaseline\x18\x04 \x01(\v2$.aftercast.v1.LeadBaselineComparisonR\bbaseline\"\xb5\x02\n" +
+	"\bbaseline\x18\x04 \x01(\v2$.aftercast.v1.LeadBaselineComparisonR\bbaseline\"\x8f\x03\n" +
 	"\x16LeadBaselineComparison\x12)\n" +
 	"\x10baseline_version\x18\x01 \x01(\x05R\x0fbaselineVersion\x12\f\n" +
 	"\x01k\x18\x02 \x01(\x05R\x01k\x12\x13\n" +
@@ -826,7 +849,12 @@ const file_aftercast_v1_accuracy_proto_rawDesc = "" +
 	"\x05state\x18\x05 \x01(\x0e2\x18.aftercast.v1.DriftStateR\x05state\x12*\n" +
 	"\x03mae\x18\x06 \x01(\v2\x18.aftercast.v1.MetricBandR\x03mae\x12,\n" +
 	"\x04rmse\x18\a \x01(\v2\x18.aftercast.v1.MetricBandR\x04rmse\x12(\n" +
-	"\x02me\x18\b \x01(\v2\x18.aftercast.v1.MetricBandR\x02me\"\xb7\x01\n" +
+	"\x02me\x18\b \x01(\v2\x18.aftercast.v1.MetricBandR\x02me\x12\x1f\n" +
+	"\vlevel_scale\x18\t \x01(\x01R\n" +
+	"levelScale\x12&\n" +
+	"\fbacktest_mae\x18\n" +
+	" \x01(\x01H\x00R\vbacktestMae\x88\x01\x01B\x0f\n" +
+	"\r_backtest_mae\"\xb7\x01\n" +
 	"\x10ListPairsRequest\x12\x16\n" +
 	"\x06series\x18\x01 \x01(\tR\x06series\x12\x14\n" +
 	"\x05model\x18\x02 \x01(\tR\x05model\x129\n" +
@@ -920,6 +948,7 @@ func file_aftercast_v1_accuracy_proto_init() {
 		return
 	}
 	file_aftercast_v1_metrics_proto_init()
+	file_aftercast_v1_accuracy_proto_msgTypes[5].OneofWrappers = []any{}
 	type x struct{}
 	out := protoimpl.TypeBuilder{
 		File: protoimpl.DescBuilder{

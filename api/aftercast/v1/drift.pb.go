@@ -106,7 +106,9 @@ type DriftStatus struct {
 	// Window MAE (for the series level: mean over window origins of the
 	// mean |e| over decision leads). Absent when window_n = 0.
 	Mae *float64 `protobuf:"fixed64,7,opt,name=mae,proto3,oneof" json:"mae,omitempty"`
-	// MAE the baseline expects. Absent without a baseline.
+	// MAE the baseline expects of this window. Level-adjusted when the
+	// series is level-scaled (see level_scale): what the backtest promises
+	// for a window at these forecast levels. Absent without a baseline.
 	MaeExpected *float64 `protobuf:"fixed64,8,opt,name=mae_expected,json=maeExpected,proto3,oneof" json:"mae_expected,omitempty"`
 	// Lower bound of MAE's 95% band for window_n origins. Absent when the
 	// baseline cannot give it (no baseline, K < 2, or window_n = 0).
@@ -154,7 +156,16 @@ type DriftStatus struct {
 	MeBandUpper *float64 `protobuf:"fixed64,24,opt,name=me_band_upper,json=meBandUpper,proto3,oneof" json:"me_band_upper,omitempty"`
 	// Why the baseline cannot judge this lead, for
 	// DRIFT_STATE_INSUFFICIENT_BASELINE; empty otherwise.
-	Reason        string `protobuf:"bytes,25,opt,name=reason,proto3" json:"reason,omitempty"`
+	Reason string `protobuf:"bytes,25,opt,name=reason,proto3" json:"reason,omitempty"`
+	// The window's mean level scale s(ŷ) = max(|forecast|, φ)^b̂ (method.md
+	// §4a): the expectations, bands and limits above are the baseline's for
+	// errors divided by s(ŷ), times this. Absent when the errors are not
+	// scaled (b̂ = 0, or error scale absolute): then they are the plain ones.
+	LevelScale *float64 `protobuf:"fixed64,26,opt,name=level_scale,json=levelScale,proto3,oneof" json:"level_scale,omitempty"`
+	// The plain mean |e| over the backtest (for the series level: of the
+	// per-origin mean over decision leads), beside the level-adjusted
+	// mae_expected. Absent without a baseline.
+	BacktestMae   *float64 `protobuf:"fixed64,27,opt,name=backtest_mae,json=backtestMae,proto3,oneof" json:"backtest_mae,omitempty"`
 	unknownFields protoimpl.UnknownFields
 	sizeCache     protoimpl.SizeCache
 }
@@ -363,6 +374,20 @@ func (x *DriftStatus) GetReason() string {
 		return x.Reason
 	}
 	return ""
+}
+
+func (x *DriftStatus) GetLevelScale() float64 {
+	if x != nil && x.LevelScale != nil {
+		return *x.LevelScale
+	}
+	return 0
+}
+
+func (x *DriftStatus) GetBacktestMae() float64 {
+	if x != nil && x.BacktestMae != nil {
+		return *x.BacktestMae
+	}
+	return 0
 }
 
 // SeriesModelDrift is the drift picture of one (series, model).
@@ -1337,8 +1362,7 @@ var File_aftercast_v1_drift_proto protoreflect.FileDescriptor
 
 const file_aftercast_v1_drift_proto_rawDesc = "" +
 	"\n" +
-	"\x18aftercast/v1/drift.proto\x12\faftercast.v1\x1a\x1aaftercast/v1/metrics.proto\x1a\x1fgoogle/protobuf/timestamp.proto\"\xc6\n" +
-	"\n" +
+	"\x18aftercast/v1/drift.proto\x12\faftercast.v1\x1a\x1aaftercast/v1/metrics.proto\x1a\x1fgoogle/protobuf/timestamp.proto\"\xb5\v\n" +
 	"\vDriftStatus\x12\x17\n" +
 	"\x04lead\x18\x01 \x01(\x05H\x00R\x04lead\x88\x01\x01\x12.\n" +
 	"\x05state\x18\x02 \x01(\x0e2\x18.aftercast.v1.DriftStateR\x05state\x12D\n" +
@@ -1369,7 +1393,10 @@ const file_aftercast_v1_drift_proto_rawDesc = "" +
 	"onsetLimit\x88\x01\x01\x12'\n" +
 	"\rme_band_lower\x18\x17 \x01(\x01H\rR\vmeBandLower\x88\x01\x01\x12'\n" +
 	"\rme_band_upper\x18\x18 \x01(\x01H\x0eR\vmeBandUpper\x88\x01\x01\x12\x16\n" +
-	"\x06reason\x18\x19 \x01(\tR\x06reasonB\a\n" +
+	"\x06reason\x18\x19 \x01(\tR\x06reason\x12$\n" +
+	"\vlevel_scale\x18\x1a \x01(\x01H\x0fR\n" +
+	"levelScale\x88\x01\x01\x12&\n" +
+	"\fbacktest_mae\x18\x1b \x01(\x01H\x10R\vbacktestMae\x88\x01\x01B\a\n" +
 	"\x05_leadB\x06\n" +
 	"\x04_maeB\x0f\n" +
 	"\r_mae_expectedB\x11\n" +
@@ -1384,7 +1411,9 @@ const file_aftercast_v1_drift_proto_rawDesc = "" +
 	"\f_onset_valueB\x0e\n" +
 	"\f_onset_limitB\x10\n" +
 	"\x0e_me_band_lowerB\x10\n" +
-	"\x0e_me_band_upper\"\x92\x02\n" +
+	"\x0e_me_band_upperB\x0e\n" +
+	"\f_level_scaleB\x0f\n" +
+	"\r_backtest_mae\"\x92\x02\n" +
 	"\x10SeriesModelDrift\x12\x16\n" +
 	"\x06series\x18\x01 \x01(\tR\x06series\x12\x14\n" +
 	"\x05model\x18\x02 \x01(\tR\x05model\x12)\n" +

@@ -23,7 +23,7 @@ import (
 var (
 	statusKeys = []string{"lead", "state", "breached", "onset_origin_time", "origins_since_onset", "onset_metric", "onset_value",
 		"onset_limit", "noticed_time", "reason", "last_origin_time", "window_n", "mae", "mae_expected", "mae_band_lower", "mae_band_upper",
-		"mae_alarm_limit", "me", "me_expected", "me_band_lower", "me_band_upper", "me_alarm_lower", "me_alarm_upper", "k_eff"}
+		"mae_alarm_limit", "me", "me_expected", "me_band_lower", "me_band_upper", "me_alarm_lower", "me_alarm_upper", "k_eff", "level_scale", "backtest_mae"}
 	seriesKeys = []string{"series", "model", "state", "onset_origin_time", "origins_since_onset", "noticed_time", "baseline_version",
 		"decision_leads", "series_level", "leads"}
 	statesKeys = []string{"pending_evaluations", "expected_chance_pages_per_week", "series"}

@@ -124,6 +124,12 @@ type Status struct {
 	MEAlarmLower      *float64 `json:"me_alarm_lower"`
 	MEAlarmUpper      *float64 `json:"me_alarm_upper"`
 	KEff              *float64 `json:"k_eff"`
+	// LevelScale is the window's mean level scale (method.md §4a) the
+	// expectations and bands were multiplied by: 1 when not scaled.
+	// BacktestMAE is the plain backtest MAE beside the level-adjusted
+	// mae_expected.
+	LevelScale  float64  `json:"level_scale"`
+	BacktestMAE *float64 `json:"backtest_mae"`
 }
 
 // SeriesDrift is the JSON shape of the drift picture of one (series,
@@ -177,7 +183,11 @@ func ToStatus(s *aftercastv1.DriftStatus) Status {
 		NoticedTime: ts(s.GetNoticedTime()), Reason: str(s.GetReason()), LastOriginTime: ts(s.GetLastOriginTime()), WindowN: s.GetWindowN(),
 		MAE: opt(s.Mae), MAEExpected: opt(s.MaeExpected), MAEBandLower: opt(s.MaeBandLower), MAEBandUpper: opt(s.MaeBandUpper),
 		MAEAlarmLimit: opt(s.MaeAlarmLimit), ME: opt(s.Me), MEExpected: opt(s.MeExpected), MEBandLower: opt(s.MeBandLower),
-		MEBandUpper: opt(s.MeBandUpper), MEAlarmLower: opt(s.MeAlarmLower), MEAlarmUpper: opt(s.MeAlarmUpper), KEff: opt(s.KEff)}
+		MEBandUpper: opt(s.MeBandUpper), MEAlarmLower: opt(s.MeAlarmLower), MEAlarmUpper: opt(s.MeAlarmUpper), KEff: opt(s.KEff),
+		LevelScale: 1, BacktestMAE: opt(s.BacktestMae)}
+	if s.LevelScale != nil {
+		o.LevelScale = s.GetLevelScale()
+	}
 	for _, m := range s.GetBreachedMetrics() {
 		o.Breached = append(o.Breached, cmp.Or(MetricName(m), "unspecified"))
 	}
