@@ -1,9 +1,9 @@
 package scoring
 
 // The calibration benchmark of method.md §6: it reproduces calibration
-// targets 1–6 with the package's own band construction (Summarize, Bands)
-// and state machine (Detector) on simulated error processes. It is off by
-// default; run it with
+// targets 1–7 with the package's own band construction (Summarize, Bands),
+// level scale (FitScale) and state machine (Detector) on simulated error
+// processes. It is off by default; run it with
 //
 //	go test ./scoring -run '^TestCalibration$' -v -timeout 60m -args -calibration=full
 //
@@ -48,6 +48,15 @@ package scoring
 //     evaluation enters degraded (so ≥ 1), censored at 3000. Replications
 //     that were degraded before τ are left out (conditional delay) and
 //     counted.
+//   - Target 7 (level scaling, §4a) simulates one path t = 0..729 per
+//     backtest: a yearly level L_t, forecasts ŷ_t = L_t and errors whose
+//     scale follows L_t^β; the backtest is its first year, the live series
+//     its second (see seasonSpec). Each backtest is judged in both modes on
+//     the same path: the scale is fitted by FitScale (blocks of 30), the
+//     band built by Summarize from the scaled backtest |e|, and a live
+//     window's value is the mean of |e|/s(ŷ) with the backtest's b̂ and φ.
+//     The exceedance of the MAE alarm limit is averaged per quarter of the
+//     live year over backtests, and the worst quarter reported.
 //   - Negative controls of target 5: "empirical" takes the 2.5%, 97.5% and
 //     99.5% quantiles (R type 7) of the MAE of every sliding window of n in
 //     the backtest; "bootstrap" is the moving-block bootstrap (Künsch 1989)
@@ -181,11 +190,12 @@ type calSize struct {
 	meBacktests int // target 3 (method.md: ≥ 2000)
 	runs        int // per run-length or delay cell
 	boot        int // bootstrap resamples per backtest
+	seasons     int // backtests per target-7 cell (method.md: ≥ 400)
 }
 
 var calSizes = map[string]calSize{
-	"ci":   {backtests: 500, meBacktests: 5000, runs: 600, boot: 500},
-	"full": {backtests: 2000, meBacktests: 20000, runs: 2000, boot: 1000},
+	"ci":   {backtests: 500, meBacktests: 5000, runs: 600, boot: 500, seasons: 500},
+	"full": {backtests: 2000, meBacktests: 20000, runs: 2000, boot: 1000, seasons: 2000},
 }
 
 const (
@@ -501,6 +511,242 @@ func runLengths(cell string, spec runSpec, size calSize) runResult {
 	return res
 }
 
+// Target 7 (method.md §6 item 7, §4a): level-scaled errors under a yearly
+// season. Lead 1, daily origins; the level is L_t = 100·(1 + a·cos(2πt/365))
+// with t = 0 at the first backtest origin, the forecast is ŷ_t = L_t and the
+// error e_t = 5·(L_t/100)^β·z_t. The backtest is t = 0..364 (K = 365) and
+// the live year t = 365..729 of the same path.
+const (
+	calSeasonK      = 365 // backtest origins; the live year has as many
+	calSeasonPeriod = 365.0
+	calQuarters     = 4
+	calSeasonStep   = 2 * calSeasonK // t of the ×1.5 step in delay cells: the level's peak after the live year
+	calAlarmOld     = 0.99           // the first version's MAE alarm level, for target 7's diagnostic
+)
+
+// seasonSpec is one cell of target 7.
+type seasonSpec struct {
+	beta, a float64
+	z       calProcess // iid N(0,1) or AR(1) φ = 0.6, unit variance
+}
+
+func (c seasonSpec) level(t int) float64 {
+	return 100 * (1 + c.a*math.Cos(2*math.Pi*float64(t)/calSeasonPeriod))
+}
+
+// pair is the forecast and the error at t given the innovation z.
+func (c seasonSpec) pair(t int, z float64) (yhat, e float64) {
+	l := c.level(t)
+	return l, 5 * math.Pow(l/100, c.beta) * z
+}
+
+// seasonScale fits the scale of mode to the backtest (blocks of n,
+// method.md §4a) and returns it with the summary and the band (n = 30) of
+// the scaled backtest |e|.
+func seasonScale(yhat, e []float64, mode ScaleMode) (Scale, Summary, Band) {
+	fs, es := make([][]float64, len(yhat)), make([][]float64, len(yhat))
+	for t := range yhat {
+		fs[t], es[t] = yhat[t:t+1], e[t:t+1]
+	}
+	sc := FitScale(fs, es, calWindow, mode)
+	q := make([]float64, len(yhat))
+	for t := range q {
+		q[t] = math.Abs(e[t]) / sc.Of(yhat[t])
+	}
+	s := Summarize(q, 1)
+	return sc, s, s.Band(MetricMAE, calWindow)
+}
+
+// seasonModes are the modes each target-7 backtest is judged in, on the
+// same path: index 0 auto, 1 absolute.
+var seasonModes = [2]ScaleMode{ScaleAuto, ScaleAbsolute}
+
+type seasonResult struct {
+	worst  [2]float64 // per mode: the largest over live quarters of the mean exceedance of the alarm limit
+	worstQ [2]int     // its quarter, 1-based
+	se     [2]float64 // Monte Carlo s.e. of worst
+	diag   [2]float64 // worst quarter of the diagnostic reading (see seasonExceedance)
+	keff   [2]float64 // mean K_eff of the (scaled) backtest |e|
+	usable [2]float64 // share of usable verdicts (K_eff ≥ 30)
+	bHat   float64    // mean b̂ in auto mode
+	noBand [2]int     // backtests without a band (left out)
+}
+
+// seasonExceedance is target 7's exceedance cell: per backtest, each live
+// quarter's share of the full live windows (n = 30, sliding by one, in the
+// quarter of their last origin) whose mean scaled |e| exceeds the MAE
+// alarm limit, averaged over backtests; both modes on the same paths.
+// Quarter k holds live origins i (0-based, t = 365 + i) with ⌊4i/365⌋ = k;
+// a live window's last origin is i ≥ 29, so the first quarter has 63
+// windows and the others 91.
+//
+// diag is the worst quarter of another reading, for comparison with the
+// figures method.md quotes: the alarm limit at p = 0.99 (the first
+// version's level), and windows ending at every live origin, so that the
+// first 29 reach back into the backtest (92 windows in the first quarter).
+// It is reported, never checked.
+func seasonExceedance(cell string, c seasonSpec, nb int) seasonResult {
+	const K, n = calSeasonK, calWindow
+	var share, diag [2][calQuarters][]float64
+	for m := range share {
+		for k := range share[m] {
+			share[m][k], diag[m][k] = make([]float64, nb), make([]float64, nb)
+		}
+	}
+	bHat := make([]float64, nb)
+	var keff [2][]float64
+	var usable [2][]bool
+	for m := range keff {
+		keff[m], usable[m] = make([]float64, nb), make([]bool, nb)
+	}
+	var noBand [2]atomic.Int64
+	// quarterShares counts the windows over the limit per quarter of their
+	// last origin; means[j] is the window ending at live origin first+j.
+	quarterShares := func(means []float64, first int, limit float64, out *[calQuarters][]float64, b int) {
+		var over, all [calQuarters]int
+		for j, mae := range means {
+			k := calQuarters * (first + j) / K
+			all[k]++
+			if mae > limit {
+				over[k]++
+			}
+		}
+		for k := range over {
+			out[k][b] = float64(over[k]) / float64(all[k])
+		}
+	}
+	parallelFor(nb, func(b int) {
+		r := cellRand(cell, b)
+		next := c.z.gen(r, 0)
+		yhat, e := make([]float64, 2*K), make([]float64, 2*K)
+		for t := range yhat {
+			yhat[t], e[t] = c.pair(t, next())
+		}
+		for m, mode := range seasonModes {
+			sc, s, band := seasonScale(yhat[:K], e[:K], mode)
+			if mode == ScaleAuto {
+				bHat[b] = sc.B
+			}
+			keff[m][b], usable[m][b] = s.KEff, Usability(s).Usable
+			if !band.Usable() {
+				noBand[m].Add(1)
+				for k := range share[m] {
+					share[m][k][b], diag[m][k][b] = math.NaN(), math.NaN()
+				}
+				continue
+			}
+			// Scaled |e| from t = 365 − 29 (for the diagnostic) to 729,
+			// with the backtest's b̂ and φ.
+			q := make([]float64, K+n-1)
+			for i := range q {
+				t := K - n + 1 + i
+				q[i] = math.Abs(e[t]) / sc.Of(yhat[t])
+			}
+			quarterShares(windowMeans(q[n-1:], n), n-1, band.AlarmUpper, &share[m], b)
+			old, err := s.Bound(MetricMAE, n, calAlarmOld)
+			if err != nil {
+				panic(err) // the band above was usable
+			}
+			quarterShares(windowMeans(q, n), 0, old, &diag[m], b)
+		}
+	})
+	var res seasonResult
+	for m := range share {
+		res.worst[m] = math.Inf(-1)
+		for k := range share[m] {
+			mean, se := meanSE(share[m][k])
+			if mean > res.worst[m] {
+				res.worst[m], res.worstQ[m], res.se[m] = mean, k+1, se
+			}
+			d, _ := meanSE(diag[m][k])
+			res.diag[m] = max(res.diag[m], d)
+		}
+		res.noBand[m] = int(noBand[m].Load())
+		res.keff[m], _ = meanSE(keff[m])
+		for _, ok := range usable[m] {
+			if ok {
+				res.usable[m]++
+			}
+		}
+		res.usable[m] /= float64(nb)
+	}
+	res.bHat, _ = meanSE(bHat)
+	return res
+}
+
+// seasonDelay is target 7's detection delay: the error scale is multiplied
+// by 1.5 from origin calSeasonStep (t = 730, the level's peak after the
+// live year) on. The delay is the number of post-change origins up to and
+// including the first whose full window's mean scaled |e| exceeds the MAE
+// alarm limit (a threshold crossing, no persistence or ME alarm), censored
+// at calDelayCap. Runs whose window just before the change (ending at
+// t = 729) was already above the limit are left out and counted.
+func seasonDelay(cell string, c seasonSpec, mode ScaleMode, reps int) runResult {
+	const K, n = calSeasonK, calWindow
+	length := make([]float64, reps)
+	discarded, unusable := make([]bool, reps), make([]bool, reps)
+	parallelFor(reps, func(i int) {
+		r := cellRand(cell, i)
+		next := c.z.gen(r, 0)
+		yhat, e := make([]float64, K), make([]float64, K)
+		for t := range yhat {
+			yhat[t], e[t] = c.pair(t, next())
+		}
+		sc, _, band := seasonScale(yhat, e, mode)
+		if !band.Usable() {
+			unusable[i], discarded[i] = true, true
+			return
+		}
+		var win [n]float64 // the last n scaled |e|, a ring
+		length[i] = math.Inf(1)
+		for t := K; t < calSeasonStep+calDelayCap; t++ {
+			f, x := c.pair(t, next())
+			if t >= calSeasonStep {
+				x *= 1.5
+			}
+			win[t%n] = math.Abs(x) / sc.Of(f)
+			if t < calSeasonStep-1 {
+				continue
+			}
+			var tot float64
+			for _, v := range win {
+				tot += v
+			}
+			if tot/n > band.AlarmUpper {
+				if t < calSeasonStep {
+					discarded[i] = true
+				} else {
+					length[i] = float64(t - calSeasonStep + 1)
+				}
+				return
+			}
+		}
+	})
+	var res runResult
+	var kept []float64
+	for i := range reps {
+		if unusable[i] {
+			res.unusable++
+		}
+		if discarded[i] {
+			if !unusable[i] {
+				res.discarded++
+			}
+			continue
+		}
+		if math.IsInf(length[i], 1) {
+			res.censored++
+		}
+		kept = append(kept, length[i])
+	}
+	res.count = len(kept)
+	slices.Sort(kept)
+	if len(kept) > 0 {
+		res.median = quantile7(kept, 0.5)
+	}
+	return res
+}
+
 // calRow is one line of the table.
 type calRow struct {
 	target   string
@@ -742,10 +988,110 @@ func TestCalibration(t *testing.T) {
 	res := runLengths("diag delay bias mae", runSpec{procIID, 365, shift(1), "mae"}, size)
 	tab.info("6'. iid, ME bias +1 sd: median delay, MAE alarm only", fmt.Sprintf("%.1f", res.median), "diagnostic")
 
+	// Target 7: level scaling under a yearly season (method.md §4a). Each
+	// cell judges both modes on the same paths; auto is checked in every
+	// cell, absolute only in the negative controls. The ci bounds are
+	// looser by about the ci run's Monte Carlo error (±0.2–0.3%).
+	procAR6 := calProcess{"AR(1) φ=0.6", 1, genAR(0.6)}
+	betaName := map[float64]string{0: "0", 0.5: "½", 1: "1"}
+	zName := map[string]string{procIID.name: "iid z", procAR6.name: "AR(1) φ=0.6 z"}
+	cellName := func(c seasonSpec) string {
+		return fmt.Sprintf("%s, β=%s, a=%g", zName[c.z.name], betaName[c.beta], c.a)
+	}
+	absolute := map[string]float64{} // worst absolute quarter, by cellName
+	var diffAtZero, bAtZero float64  // at a = 0: largest |auto − absolute| and |mean b̂|
+	type span struct{ lo, hi float64 }
+	diagAuto := map[string]span{}        // the diagnostic reading's auto worst quarters, by group
+	diagAbsolute := map[string]float64{} // and absolute's, by cellName
+	for _, z := range []struct {
+		p          calProcess
+		max, loose float64
+	}{{procIID, 0.020, 0.025}, {procAR6, 0.040, 0.050}} {
+		for _, beta := range []float64{0, 0.5, 1} {
+			for _, a := range []float64{0, 0.3, 0.6} {
+				c := seasonSpec{beta, a, z.p}
+				name := cellName(c)
+				r := seasonExceedance("t7 "+name, c, size.seasons)
+				absolute[name], diagAbsolute[name] = r.worst[1], r.diag[1]
+				group := fmt.Sprintf("%s, a = 0", zName[z.p.name])
+				if a > 0 {
+					group = fmt.Sprintf("%s, a = 0.3 and 0.6", zName[z.p.name])
+				}
+				if g, ok := diagAuto[group]; ok {
+					diagAuto[group] = span{min(g.lo, r.diag[0]), max(g.hi, r.diag[0])}
+				} else {
+					diagAuto[group] = span{r.diag[0], r.diag[0]}
+				}
+				check(fmt.Sprintf("7. auto, %s: worst live quarter, alarm limit (p = 0.995) exceeded", name), r.worst[0],
+					upTo(z.max), upTo(z.loose), true)
+				note := fmt.Sprintf("absolute %s (Q%d); K_eff auto %.0f, absolute %.0f", pct(r.worst[1]), r.worstQ[1], r.keff[0], r.keff[1])
+				if r.usable[0] < 1 || r.usable[1] < 1 {
+					note += fmt.Sprintf("; usable %.1f%%, %.1f%%", 100*r.usable[0], 100*r.usable[1])
+				}
+				if n := r.noBand[0] + r.noBand[1]; n > 0 {
+					note += fmt.Sprintf("; %d backtests without a band left out", n)
+				}
+				tab.info(fmt.Sprintf("7. %s: mean b̂; auto's worst quarter; s.e.", name),
+					fmt.Sprintf("%.2f; Q%d; ±%.2f%%", r.bHat, r.worstQ[0], 100*r.se[0]), note)
+				if a == 0 {
+					diffAtZero = max(diffAtZero, math.Abs(r.worst[0]-r.worst[1]))
+					bAtZero = max(bAtZero, math.Abs(r.bHat))
+				}
+			}
+		}
+	}
+	// At a = 0 the level is constant, so b̂ = 0 (§4a: levels spread less
+	// than 10%) and auto is absolute: the same bands on the same paths.
+	tab.check("7. a = 0: largest |auto − absolute| worst-quarter exceedance", diffAtZero, 0, 0, true)
+	tab.check("7. a = 0: largest mean b̂", bAtZero, 0, 0, false)
+	for _, c := range []struct {
+		beta, a    float64
+		min, loose float64
+	}{{0.5, 0.3, 0.040, 0.030}, {0.5, 0.6, 0.080, 0.065}, {1, 0.3, 0.080, 0.065}} {
+		name := cellName(seasonSpec{c.beta, c.a, procIID})
+		check(fmt.Sprintf("7. absolute (negative control), %s: worst live quarter, alarm limit exceeded", name), absolute[name],
+			atLeast(c.min), atLeast(c.loose), true)
+	}
+	// Diagnostic: a reading that comes closer to the figures method.md
+	// quotes (alarm at p = 0.99, and the windows ending in the first 29
+	// live origins, which reach back into the backtest, counted too); see
+	// seasonExceedance.
+	const diagName = "p = 0.99, windows reaching into the backtest"
+	for _, c := range []struct{ group, quoted string }{
+		{"iid z, a = 0", "0.84%"}, {"iid z, a = 0.3 and 0.6", "1.4–1.6%"},
+		{"AR(1) φ=0.6 z, a = 0", "2.2–3.3% over all a"}, {"AR(1) φ=0.6 z, a = 0.3 and 0.6", "2.2–3.3% over all a"},
+	} {
+		g := diagAuto[c.group]
+		tab.info(fmt.Sprintf("7'. auto, %s, every β: worst quarter at %s", c.group, diagName), pct(g.lo)+"–"+pct(g.hi),
+			"diagnostic; method.md §6 quotes "+c.quoted)
+	}
+	for _, c := range []struct {
+		beta, a float64
+		quoted  string
+	}{{0.5, 0.3, "4.8%"}, {0.5, 0.6, "13.4%"}, {1, 0.3, "14.4%"}} {
+		name := cellName(seasonSpec{c.beta, c.a, procIID})
+		tab.info(fmt.Sprintf("7'. absolute, %s: worst quarter at %s", name, diagName), pct(diagAbsolute[name]),
+			"diagnostic; method.md §6 quotes "+c.quoted)
+	}
+
+	// Detection delay of a ×1.5 step at the level's peak (no bound yet),
+	// with the season-free cell and absolute mode beside it.
+	for _, c := range []struct {
+		beta, a float64
+		mode    ScaleMode
+	}{{1, 0.3, ScaleAuto}, {1, 0, ScaleAuto}, {1, 0.3, ScaleAbsolute}} {
+		sp := seasonSpec{c.beta, c.a, procIID}
+		res := seasonDelay(fmt.Sprintf("t7 delay %s %s", cellName(sp), c.mode), sp, c.mode, size.runs)
+		tab.info(fmt.Sprintf("7. %s, %s: median delay of a ×1.5 step at the peak t = 730 (origins)", c.mode, cellName(sp)),
+			fmt.Sprintf("%.1f", res.median),
+			fmt.Sprintf("no bound; %d runs kept, %d above the limit just before the step left out, %d censored",
+				res.count, res.discarded, res.censored))
+	}
+
 	wall := time.Since(start)
 	table := tab.String()
-	t.Logf("calibration (%s: %d backtests per exceedance cell, %d for target 3, %d runs per run-length cell; %d CPUs) in %v\n%s",
-		mode, size.backtests, size.meBacktests, size.runs, runtime.GOMAXPROCS(0), wall.Round(time.Second), table)
+	t.Logf("calibration (%s: %d backtests per exceedance cell, %d for target 3, %d per target-7 cell, %d runs per run-length cell; %d CPUs) in %v\n%s",
+		mode, size.backtests, size.meBacktests, size.seasons, size.runs, runtime.GOMAXPROCS(0), wall.Round(time.Second), table)
 	if len(tab.failed) > 0 {
 		t.Errorf("calibration targets missed: %s", strings.Join(tab.failed, "; "))
 	}
