@@ -615,3 +615,29 @@ func TestHistory(t *testing.T) {
 		t.Errorf("empty history (%v):\n%s", err, b.String())
 	}
 }
+
+// A level-scaled series says that its expectation is the backtest's at the
+// window's forecast levels, with the plain backtest MAE beside it; an
+// unscaled one says nothing of it.
+func TestWriteStatesLevelScale(t *testing.T) {
+	t.Parallel()
+	status := func(scale *float64) *aftercastv1.SeriesModelDrift {
+		return &aftercastv1.SeriesModelDrift{Series: "s", Model: "m", BaselineVersion: 1,
+			SeriesStatus: &aftercastv1.DriftStatus{State: aftercastv1.DriftState_DRIFT_STATE_WITHIN, WindowN: 30, Mae: f(5.2),
+				MaeExpected: f(4.9), BacktestMae: f(4.1), LevelScale: scale}}
+	}
+	var b bytes.Buffer
+	if err := WriteStates(&b, Listing{States: []*aftercastv1.SeriesModelDrift{status(f(1.25))}}, nil); err != nil {
+		t.Fatal(err)
+	}
+	if want := "errors scale with the level: expected MAE 4.900 is the backtest's at this window's forecast levels (level scale 1.250; plain backtest MAE 4.100)"; !strings.Contains(b.String(), want) {
+		t.Errorf("scaled:\n%s\nwant %q", b.String(), want)
+	}
+	b.Reset()
+	if err := WriteStates(&b, Listing{States: []*aftercastv1.SeriesModelDrift{status(nil)}}, nil); err != nil {
+		t.Fatal(err)
+	}
+	if strings.Contains(b.String(), "level scale") {
+		t.Errorf("unscaled:\n%s", b.String())
+	}
+}

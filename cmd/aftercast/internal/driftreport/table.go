@@ -359,6 +359,10 @@ func WriteStates(w io.Writer, l Listing, zones Zones) error {
 			fmt.Fprint(w, "series level not judged yet")
 		}
 		fmt.Fprintln(w)
+		if s := d.GetSeriesStatus(); s != nil && s.LevelScale != nil {
+			fmt.Fprintf(w, "  errors scale with the level: expected MAE %s is the backtest's at this window's forecast levels (level scale %s; plain backtest MAE %s)\n",
+				human(s.MaeExpected), human(s.LevelScale), human(s.BacktestMae))
+		}
 		ls := leadStatuses(d)
 		var off []*aftercastv1.DriftStatus
 		for _, l := range ls {
