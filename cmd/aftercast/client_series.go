@@ -3,6 +3,7 @@ package main
 import (
 	"encoding/json"
 	"errors"
+	"flag"
 	"fmt"
 	"io"
 	"text/tabwriter"
@@ -54,21 +55,11 @@ func seriesCreate(args []string, stdout, stderr io.Writer) error {
 		s.GridAnchorTime = timestamppb.New(t)
 		return nil
 	})
-	pos, err := parseArgs(fs, args)
+	key, err := keyArgs(fs, args, stderr, func() bool { return s.Step != "" && horizon != 0 }, "--step and --horizon are required")
 	if err != nil {
 		return err
 	}
-	if len(pos) != 1 || s.Step == "" || horizon == 0 {
-		if len(pos) == 1 {
-			fmt.Fprintln(stderr, "aftercast series create: --step and --horizon are required")
-		}
-		fs.Usage()
-		return errUsage
-	}
-	if err := textArg("KEY", pos[0]); err != nil {
-		return err
-	}
-	s.Key = pos[0]
+	s.Key = key
 	s.Horizon, s.Season = int32(horizon), int32(season)
 	leads, err := scoring.ParseLeads(decisions)
 	if err != nil {
@@ -98,6 +89,23 @@ func seriesCreate(args []string, stdout, stderr io.Writer) error {
 		fmt.Fprintf(stdout, "series %s already exists with the same settings\n", s.Key)
 	}
 	return nil
+}
+
+// keyArgs parses the flags and the one KEY of a command whose required
+// flags ready says are given, saying what is missing (need) when not.
+func keyArgs(fs *flag.FlagSet, args []string, stderr io.Writer, ready func() bool, need string) (string, error) {
+	pos, err := parseArgs(fs, args)
+	if err != nil {
+		return "", err
+	}
+	if len(pos) != 1 || !ready() {
+		if len(pos) == 1 {
+			fmt.Fprintf(stderr, "%s: %s\n", fs.Name(), need)
+		}
+		fs.Usage()
+		return "", errUsage
+	}
+	return pos[0], textArg("KEY", pos[0])
 }
 
 const errorScaleHelp = "how errors are scaled before they are judged: auto (divided by a power of the forecast level " +
@@ -149,21 +157,11 @@ func seriesUpdate(args []string, stdout, stderr io.Writer) error {
 		mask = append(mask, "decision_leads")
 		return nil
 	})
-	pos, err := parseArgs(fs, args)
+	key, err := keyArgs(fs, args, stderr, func() bool { return len(mask) > 0 }, "give --error-scale or --decision-leads")
 	if err != nil {
 		return err
 	}
-	if len(pos) != 1 || len(mask) == 0 {
-		if len(pos) == 1 {
-			fmt.Fprintln(stderr, "aftercast series update: give --error-scale or --decision-leads")
-		}
-		fs.Usage()
-		return errUsage
-	}
-	if err := textArg("KEY", pos[0]); err != nil {
-		return err
-	}
-	s.Key = pos[0]
+	s.Key = key
 	conn, err := cf.dial()
 	if err != nil {
 		return err
