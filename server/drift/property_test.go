@@ -59,6 +59,7 @@ func (e pushEvent) forecast() bool { return e.origin >= 0 }
 
 // propCase is the final data of one case and a random way of pushing it.
 type propCase struct {
+	seed     uint64
 	key      string
 	backtest []store.BacktestRow
 	final    []scoring.Pair // the scored pairs of the final data
@@ -75,12 +76,20 @@ type propCase struct {
 // final scored pairs are the same for every sequence.
 func newPropCase(seed uint64) propCase {
 	r := rand.New(rand.NewPCG(seed, 77))
-	c := propCase{key: fmt.Sprintf("p%04d", seed)}
+	c := propCase{seed: seed, key: fmt.Sprintf("p%04d", seed)}
+	// Odd cases follow a seasonal level with errors in proportion, so that
+	// their baselines fit b̂ > 0 and the replay judges scaled quantities
+	// (method.md §4a); even ones a constant level (b̂ = 0).
+	level := func(int) float64 { return 100 }
+	if seed%2 == 1 {
+		level = func(k int) float64 { return 100 * (1 + 0.5*math.Cos(2*math.Pi*float64(k)/180)) }
+	}
 	for k := -pBacktest; k < 0; k++ {
 		o := pOrigin(k)
 		for h := 1; h <= pLeads; h++ {
+			l := level(k)
 			c.backtest = append(c.backtest, store.BacktestRow{Series: c.key, Origin: o, Target: o.Add(time.Duration(h) * time.Hour),
-				Actual: 100, Forecast: 100 - r.NormFloat64()})
+				Actual: l, Forecast: l - l/100*r.NormFloat64()})
 		}
 	}
 	actual := map[time.Time]float64{}
@@ -96,10 +105,11 @@ func newPropCase(seed uint64) propCase {
 				e += 1.5
 			}
 			t := pOrigin(k).Add(time.Duration(h) * time.Hour)
+			l := level(k)
 			if _, ok := actual[t]; !ok && r.IntN(20) > 0 { // a twentieth of the targets never get an actual
-				actual[t] = 100 + math.Round(10*r.NormFloat64())/10
+				actual[t] = l + math.Round(10*r.NormFloat64())/10
 			}
-			vals[k][h-1] = 100 - e
+			vals[k][h-1] = l - e*l/100
 			if r.IntN(10) == 0 {
 				vals[k][h-1] = math.NaN() // a lead the producer did not send
 			}
@@ -312,6 +322,9 @@ func (c propCase) differences(ctx context.Context, st *store.Store, ev *drift.Ev
 	if ref == nil {
 		return nil, fmt.Errorf("reference: none (version %d)", version)
 	}
+	if scaled := ref.Lead(0) != nil && ref.Lead(0).Scale.B > 0; scaled != (c.seed%2 == 1) {
+		return []string{fmt.Sprintf("the pooled quantity's b̂ is %v: the case should be level-scaled exactly when its seed is odd", ref.Lead(0).Scale.B)}, nil
+	}
 	pairs := slices.Clone(c.final)
 	slices.SortFunc(pairs, func(a, b scoring.Pair) int {
 		if d := a.Origin.Compare(b.Origin); d != 0 {
@@ -434,7 +447,8 @@ func runCases(t *testing.T, seeds []uint64, hook func(time.Time) time.Time) (map
 // random interleavings: the same final data pushed shuffled, in order,
 // newest first or in shuffled chunks, with duplicates, revisions, re-issued
 // forecasts, gaps filled late, through two replicas whose evaluators judge
-// concurrently and see partial data; once the marks are drained, every
+// concurrently and see partial data (half the cases level-scaled, method.md
+// §4a); once the marks are drained, every
 // current state, onset and window value equals the replay of the final
 // data in origin order, and so does the replayed history. No replay may
 // have needed to start over because a checkpoint went stale.
