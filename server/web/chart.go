@@ -272,6 +272,14 @@ type leadPoint struct {
 	State                       scoring.State
 	HasState                    bool
 	Title                       string
+	// Scaled: the lead's errors scale with level (method.md §4a) and the
+	// expectation, band and alarm limit are the backtest's at the live
+	// window's forecast levels. Unleveled: they scale with level but there
+	// is no live window to set the level, so none is drawn. BacktestMAE is
+	// the plain backtest average (NaN when unknown); it is not drawn.
+	Scaled, Unleveled bool
+	BacktestMAE       float64
+	N                 int // pairs in the live window, when it was read without a drift state
 }
 
 // leadChart draws MAE per lead: live line with state markers, the
@@ -279,10 +287,14 @@ type leadPoint struct {
 // dotted, the decision leads shaded.
 func leadChart(id string, pts []leadPoint, horizon int, decision []int, allDecision bool, unit, step string, windowNote string) *chart {
 	f := frame{w: 960, h: 340, left: 70, top: 30, right: 18, bottom: 50}
+	levels := false
+	for _, p := range pts {
+		levels = levels || p.Scaled && defined(p.Expected)
+	}
 	c := newChart(id, "Windowed MAE per lead step against the backtest band",
 		fmt.Sprintf("For each lead 1 to %d: the MAE of the live window (%s) as a solid line with a marker per lead whose shape tells its state; "+
 			"the backtest expectation as a dashed line, its 95%% band as a shaded area and the MAE alarm limit (p = 0.995) as a dotted line. "+
-			"Decision leads %s are shaded.", horizon, windowNote, compactLeads(decision)), f)
+			"Decision leads %s are shaded.%s", horizon, windowNote, compactLeads(decision), levelsDesc(levels)), f)
 	x := linear{0.5, float64(horizon) + 0.5, f.left, f.left + f.plotW()}
 	hi := 0.0
 	for _, p := range pts {
@@ -326,7 +338,7 @@ func leadChart(id string, pts []leadPoint, horizon int, decision []int, allDecis
 		}
 	}
 	c.xAxisLine(f, fmt.Sprintf("lead (steps of %s after the origin)", step))
-	c.Legend = c.legendOf("live window MAE", "95% band")
+	c.Legend = c.legendOf("live window MAE", "95% band", levels)
 	if len(c.Strips) > 0 {
 		c.Legend = append(c.Legend, legendItem{Kind: "fill", Class: "decision", Label: "decision leads"})
 	}
@@ -347,14 +359,15 @@ func leadChart(id string, pts []leadPoint, horizon int, decision []int, allDecis
 	return c
 }
 
-// legendOf keys the live, expected, band and alarm elements the chart has.
-func (c *chart) legendOf(live, band string) []legendItem {
+// legendOf keys the live, expected, band and alarm elements the chart has;
+// levels says the expectation is level-adjusted (method.md §4a).
+func (c *chart) legendOf(live, band string, levels bool) []legendItem {
 	var l []legendItem
 	if len(c.Live) > 0 {
 		l = append(l, legendItem{Kind: "line", Class: "live", Label: live})
 	}
 	if len(c.Expected) > 0 {
-		l = append(l, legendItem{Kind: "line", Class: "expected", Label: "backtest expectation"})
+		l = append(l, legendItem{Kind: "line", Class: "expected", Label: expectationLabel(levels)})
 	}
 	if len(c.Band) > 0 {
 		l = append(l, legendItem{Kind: "fill", Class: "band", Label: band})
@@ -363,6 +376,26 @@ func (c *chart) legendOf(live, band string) []legendItem {
 		l = append(l, legendItem{Kind: "line", Class: "alarm", Label: "alarm limit"})
 	}
 	return l
+}
+
+// expectationLabel names a chart's expectation line: "backtest
+// expectation", or "backtest expectation at these levels" when errors
+// scale with level and it was set to the live forecast levels.
+func expectationLabel(levels bool) string {
+	if levels {
+		return "backtest expectation at these levels"
+	}
+	return "backtest expectation"
+}
+
+// levelsDesc is what a chart's description adds when its expectation is
+// level-adjusted (method.md §4a).
+func levelsDesc(levels bool) string {
+	if !levels {
+		return ""
+	}
+	return " Errors scale with level on this series: the expectation, band and alarm limit are what the backtest promises at the window's forecast levels, " +
+		"not its plain average."
 }
 
 func yOf(y linear, v float64) float64 {
@@ -407,6 +440,7 @@ type windowPoint struct {
 	N                           int
 	MAE, Expected, Lower, Upper float64
 	Alarm                       float64
+	Scaled                      bool // the band is at the window's forecast levels (method.md §4a)
 }
 
 // eventMark is a state change to mark on the origin chart.
@@ -431,10 +465,14 @@ func maxDefined(hi float64, vs ...float64) float64 {
 // for each window's own size.
 func originChart(id string, lead int, pts []windowPoint, marks []eventMark, unit string, loc *time.Location) *chart {
 	f := frame{w: 960, h: 300, left: 70, top: 16, right: 18, bottom: 50}
+	levels := false
+	for _, p := range pts {
+		levels = levels || p.Scaled
+	}
 	c := newChart(id, fmt.Sprintf("Windowed MAE of lead %d over the last %d origins", lead, len(pts)),
 		fmt.Sprintf("For each of the last %d origins: the MAE of lead %d over the window of up to %d origins ending there (solid line), "+
 			"the backtest expectation (dashed), the 95%% band for that window size (shaded) and the MAE alarm limit (p = 0.995, dotted). "+
-			"Vertical marks are state changes of this lead, at their onset origins.", len(pts), lead, windowN), f)
+			"Vertical marks are state changes of this lead, at their onset origins.%s", len(pts), lead, windowN, levelsDesc(levels)), f)
 	if len(pts) == 0 {
 		return c
 	}
@@ -469,7 +507,7 @@ func originChart(id string, lead int, pts []windowPoint, marks []eventMark, unit
 	}
 	timeTicks(c, f, t0, t1, xt, loc)
 	c.xAxisLine(f, "origin of the window's newest forecast ("+zoneName(loc)+")")
-	c.Legend = c.legendOf("window MAE", "95% band for the window's n")
+	c.Legend = c.legendOf("window MAE", "95% band for the window's n", levels)
 	if len(c.Rules) > 0 {
 		c.Legend = append(c.Legend, legendItem{Kind: "line", Class: "event", Label: "state change of this lead"})
 	}

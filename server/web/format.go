@@ -307,8 +307,80 @@ func onsetOf(st store.DriftStatus, loc *time.Location, now time.Time) onsetView 
 	sn := st.Snapshot
 	if sn.EnteredMetric != "" && sn.EnteredValue != nil && sn.EnteredLimit != nil {
 		v.Entered = enteredText(st.State, sn.EnteredMetric, *sn.EnteredValue, *sn.EnteredLimit)
+		// A level-scaled quantity (method.md §4a) was judged against the
+		// backtest's limit at the forecast levels of that window.
+		if sn.LevelScale != nil {
+			v.Entered += " " + thatWindowsLevels
+		}
 	}
 	return v
+}
+
+// thatWindowsLevels qualifies a limit a past window was judged against
+// when errors scale with level: the limit is the backtest's at the
+// forecast levels of that window, not a fixed number.
+const thatWindowsLevels = "at that window's levels"
+
+// bhatText prints a fitted exponent b̂ as the command line does: two
+// significant digits.
+func bhatText(b float64) string { return strconv.FormatFloat(b, 'g', 2, 64) }
+
+// levelWords says, beside an expectation adjusted to the window's levels
+// (method.md §4a), what it was adjusted from: "backtest average 4.100;
+// errors scale with level, b̂ = 0.93". backtest is the plain backtest MAE
+// (nil: not known); b the quantity's b̂ (0: not known).
+func levelWords(backtest *float64, b float64) string {
+	s := "errors scale with level"
+	if b > 0 {
+		s += ", b̂ = " + bhatText(b)
+	}
+	if backtest != nil {
+		s = "backtest average " + num(*backtest) + "; " + s
+	}
+	return s
+}
+
+// maeAgainst words a window MAE beside what the backtest expects of it:
+// "4.300 (expected 4.100, 95% band 3.200 – 5.100, alarm limit 5.900)";
+// when the expectation is adjusted to the window's levels, "4.300
+// (expected 4.900 at these levels, 95% band …, alarm limit …; backtest
+// average 4.100; errors scale with level, b̂ = 0.93)". b is the
+// quantity's b̂ (0: not known).
+func maeAgainst(sn store.Snapshot, b float64) string {
+	s := fmt.Sprintf("%s (expected %s", numPtr(sn.MAE), numPtr(sn.MAEExpected))
+	if sn.LevelScale != nil {
+		s += " at these levels"
+	}
+	s += fmt.Sprintf(", 95%% band %s, alarm limit %s", rangeOf(sn.MAEBandLower, sn.MAEBandUpper), numPtr(sn.MAEAlarmLimit))
+	if sn.LevelScale != nil {
+		s += "; " + levelWords(sn.BacktestMAE, b)
+	}
+	return s + ")"
+}
+
+// errorScaleText words a series' error scale mode (method.md §4a) and,
+// when a baseline is active, the b̂ of its pooled decision-lead quantity
+// (pooled nil: none): a short value for the settings line and a longer
+// explanation for the baseline card (empty without a baseline). unit is
+// the series' unit, which φ is in.
+func errorScaleText(mode scoring.ScaleMode, pooled *scoring.LeadReference, unit string) (short, long string) {
+	if mode == scoring.ScaleAbsolute {
+		return "absolute", "absolute: errors are judged as they are, whatever the level; expectations and bands are the backtest's plain ones"
+	}
+	short = "auto"
+	if pooled == nil {
+		return short, ""
+	}
+	if b := pooled.Scale.B; b > 0 {
+		return short + " (errors scale with level, b̂ = " + bhatText(b) + ")",
+			fmt.Sprintf("auto: errors scale with level, b̂ = %s on the decision leads (φ = %s). Errors are judged divided by max(|forecast|, φ)^b̂; "+
+				"the expectation, 95%% band and alarm limit beside a live window are the backtest's at that window's forecast levels, "+
+				"and the window MAE and the backtest average stay plain averages. "+
+				"Scaling corrects an error scale that follows the level; it does not correct errors that change for other reasons.",
+				bhatText(b), strings.TrimSpace(num(pooled.Scale.Phi)+" "+unit))
+	}
+	return short + " (b̂ = 0)", "auto: b̂ = 0 on the decision leads (the level hardly varies, or the errors do not grow with it), " +
+		"so errors are judged as they are and the expectations are the backtest's plain ones"
 }
 
 // originText names an origin in its series' zone as people say it: "05:00

@@ -63,6 +63,7 @@ type eventList struct {
 	Older      []eventRow
 	ShowSeries bool   // a column naming the series and model
 	Truncated  bool   // older events exist that are not listed
+	Levels     bool   // some row's limit is at its window's levels
 	Scope      string // what was searched: "in the last 24 h", "since the start"
 }
 
@@ -81,6 +82,7 @@ type eventRow struct {
 	State         stateView
 	Value, Limit  string // "—" when the change had no metric; Limit may be a band "−2.4 – 2.2"
 	Relation      string // how Value stands to Limit: "above the alarm limit"; empty without a metric
+	Levels        bool   // Limit is the backtest's at that window's forecast levels (method.md §4a)
 	WindowN       int
 }
 
@@ -159,7 +161,7 @@ func (h *handler) overview(ctx context.Context) (*overviewPage, error) {
 	})
 	p.Counts = stateCounts(p.Rows)
 
-	_, p.Events, err = h.latestEvents(ctx, "", "", overviewEvents, locs)
+	_, p.Events, err = h.latestEvents(ctx, "", "", overviewEvents, locs, levelLeadsOf(states))
 	p.Events.ShowSeries = true
 	for i := range p.Events.Rows {
 		p.Events.Rows[i].ShowSeries = true
@@ -284,11 +286,41 @@ var eventWindows = []struct {
 }{{24 * time.Hour, "in the last 24 hours"}, {7 * 24 * time.Hour, "in the last 7 days"},
 	{30 * 24 * time.Hour, "in the last 30 days"}, {0, "since the start"}}
 
+// levelKey names the drift state of one lead (0: the series) judged
+// against one baseline version.
+type levelKey struct {
+	series, model string
+	lead, version int
+}
+
+// levelLeads are the drift states whose errors scale with level (method.md
+// §4a): their limits are the backtest's at the window's forecast levels.
+type levelLeads map[levelKey]bool
+
+// levelLeadsOf finds the level-scaled states: those whose window has a
+// level scale.
+func levelLeadsOf(states []store.DriftStatus) levelLeads {
+	out := levelLeads{}
+	for _, st := range states {
+		if st.Snapshot.LevelScale != nil {
+			out[levelKey{st.Series, st.Model, st.Lead, st.BaselineVersion}] = true
+		}
+	}
+	return out
+}
+
+// of says whether an event was judged on a level-scaled quantity: its
+// lead's current state is, against the same baseline version.
+func (l levelLeads) of(ev store.DriftEvent) bool {
+	return l[levelKey{ev.Series, ev.Model, ev.Lead, ev.BaselineVersion}]
+}
+
 // latestEvents returns the newest n drift events (of one series and model,
 // or of all when empty), newest first, raw and as rows. The store lists
 // events oldest first after a sequence number, so it reads recent time
-// windows, widening them until n events are found.
-func (h *handler) latestEvents(ctx context.Context, seriesKey, model string, n int, locs map[string]*time.Location) ([]store.DriftEvent, eventList, error) {
+// windows, widening them until n events are found. levels marks the rows
+// whose limits are at their window's levels.
+func (h *handler) latestEvents(ctx context.Context, seriesKey, model string, n int, locs map[string]*time.Location, levels levelLeads) ([]store.DriftEvent, eventList, error) {
 	now := h.now()
 	var list eventList
 	for _, w := range eventWindows {
@@ -322,10 +354,13 @@ func (h *handler) latestEvents(ctx context.Context, seriesKey, model string, n i
 		list.Truncated = total > len(ring)
 		slices.Reverse(ring)
 		for i, ev := range ring {
+			r := viewEvent(ev, locs[ev.Series], now)
+			r.Levels = r.Relation != "" && levels.of(ev)
+			list.Levels = list.Levels || r.Levels
 			if i < eventsShown {
-				list.Rows = append(list.Rows, viewEvent(ev, locs[ev.Series], now))
+				list.Rows = append(list.Rows, r)
 			} else {
-				list.Older = append(list.Older, viewEvent(ev, locs[ev.Series], now))
+				list.Older = append(list.Older, r)
 			}
 		}
 		return ring, list, nil

@@ -223,3 +223,45 @@ func TestChance(t *testing.T) {
 		}
 	}
 }
+
+// What a level-adjusted expectation says beside a live value (method.md
+// §4a), and that an unscaled one says none of it.
+func TestLevelWords(t *testing.T) {
+	t.Parallel()
+	f := func(x float64) *float64 { return &x }
+	sn := store.Snapshot{WindowN: 30, MAE: f(4.3), MAEExpected: f(4.9), MAEBandLower: f(3.6), MAEBandUpper: f(6.4), MAEAlarmLimit: f(7), BacktestMAE: f(4.1)}
+	if got, want := maeAgainst(sn, 0.93), "4.300 (expected 4.900, 95% band 3.600 – 6.400, alarm limit 7.000)"; got != want {
+		t.Errorf("unscaled:\n got %q\nwant %q", got, want)
+	}
+	sn.LevelScale = f(1.19)
+	if got, want := maeAgainst(sn, 0.93), "4.300 (expected 4.900 at these levels, 95% band 3.600 – 6.400, alarm limit 7.000; "+
+		"backtest average 4.100; errors scale with level, b̂ = 0.93)"; got != want {
+		t.Errorf("scaled:\n got %q\nwant %q", got, want)
+	}
+	if got, want := levelWords(nil, 0), "errors scale with level"; got != want {
+		t.Errorf("levelWords without figures: %q, want %q", got, want)
+	}
+	sn.EnteredMetric, sn.EnteredValue, sn.EnteredLimit = scoring.MetricMAE, f(7.8), f(7.2)
+	if got := onsetOf(store.DriftStatus{State: scoring.StateDegraded, Snapshot: sn}, time.UTC, time.Now()).Entered; got != "on MAE: 7.800 above the alarm limit 7.200 at that window's levels" {
+		t.Errorf("entered on a scaled window: %q", got)
+	}
+	if expectationLabel(true) != "backtest expectation at these levels" || expectationLabel(false) != "backtest expectation" {
+		t.Error("expectation labels")
+	}
+	pooled := &scoring.LeadReference{Scale: scoring.Scale{B: 0.934, Phi: 5}}
+	for _, c := range []struct {
+		mode        scoring.ScaleMode
+		pooled      *scoring.LeadReference
+		short, long string
+	}{
+		{scoring.ScaleAuto, pooled, "auto (errors scale with level, b̂ = 0.93)", "auto: errors scale with level, b̂ = 0.93 on the decision leads (φ = 5.000 MW)"},
+		{scoring.ScaleAuto, &scoring.LeadReference{Scale: scoring.Scale{Phi: 5}}, "auto (b̂ = 0)", "auto: b̂ = 0 on the decision leads"},
+		{scoring.ScaleAuto, nil, "auto", ""},
+		{scoring.ScaleAbsolute, pooled, "absolute", "absolute: errors are judged as they are"},
+	} {
+		short, long := errorScaleText(c.mode, c.pooled, "MW")
+		if short != c.short || !strings.HasPrefix(long, c.long) || (c.long == "") != (long == "") {
+			t.Errorf("errorScaleText(%s, %v) = %q, %q; want %q, %q…", c.mode, c.pooled != nil, short, long, c.short, c.long)
+		}
+	}
+}

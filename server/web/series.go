@@ -40,6 +40,7 @@ type seriesPage struct {
 	HasStates   bool
 	LeadChart   *chart
 	LeadRows    []leadRow
+	LeadLevels  bool // some lead's errors scale with level: the table shows the backtest average and b̂
 	LeadOptions []leadOption
 
 	Lead        int    // the lead of the origin and pairs charts
@@ -65,6 +66,7 @@ type baselineInfo struct {
 	LastOrigin   stamp
 	Rows         int64
 	CadenceSteps int
+	ErrorScale   string // the series' mode and the pooled b̂, explained (method.md §4a)
 	Warnings     []string
 	Older        int // earlier versions kept
 }
@@ -85,7 +87,13 @@ type leadRow struct {
 	ME       string
 	MEBand   string
 	MEAlarm  string
-	Note     string
+	// Levels: the lead's errors scale with level (method.md §4a), so
+	// Expected, Band and Alarm are the backtest's at the window's forecast
+	// levels; BacktestMAE is the plain backtest average, Bhat its b̂.
+	Levels      bool
+	BacktestMAE string
+	Bhat        string
+	Note        string
 }
 
 type leadOption struct {
@@ -165,40 +173,121 @@ func (h *handler) series(ctx context.Context, q url.Values) (*seriesPage, int, e
 	if p.Pairs.NoForecasts {
 		p.Notices = append(p.Notices, notice{Text: "No forecasts of this model have arrived yet."})
 	}
+	// The active baseline as the detector judges with it: its bands and
+	// level scales (method.md §4a).
+	var ref *scoring.Reference
+	if active > 0 {
+		if ref, _, err = h.ev.Reference(ctx, key, model); err != nil {
+			return nil, 0, err
+		}
+	}
+	sc := scalesOf(ref)
+	short, long := errorScaleText(se.ErrorScale, pooledOf(ref), se.Unit)
+	p.Settings = append(p.Settings, setting{"error scale", short})
+	if p.Baseline != nil {
+		p.Baseline.ErrorScale = long
+	}
 
 	byLead := map[int]store.DriftStatus{}
 	for _, st := range states {
 		byLead[st.Lead] = st
 	}
 	p.HasStates = len(states) > 0
-	p.addSeriesState(byLead, dec, active, loc, now)
 
 	// The lead-step chart.
 	var pts []leadPoint
 	if p.HasStates {
-		pts = p.statePoints(se.Horizon, byLead, dec, loc, now)
-	} else if pts, err = h.expectedPoints(ctx, key, model, se.Horizon, active, !p.Pairs.NoForecasts); err != nil {
+		pts = p.statePoints(se.Horizon, byLead, dec, sc, loc, now)
+	} else if pts, err = h.expectedPoints(ctx, key, model, se.Horizon, ref, !p.Pairs.NoForecasts); err != nil {
 		return nil, 0, err
 	}
+	p.addSeriesState(byLead, dec, active, sc[0].B, pts, loc, now)
 	windowNote := fmt.Sprintf("last %d origins", windowN)
 	p.LeadChart = leadChart("lead-chart", pts, se.Horizon, dec, allDecision, se.Unit, se.Step, windowNote)
 
 	// Which lead the origin and pairs charts show.
-	if !p.chooseLead(q, se.Horizon, byLead, dec, allDecision, loc, now) {
+	if !p.chooseLead(q, se.Horizon, byLead, pts, sc, dec, allDecision, loc, now) {
 		status = http.StatusBadRequest
 	}
 
-	events, list, err := h.latestEvents(ctx, key, model, seriesEvents, map[string]*time.Location{key: loc})
+	events, list, err := h.latestEvents(ctx, key, model, seriesEvents, map[string]*time.Location{key: loc}, levelLeadsOf(states))
 	if err != nil {
 		return nil, 0, err
 	}
 	p.Events = list
 	if !p.Pairs.NoForecasts {
-		if err := h.leadHistory(ctx, p, se, model, active, events, loc); err != nil {
+		if err := h.leadHistory(ctx, p, se, model, active, ref, events, loc); err != nil {
 			return nil, 0, err
 		}
 	}
 	return p, status, nil
+}
+
+// scalesOf is the level scales (method.md §4a) of a prepared baseline by
+// lead, the pooled quantity's at 0; empty without a baseline.
+func scalesOf(ref *scoring.Reference) map[int]scoring.Scale {
+	out := map[int]scoring.Scale{}
+	if ref == nil {
+		return out
+	}
+	if l := ref.Lead(0); l != nil {
+		out[0] = l.Scale
+	}
+	for h := 1; h <= ref.Horizon; h++ {
+		if l := ref.Lead(h); l != nil {
+			out[h] = l.Scale
+		}
+	}
+	return out
+}
+
+// pooledOf is the pooled decision-lead quantity of a prepared baseline;
+// nil without a baseline or without one.
+func pooledOf(ref *scoring.Reference) *scoring.LeadReference {
+	if ref == nil {
+		return nil
+	}
+	return ref.Lead(0)
+}
+
+// noStatesNotice says that a baseline has not been judged yet and what the
+// lead chart shows instead (pts, from expectedPoints). Where errors scale
+// with level (method.md §4a) the expectation depends on the forecast
+// level: it is drawn at the levels of each lead's live window, and not at
+// all for a lead without one. b is the pooled b̂.
+func noStatesNotice(pts []leadPoint, b float64) []notice {
+	var drawn, scaled, unleveled []int
+	for _, pt := range pts {
+		if defined(pt.Expected) {
+			drawn = append(drawn, pt.Lead)
+		}
+		switch {
+		case pt.Scaled:
+			scaled = append(scaled, pt.Lead)
+		case pt.Unleveled:
+			unleveled = append(unleveled, pt.Lead)
+		}
+	}
+	words := "errors scale with level"
+	if b > 0 {
+		words += " (b̂ = " + bhatText(b) + " on the decision leads)"
+	}
+	text := "No drift states yet: the baseline has not been judged against production pairs."
+	if len(drawn) > 0 {
+		text += " The lead chart shows the backtest expectation for a full window of " + strconv.Itoa(windowN) + " origins"
+		if len(scaled) > 0 {
+			text += fmt.Sprintf("; %s, so for leads %s it is the expectation at the forecast levels of their live window, "+
+				"and the plain backtest average is in the table", words, compactLeads(scaled))
+		}
+		text += "."
+	}
+	out := []notice{{Text: text}}
+	if len(unleveled) > 0 {
+		out = append(out, notice{Text: fmt.Sprintf("Level-scaled baseline: %s, so what the backtest expects of a window depends on the forecast level. "+
+			"Leads %s have no live forecasts to set the level, so no expectation or band is drawn for them; the plain backtest average is in the table.",
+			words, compactLeads(unleveled))})
+	}
+	return out
 }
 
 // addBaseline describes the active baseline, the newest of versions, and
@@ -221,20 +310,21 @@ func (p *seriesPage) addBaseline(versions []store.BaselineVersion, model string,
 
 // addSeriesState shows the series-level state (lead 0 of byLead), or why
 // there is none; active is the active baseline version, 0 without one.
-func (p *seriesPage) addSeriesState(byLead map[int]store.DriftStatus, dec []int, active int, loc *time.Location, now time.Time) {
+// b is the pooled quantity's b̂ (method.md §4a), pts the lead chart's
+// points.
+func (p *seriesPage) addSeriesState(byLead map[int]store.DriftStatus, dec []int, active int, b float64, pts []leadPoint, loc *time.Location, now time.Time) {
 	s0, ok := byLead[0]
 	switch {
 	case ok:
 		p.State, p.Onset, p.LastOrigin = viewState(s0.State), onsetOf(s0, loc, now), stampOf(s0.LastOrigin, loc, now, true)
-		p.Pooled = pooledSettings(s0.Snapshot, dec)
+		p.Pooled = pooledSettings(s0.Snapshot, dec, b)
 		if s0.BaselineVersion != active && active > 0 {
 			p.Notices = append(p.Notices, notice{Text: fmt.Sprintf("The drift states were judged against baseline v%d; v%d is active and is used from the next evaluation on.",
 				s0.BaselineVersion, active)})
 		}
 	case active > 0:
 		p.State = noState("not evaluated yet")
-		p.Notices = append(p.Notices, notice{Text: "No drift states yet: the baseline has not been judged against production pairs. " +
-			"The lead chart shows the backtest expectation for a full window of " + strconv.Itoa(windowN) + " origins."})
+		p.Notices = append(p.Notices, noStatesNotice(pts, b)...)
 	default:
 		p.State = noState("no baseline")
 	}
@@ -245,14 +335,15 @@ func emptyPoints(horizon int) []leadPoint {
 	pts := make([]leadPoint, horizon)
 	for i := range pts {
 		nan := math.NaN()
-		pts[i] = leadPoint{Lead: i + 1, MAE: nan, Expected: nan, Lower: nan, Upper: nan, Alarm: nan}
+		pts[i] = leadPoint{Lead: i + 1, MAE: nan, Expected: nan, Lower: nan, Upper: nan, Alarm: nan, BacktestMAE: nan}
 	}
 	return pts
 }
 
 // statePoints returns the lead chart's points from the leads' drift states,
-// and lists the leads not within on the page, by state.
-func (p *seriesPage) statePoints(horizon int, byLead map[int]store.DriftStatus, dec []int, loc *time.Location, now time.Time) []leadPoint {
+// and lists the leads not within on the page, by state. sc are the
+// baseline's level scales by lead.
+func (p *seriesPage) statePoints(horizon int, byLead map[int]store.DriftStatus, dec []int, sc map[int]scoring.Scale, loc *time.Location, now time.Time) []leadPoint {
 	pts := emptyPoints(horizon)
 	groups := map[scoring.State][]int{}
 	for h := 1; h <= horizon; h++ {
@@ -264,7 +355,8 @@ func (p *seriesPage) statePoints(horizon int, byLead map[int]store.DriftStatus, 
 		pt := &pts[h-1]
 		pt.HasState, pt.State = true, st.State
 		pt.MAE, pt.Expected, pt.Lower, pt.Upper, pt.Alarm = val(sn.MAE), val(sn.MAEExpected), val(sn.MAEBandLower), val(sn.MAEBandUpper), val(sn.MAEAlarmLimit)
-		pt.Title = leadTitle(h, slices.Contains(dec, h), st, loc, now)
+		pt.Scaled, pt.BacktestMAE = sn.LevelScale != nil, val(sn.BacktestMAE)
+		pt.Title = leadTitle(h, slices.Contains(dec, h), st, sc[h].B, loc, now)
 		if st.State != scoring.StateWithin {
 			groups[st.State] = append(groups[st.State], h)
 		}
@@ -278,32 +370,51 @@ func (p *seriesPage) statePoints(horizon int, byLead map[int]store.DriftStatus, 
 }
 
 // expectedPoints returns the lead chart's points without drift states: the
-// active baseline's expectation for a full window (when active > 0) and,
-// when the model has forecasts, the live window MAE.
-func (h *handler) expectedPoints(ctx context.Context, key, model string, horizon, active int, forecasts bool) ([]leadPoint, error) {
+// active baseline's expectation for a full window (ref non-nil) and, when
+// the model has forecasts, the live window MAE. A lead whose errors scale
+// with level (b̂ > 0, method.md §4a) has bands of the scaled errors, which
+// cannot stand beside a MAE in units as they are: they are multiplied by
+// the mean level scale of the lead's live window, as the detector will
+// judge it ("what the backtest promises at these levels"), and left out
+// (Unleveled) when the lead has no live pairs to set the level.
+func (h *handler) expectedPoints(ctx context.Context, key, model string, horizon int, ref *scoring.Reference, forecasts bool) ([]leadPoint, error) {
 	pts := emptyPoints(horizon)
-	if active > 0 {
-		_, views, _, err := h.ev.BaselineView(ctx, key, model, 0, windowN)
-		if err != nil {
-			return nil, err
-		}
-		for _, v := range views {
-			if v.Lead >= 1 && v.Lead <= horizon && v.Usable {
-				pt := &pts[v.Lead-1]
-				pt.Expected, pt.Lower, pt.Upper, pt.Alarm = v.MAE.Expected, v.MAE.Lower, v.MAE.Upper, v.MAE.AlarmUpper
-			}
+	levels := map[int]scoring.Scale{}
+	for lead := 1; ref != nil && lead <= horizon; lead++ {
+		if l := ref.Lead(lead); l != nil && l.Scale.B > 0 {
+			levels[lead] = l.Scale
 		}
 	}
+	var acc store.AccuracyResult
 	if forecasts {
-		acc, err := h.st.Accuracy(ctx, key, model, store.Selection{Window: windowN}, math.NaN())
+		var err error
+		acc, err = h.st.AccuracyWithLevels(ctx, key, model, store.Selection{Window: windowN}, math.NaN(), levels)
 		if err != nil && !errors.Is(err, store.ErrNotFound) {
 			return nil, err
 		}
 		for _, l := range acc.Table.Leads {
 			if l.Lead >= 1 && l.Lead <= horizon {
-				pts[l.Lead-1].MAE = l.MAE
+				pts[l.Lead-1].MAE, pts[l.Lead-1].N = l.MAE, int(l.N)
 			}
 		}
+	}
+	for lead := 1; ref != nil && lead <= horizon; lead++ {
+		l := ref.Lead(lead)
+		if l == nil || !l.Verdict.Usable {
+			continue
+		}
+		pt := &pts[lead-1]
+		pt.BacktestMAE = l.BacktestMAE
+		b := l.Bands(windowN)
+		if l.Scale.B > 0 {
+			lv := acc.Levels[lead]
+			if lv == nil || lv.N == 0 {
+				pt.Unleveled = true
+				continue
+			}
+			b, pt.Scaled = b.InUnits(lv.Window()), true
+		}
+		pt.Expected, pt.Lower, pt.Upper, pt.Alarm = b.MAE.Expected, b.MAE.Lower, b.MAE.Upper, b.MAE.AlarmUpper
 	}
 	return pts, nil
 }
@@ -311,7 +422,9 @@ func (h *handler) expectedPoints(ctx context.Context, key, model string, horizon
 // chooseLead picks the lead the origin and pairs charts show — the one
 // asked for in q, else defaultLead's — and fills the lead menu and table.
 // It returns false when q asks for a lead that does not exist.
-func (p *seriesPage) chooseLead(q url.Values, horizon int, byLead map[int]store.DriftStatus, dec []int, allDecision bool, loc *time.Location, now time.Time) bool {
+// pts are the lead chart's points and sc the baseline's level scales by
+// lead, for the table.
+func (p *seriesPage) chooseLead(q url.Values, horizon int, byLead map[int]store.DriftStatus, pts []leadPoint, sc map[int]scoring.Scale, dec []int, allDecision bool, loc *time.Location, now time.Time) bool {
 	valid := true
 	p.Lead, p.LeadNote = defaultLead(byLead, dec)
 	if s := q.Get("lead"); s != "" {
@@ -334,7 +447,12 @@ func (p *seriesPage) chooseLead(q url.Values, horizon int, byLead map[int]store.
 		p.LeadOptions = append(p.LeadOptions, o)
 	}
 	for h := 1; h <= horizon; h++ {
-		p.LeadRows = append(p.LeadRows, leadRowOf(h, byLead, slices.Contains(dec, h) && !allDecision, h == p.Lead, p.Series, p.Model, q, loc, now))
+		r := leadRowOf(h, byLead, slices.Contains(dec, h) && !allDecision, h == p.Lead, p.Series, p.Model, q, loc, now)
+		if h <= len(pts) {
+			r.addLevels(pts[h-1], sc[h].B, !p.HasStates)
+		}
+		p.LeadLevels = p.LeadLevels || r.Levels
+		p.LeadRows = append(p.LeadRows, r)
 	}
 	return valid
 }
@@ -358,7 +476,8 @@ func defaultLead(byLead map[int]store.DriftStatus, dec []int) (int, string) {
 	return dec[0], fmt.Sprintf("Lead %d is shown: the first decision lead.", dec[0])
 }
 
-func leadTitle(h int, decision bool, st store.DriftStatus, loc *time.Location, now time.Time) string {
+// leadTitle is a lead's marker tooltip; b is the lead's b̂ (method.md §4a).
+func leadTitle(h int, decision bool, st store.DriftStatus, b float64, loc *time.Location, now time.Time) string {
 	sn := st.Snapshot
 	s := fmt.Sprintf("lead %d", h)
 	if decision {
@@ -366,8 +485,11 @@ func leadTitle(h int, decision bool, st store.DriftStatus, loc *time.Location, n
 	}
 	s += ": " + viewState(st.State).Label + " " + onsetOf(st, loc, now).Text()
 	if sn.MAE != nil {
-		s += fmt.Sprintf("; window MAE %s over %d origins; expected %s, 95%% band %s to %s, alarm limit %s",
-			numPtr(sn.MAE), sn.WindowN, numPtr(sn.MAEExpected), numPtr(sn.MAEBandLower), numPtr(sn.MAEBandUpper), numPtr(sn.MAEAlarmLimit))
+		s += fmt.Sprintf("; window MAE %s over %d origins; expected %s", numPtr(sn.MAE), sn.WindowN, numPtr(sn.MAEExpected))
+		if sn.LevelScale != nil {
+			s += " at these levels (" + levelWords(sn.BacktestMAE, b) + ")"
+		}
+		s += fmt.Sprintf(", 95%% band %s to %s, alarm limit %s", numPtr(sn.MAEBandLower), numPtr(sn.MAEBandUpper), numPtr(sn.MAEAlarmLimit))
 	}
 	if sn.Reason != "" {
 		s += "; " + sn.Reason
@@ -409,7 +531,31 @@ func leadRowOf(h int, byLead map[int]store.DriftStatus, decision, selected bool,
 	return r
 }
 
-func pooledSettings(sn store.Snapshot, dec []int) []setting {
+// addLevels adds to a lead's row what its chart point says of level
+// scaling (method.md §4a): whether the expectation is at the window's
+// levels, the plain backtest average and b̂. Without a drift state
+// (fromPoint) the row takes the point's figures, which the chart draws.
+func (r *leadRow) addLevels(pt leadPoint, b float64, fromPoint bool) {
+	r.Levels = pt.Scaled || pt.Unleveled
+	r.BacktestMAE, r.Bhat = num(pt.BacktestMAE), bhatText(b)
+	if !fromPoint {
+		return
+	}
+	r.MAE, r.Expected, r.Alarm = num(pt.MAE), num(pt.Expected), num(pt.Alarm)
+	if pt.N > 0 {
+		r.N = strconv.Itoa(pt.N)
+	}
+	if defined(pt.Lower) && defined(pt.Upper) {
+		r.Band = num(pt.Lower) + " – " + num(pt.Upper)
+	}
+	if pt.Unleveled {
+		r.Note = "errors scale with level: no expectation until the lead has live forecasts"
+	}
+}
+
+// pooledSettings is the series-level window beside its band; b is the
+// pooled quantity's b̂ (method.md §4a).
+func pooledSettings(sn store.Snapshot, dec []int, b float64) []setting {
 	if sn.Reason != "" && sn.MAE == nil {
 		return []setting{{"baseline", sn.Reason}}
 	}
@@ -419,8 +565,9 @@ func pooledSettings(sn store.Snapshot, dec []int) []setting {
 	return []setting{
 		{"pooled over", "decision leads " + compactLeads(dec)},
 		{"window", fmt.Sprintf("last %d origins", sn.WindowN)},
-		{"MAE", fmt.Sprintf("%s (expected %s, 95%% band %s, alarm limit %s)", numPtr(sn.MAE), numPtr(sn.MAEExpected), rangeOf(sn.MAEBandLower, sn.MAEBandUpper), numPtr(sn.MAEAlarmLimit))},
-		{"ME (bias)", fmt.Sprintf("%s (expected %s, 95%% band %s, alarm band %s)", numPtr(sn.ME), numPtr(sn.MEExpected), rangeOf(sn.MEBandLower, sn.MEBandUpper), rangeOf(sn.MEAlarmLower, sn.MEAlarmUpper))},
+		{"MAE", maeAgainst(sn, b)},
+		{"ME (bias)", fmt.Sprintf("%s (expected %s%s, 95%% band %s, alarm band %s)", numPtr(sn.ME), numPtr(sn.MEExpected), atTheseLevels(sn),
+			rangeOf(sn.MEBandLower, sn.MEBandUpper), rangeOf(sn.MEAlarmLower, sn.MEAlarmUpper))},
 	}
 }
 
@@ -428,7 +575,7 @@ func pooledSettings(sn store.Snapshot, dec []int) []setting {
 // lead's scored pairs (late ones excluded) over the last originPoints
 // origins plus a window's worth before them, the windowed MAE at each
 // origin, and the band for each window's own n.
-func (h *handler) leadHistory(ctx context.Context, p *seriesPage, se store.Series, model string, active int, events []store.DriftEvent, loc *time.Location) error {
+func (h *handler) leadHistory(ctx context.Context, p *seriesPage, se store.Series, model string, active int, ref *scoring.Reference, events []store.DriftEvent, loc *time.Location) error {
 	sel := store.Selection{Leads: []int{p.Lead}, Window: originPoints + windowN - 1}
 	var pairs []store.Pair
 	for tok := ""; ; {
@@ -457,10 +604,6 @@ func (h *handler) leadHistory(ctx context.Context, p *seriesPage, se store.Serie
 	// band for each window's own n.
 	var lr *scoring.LeadReference
 	if active > 0 {
-		ref, _, err := h.ev.Reference(ctx, se.Key, model)
-		if err != nil {
-			return err
-		}
 		if ref != nil {
 			lr = ref.Lead(p.Lead)
 		}
@@ -481,7 +624,9 @@ func (h *handler) leadHistory(ctx context.Context, p *seriesPage, se store.Serie
 		nan := math.NaN()
 		wp := windowPoint{Origin: j.Origin, N: j.N, MAE: j.MAE, Expected: nan, Lower: nan, Upper: nan, Alarm: nan}
 		if b := j.Bands.MAE; lr != nil && lr.Verdict.Usable && b.Metric != "" && b.Usable() {
+			// In units, at the forecast levels of each window (method.md §4a).
 			wp.Expected, wp.Lower, wp.Upper, wp.Alarm = b.Expected, b.Lower, b.Upper, b.AlarmUpper
+			wp.Scaled = lr.Scale.B > 0
 		}
 		pts = append(pts, wp)
 	}
@@ -614,6 +759,15 @@ func decisionText(dec []int, all bool) string {
 		return "all leads"
 	}
 	return compactLeads(dec)
+}
+
+// atTheseLevels is " at these levels" for an expectation adjusted to the
+// window's forecast levels (method.md §4a), else "".
+func atTheseLevels(sn store.Snapshot) string {
+	if sn.LevelScale == nil {
+		return ""
+	}
+	return " at these levels"
 }
 
 func rangeOf(lo, hi *float64) string {
