@@ -44,6 +44,11 @@ func runDemo(args []string, stdout, stderr io.Writer) error {
 	metricsListen := fs.String("metrics-listen", "", "HTTP address for the status page, /metrics and health (default 127.0.0.1:7411; with --once a free port; - for none)")
 	speed := fs.Float64("speed", 0, "production days streamed per second of wall time; 0 streams them as fast as the service takes them")
 	seed := fs.Uint64("seed", demo.DefaultSeed, "seed of the invented data")
+	errorScale := aftercastv1.ErrorScale_ERROR_SCALE_AUTO
+	fs.Func("error-scale", errorScaleHelp+" (default auto); the report ends with what it did to the healthy substations", func(v string) (err error) {
+		errorScale, err = parseErrorScale(v)
+		return err
+	})
 	if err := parseFlags(fs, args); err != nil {
 		return err
 	}
@@ -122,7 +127,7 @@ func runDemo(args []string, stdout, stderr io.Writer) error {
 	if !*once {
 		printEndpoints(ctx, stderr, srv)
 	}
-	p := &producer{cf: cf, conn: conn, sc: sc, stderr: stderr}
+	p := &producer{cf: cf, conn: conn, sc: sc, stderr: stderr, errorScale: errorScale}
 	err = p.setUp(ctx)
 	if err == nil {
 		err = p.stream(ctx, *speed)
@@ -145,7 +150,7 @@ func runDemo(args []string, stdout, stderr io.Writer) error {
 		err = driftreport.WriteJSON(stdout, driftreport.ToStates(states))
 	} else {
 		sc.WriteHeader(stdout)
-		err = sc.WriteReport(stdout, states, events)
+		err = sc.WriteReport(stdout, states, events, p.scale)
 	}
 	if err != nil || *once {
 		return err
@@ -188,10 +193,12 @@ func statusPage(ctx context.Context, addr string) bool {
 // producer sends the scenario to the service as the utility's forecasting
 // job and meter feed would.
 type producer struct {
-	cf     *clientFlags
-	conn   *grpc.ClientConn
-	sc     *demo.Scenario
-	stderr io.Writer
+	cf         *clientFlags
+	conn       *grpc.ClientConn
+	sc         *demo.Scenario
+	stderr     io.Writer
+	errorScale aftercastv1.ErrorScale // of every series created
+	scale      demo.ErrorScale        // as the service reports it, set by setUp
 }
 
 // next hands out the items of a slice one at a time, as streamBatches
@@ -208,15 +215,16 @@ func next[T any](items []T) func() (T, error) {
 	}
 }
 
-// setUp creates the series and imports the backtest, with the training
-// actuals, as baseline version 1 of every series.
+// setUp creates the series with the producer's error scale and imports
+// the backtest, with the training actuals, as baseline version 1 of every
+// series; it keeps the error scale the service reports for the baselines.
 func (p *producer) setUp(ctx context.Context) error {
 	series := aftercastv1.NewSeriesServiceClient(p.conn)
 	for _, s := range p.sc.Substations {
 		cctx, cancel := p.cf.within(ctx)
 		_, err := series.CreateSeries(cctx, &aftercastv1.CreateSeriesRequest{Series: &aftercastv1.Series{Key: s.Key,
 			Step: demo.Step, Horizon: demo.Horizon, Season: demo.Season, Unit: demo.Unit, TimeZone: demo.Zone,
-			DecisionLeads: demo.DecisionLeads()}})
+			DecisionLeads: demo.DecisionLeads(), ErrorScale: p.errorScale}})
 		cancel()
 		if err != nil {
 			return fmt.Errorf("creating series %s: %w", s.Key, p.cf.rpcError(err, ""))
@@ -251,12 +259,19 @@ func (p *producer) setUp(ctx context.Context) error {
 		len(p.sc.Backtest), len(p.sc.Training), len(resp.GetBaselines()))
 	for _, b := range resp.GetBaselines() {
 		for _, w := range b.GetVersion().GetWarnings() {
+			// Usability is checked below, as the series' error scale
+			// judges it; the import's own lead warning is of the plain
+			// errors whatever the mode.
+			if w.GetKind() == aftercastv1.BaselineWarningKind_BASELINE_WARNING_KIND_LEAD_NOT_USABLE {
+				continue
+			}
 			fmt.Fprintf(p.stderr, "aftercast demo: warning: %s: %s\n", b.GetVersion().GetSeries(), w.GetMessage())
 		}
 	}
 
 	// Every decision lead, and the pooled quantity the series level pages
 	// on, must be usable (method.md §4: K ≥ 180, K_eff ≥ 30).
+	p.scale = demo.ErrorScale{Exponents: map[string]float64{}}
 	for _, s := range p.sc.Substations {
 		cctx, cancel := p.cf.within(ctx)
 		b, err := baselines.GetBaseline(cctx, &aftercastv1.GetBaselineRequest{Series: s.Key, Model: demo.Model})
@@ -264,6 +279,8 @@ func (p *producer) setUp(ctx context.Context) error {
 		if err != nil {
 			return fmt.Errorf("reading the baseline of %s: %w", s.Key, p.cf.rpcError(err, ""))
 		}
+		p.scale.Mode = b.GetErrorScale()
+		p.scale.Exponents[s.Key] = b.GetPooled().GetErrorScaleExponent()
 		for _, l := range append(b.GetLeads(), b.GetPooled()) {
 			if !l.GetUsable() {
 				fmt.Fprintf(p.stderr, "aftercast demo: warning: %s lead %d (0 = pooled): %s\n", s.Key, l.GetLead(), l.GetUnusableReason())

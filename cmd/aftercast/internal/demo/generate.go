@@ -26,6 +26,7 @@ type generator struct {
 	hour    []float64
 	weekend []bool
 	doy     []float64
+	cold    []float64 // 0 in late July, 1 in late January: the annual cycle
 
 	temp, teff [][]float64 // per substation: outdoor temperature, effective temperature
 	load       [][]float64 // true load
@@ -50,6 +51,7 @@ const (
 	streamRunRegional
 	streamRunLocal
 	streamLoad
+	streamProcess
 )
 
 // ar1 fills x with a stationary AR(1) series of standard deviation sd whose
@@ -76,12 +78,13 @@ func newGenerator(seed uint64, p Params, loc *time.Location) *generator {
 	g.n = g.origins[len(g.origins)-1] + 1
 	g.meterFrom = g.index(ProductionOrigin(loc, MeterFaultDay))
 
-	g.hour, g.weekend, g.doy = make([]float64, g.n), make([]bool, g.n), make([]float64, g.n)
+	g.hour, g.weekend, g.doy, g.cold = make([]float64, g.n), make([]bool, g.n), make([]float64, g.n), make([]float64, g.n)
 	for i := range g.n {
 		lt := g.at(i).In(loc)
 		g.hour[i] = float64(lt.Hour())
 		g.weekend[i] = lt.Weekday() == time.Saturday || lt.Weekday() == time.Sunday
 		g.doy[i] = float64(lt.YearDay())
+		g.cold[i] = (1 - season(g.doy[i])) / 2
 	}
 	g.weather()
 	g.loads()
@@ -104,9 +107,9 @@ func (g *generator) weather() {
 		ar1(g.rng(streamLocal, uint64(s)), local, g.p.LocalDay24, g.p.LocalSD)
 		t, e := make([]float64, g.n), make([]float64, g.n)
 		for i := range g.n {
-			season := -math.Cos(2 * math.Pi * (g.doy[i] - 25) / 365.25) // −1 late January, +1 late July
-			amp := 2.6 + 1.4*season
-			t[i] = 7.8 + 7.5*season + amp*math.Cos(2*math.Pi*(g.hour[i]-15)/24) + regional[i] + local[i]
+			c := season(g.doy[i])
+			amp := 2.6 + 1.4*c
+			t[i] = 7.8 + 7.5*c + amp*math.Cos(2*math.Pi*(g.hour[i]-15)/24) + regional[i] + local[i]
 			if i == 0 {
 				e[i] = t[i]
 			} else {
@@ -117,14 +120,27 @@ func (g *generator) weather() {
 	}
 }
 
-// loads makes the true load of each substation and its meter readings.
+// season is the annual cycle at a day of the year: −1 in late January,
+// +1 in late July.
+func season(doy float64) float64 { return -math.Cos(2 * math.Pi * (doy - 25) / 365.25) }
+
+// loads makes the true load of each substation and its meter readings:
+// the load model at the true effective temperature, times one plus the
+// unexplained share (so the unexplained MW grow with the load, as they do
+// in a real network: a cold day's load swings by more MW than a mild
+// day's), plus any process load.
 func (g *generator) loads() {
+	process := make([]float64, g.n)
 	for s, ss := range substations {
 		noise := make([]float64, g.n)
 		ar1(g.rng(streamLoad, uint64(s)), noise, g.p.LoadNoiseDay24, ss.Noise)
+		clear(process)
+		if ss.Process > 0 {
+			ar1(g.rng(streamProcess, uint64(s)), process, g.p.LoadNoiseDay24, ss.Process)
+		}
 		y, m := make([]float64, g.n), make([]float64, g.n)
 		for i := range g.n {
-			y[i] = g.model(s, i, g.teff[s][i]) + noise[i]
+			y[i] = g.model(s, i, g.teff[s][i])*(1+noise[i]) + process[i]
 			m[i] = y[i]
 			if ss.Fault == MeterHigh && i >= g.meterFrom {
 				m[i] *= MeterFactor
@@ -236,13 +252,20 @@ func (g *generator) errors() {
 	}
 }
 
+// errSD is the standard deviation (°C) of the temperature forecast for
+// hour i at a lead of so many hours: it grows with the lead, and is
+// larger in winter (Params.ErrWinter).
+func (g *generator) errSD(lead, i int) float64 {
+	return (g.p.ErrSD0 + g.p.ErrSDPerHour*float64(lead)) * (1 + g.p.ErrWinter*g.cold[i])
+}
+
 // weatherForecast is the temperature forecast for hour i of substation s
 // from the weather run made at origin r.
 func (g *generator) weatherForecast(s, r, i int) float64 {
 	lead := i - g.origins[r]
 	w := g.p.ErrPersistShare
 	u := math.Sqrt(w)*g.persist[s][i] + math.Sqrt(1-w)*g.run[s][r][lead]
-	return g.temp[s][i] + (g.p.ErrSD0+g.p.ErrSDPerHour*float64(lead))*u
+	return g.temp[s][i] + g.errSD(lead, i)*u
 }
 
 // forecast is the forecaster's vector for substation s from origin o using
@@ -261,7 +284,7 @@ func (g *generator) forecast(s, o, r int) []float64 {
 		i := i0 + h
 		lf *= lambda
 		te += g.p.EffAlpha * (g.weatherForecast(s, r, i) + lf*correction - te)
-		sd := (g.p.ErrSD0 + g.p.ErrSDPerHour*float64(h)) * (1 - lf)
+		sd := g.errSD(h, i) * (1 - lf)
 		out[h-1] = g.expectedModel(s, i, te, sd)
 	}
 	return out

@@ -106,11 +106,21 @@ func (sc *Scenario) onsetCols(s *aftercastv1.DriftStatus) (day, lasted string) {
 	return sc.dayLabel(s.GetOnsetOriginTime().AsTime()), strconv.Itoa(int(s.GetOriginsSinceOnset()))
 }
 
+// ErrorScale is how the service scaled the errors of the demo's series
+// (method.md §4a), as it reported it when the baselines were imported.
+type ErrorScale struct {
+	Mode aftercastv1.ErrorScale
+	// Exponents are the b̂ fitted to each series' pooled decision-lead
+	// quantity (0 under absolute).
+	Exponents map[string]float64
+}
+
 // WriteReport writes the demo's report: the series-level state of every
 // substation with its onset, the per-lead table of those not within, the
-// drift events, series level in full and per lead grouped, and what a page
-// means by chance.
-func (sc *Scenario) WriteReport(w io.Writer, l driftreport.Listing, events []*aftercastv1.DriftEvent) error {
+// drift events, series level in full and per lead grouped, what a page
+// means by chance, and at the end one line on what the error scale did to
+// the healthy substations.
+func (sc *Scenario) WriteReport(w io.Writer, l driftreport.Listing, events []*aftercastv1.DriftEvent, es ErrorScale) error {
 	driftreport.WritePending(w, l.PendingEvaluations)
 	states := l.States
 	fault := map[string]string{}
@@ -170,7 +180,85 @@ func (sc *Scenario) WriteReport(w io.Writer, l driftreport.Listing, events []*af
 		return err
 	}
 	driftreport.WriteChance(w, l.ExpectedChancePagesPerWeek)
+	sc.writeErrorScale(w, l, events, es)
 	return nil
+}
+
+// writeErrorScale writes one line on what the error scale did to the
+// healthy substations, from what the service judged: how many paged (a
+// series-level alarm), how many it could not judge at the series level,
+// and how many of their leads entered degraded. Nothing when the mode is
+// unknown.
+func (sc *Scenario) writeErrorScale(w io.Writer, l driftreport.Listing, events []*aftercastv1.DriftEvent, es ErrorScale) {
+	var what string
+	switch es.Mode {
+	case aftercastv1.ErrorScale_ERROR_SCALE_AUTO:
+		what = "error scale auto"
+		if len(es.Exponents) > 0 {
+			bs := slices.Sorted(maps.Values(es.Exponents))
+			what += fmt.Sprintf(" (b̂ %s–%s, fitted to each backtest)", strconv.FormatFloat(bs[0], 'f', 2, 64), strconv.FormatFloat(bs[len(bs)-1], 'f', 2, 64))
+		}
+		what += ": winter errors are judged against what the backtest promised at winter levels"
+	case aftercastv1.ErrorScale_ERROR_SCALE_ABSOLUTE:
+		what = "error scale absolute: errors are judged as they are, against a band that averages the backtest's summer and winter"
+	default:
+		return
+	}
+	healthy := map[string]bool{}
+	for _, s := range sc.Substations {
+		if s.Fault == NoFault {
+			healthy[s.Key] = true
+		}
+	}
+	paged := map[string]bool{}
+	type seriesLead struct {
+		series string
+		lead   int32
+	}
+	leads := map[seriesLead]bool{}
+	for _, e := range events {
+		if !healthy[e.GetSeries()] || e.GetNewState() != aftercastv1.DriftState_DRIFT_STATE_DEGRADED {
+			continue
+		}
+		if e.Lead == nil {
+			paged[e.GetSeries()] = true
+		} else {
+			leads[seriesLead{e.GetSeries(), e.GetLead()}] = true
+		}
+	}
+	unjudged := 0
+	var keff []float64
+	for _, d := range l.States {
+		if s := d.GetSeriesStatus(); healthy[d.GetSeries()] && s.GetState() == aftercastv1.DriftState_DRIFT_STATE_INSUFFICIENT_BASELINE {
+			unjudged++
+			if s.KEff != nil {
+				keff = append(keff, s.GetKEff())
+			}
+		}
+	}
+	chance := " by chance"
+	if es.Mode == aftercastv1.ErrorScale_ERROR_SCALE_ABSOLUTE {
+		chance = " in the winter"
+	}
+	line := fmt.Sprintf("%s; %d of %d healthy substations paged%s", what, len(paged), len(healthy), chance)
+	if unjudged > 0 {
+		line += fmt.Sprintf(", %d could not be judged at the series level (insufficient_baseline", unjudged)
+		if len(keff) > 0 {
+			slices.Sort(keff)
+			line += fmt.Sprintf(": K_eff %.0f–%.0f", keff[0], keff[len(keff)-1])
+			switch {
+			case keff[len(keff)-1] >= 30:
+			case es.Mode == aftercastv1.ErrorScale_ERROR_SCALE_ABSOLUTE:
+				// Under auto the same backtests give K_eff in the
+				// hundreds: what the plain quantity adds is the season.
+				line += " < 30: the plain errors follow the season"
+			default:
+				line += " < 30"
+			}
+		}
+		line += ")"
+	}
+	fmt.Fprintf(w, "\n%s; %d of their leads entered degraded (leads do not page).\n", line, len(leads))
 }
 
 // startUp reports whether an event only starts a state machine up: its
@@ -186,6 +274,26 @@ func startUp(e *aftercastv1.DriftEvent) bool {
 func informational(e *aftercastv1.DriftEvent) bool {
 	improved := aftercastv1.DriftState_DRIFT_STATE_IMPROVED
 	return e.GetNewState() == improved || e.GetPreviousState() == improved
+}
+
+// maeAgainst is how an MAE event's window value must compare with its
+// limit for its change: ">" entering degraded or leaving improved, "<"
+// entering improved or leaving degraded; "" for other events. On
+// level-scaled errors the judged comparison is of the scaled window, and
+// the values in the series' unit may disagree with it.
+func maeAgainst(e *aftercastv1.DriftEvent) string {
+	if e.GetMetric() != aftercastv1.DriftMetric_DRIFT_METRIC_MAE {
+		return ""
+	}
+	switch from, to := e.GetPreviousState(), e.GetNewState(); {
+	case to == aftercastv1.DriftState_DRIFT_STATE_DEGRADED,
+		from == aftercastv1.DriftState_DRIFT_STATE_IMPROVED && to == aftercastv1.DriftState_DRIFT_STATE_WITHIN:
+		return ">"
+	case to == aftercastv1.DriftState_DRIFT_STATE_IMPROVED,
+		from == aftercastv1.DriftState_DRIFT_STATE_DEGRADED && to == aftercastv1.DriftState_DRIFT_STATE_WITHIN:
+		return "<"
+	}
+	return ""
 }
 
 // change is an event's change of state and the metric behind it, with
@@ -282,7 +390,13 @@ func (sc *Scenario) writeEvents(w io.Writer, events []*aftercastv1.DriftEvent) e
 	if len(series) == 0 {
 		fmt.Fprintln(w, "  none beyond start-up")
 	}
+	// By onset, as the story runs; those without one (start-up into an
+	// insufficient state) first.
+	slices.SortStableFunc(series, func(a, b *aftercastv1.DriftEvent) int {
+		return a.GetOriginTime().AsTime().Compare(b.GetOriginTime().AsTime())
+	})
 	tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', 0)
+	scaledNote := false
 	for _, e := range series {
 		detail := ""
 		if e.Value != nil && e.Limit != nil {
@@ -291,6 +405,10 @@ func (sc *Scenario) writeEvents(w io.Writer, events []*aftercastv1.DriftEvent) e
 				rel = "<"
 			}
 			detail = fmt.Sprintf("%s %s %s, window %d", num(e.Value), rel, num(e.Limit), e.GetWindowN())
+			if maeAgainst(e) != "" && maeAgainst(e) != rel {
+				detail += " *"
+				scaledNote = true
+			}
 		}
 		day, at := "—", "(no onset)"
 		if e.GetOriginTime() != nil {
@@ -304,6 +422,9 @@ func (sc *Scenario) writeEvents(w io.Writer, events []*aftercastv1.DriftEvent) e
 	}
 	if err := tw.Flush(); err != nil {
 		return err
+	}
+	if scaledNote {
+		fmt.Fprintln(w, "  * judged on level-scaled errors (method.md §4a): the window's MAE in MW and the limit adjusted to its mean level can fall either side of each other")
 	}
 
 	fmt.Fprintln(w, "\nDrift events per lead, grouped (for diagnosis: the leads of one forecast are correlated, so these do not page):")

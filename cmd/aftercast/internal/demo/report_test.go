@@ -2,6 +2,7 @@ package demo
 
 import (
 	"slices"
+	"strconv"
 	"strings"
 	"testing"
 	"time"
@@ -70,7 +71,7 @@ func TestReportGroupsEvents(t *testing.T) {
 	}
 	out := b.String()
 	for _, want := range []string{
-		"day 46  2026-10-15 05:00  dh/kalkbro   within → degraded (me)             0.610 > 0.550, window 30",
+		"day 46  " + at(loc, 46) + "  dh/kalkbro   within → degraded (me)             0.610 > 0.550, window 30",
 		"day 30                    dh/lyngmark  within ⇄ improved (informational)  1 change\n",
 		"dh/kalkbro  within → degraded (me)  3 leads: 1-3  days 40–44 (median 41)",
 		"not listed: 1 start-up events",
@@ -113,7 +114,8 @@ func TestReportShowsOnsetsFromStates(t *testing.T) {
 		PreviousState: aftercastv1.DriftState_DRIFT_STATE_WITHIN, NewState: aftercastv1.DriftState_DRIFT_STATE_DEGRADED, Metric: me,
 		Value: &v, Limit: &l, WindowN: 30, Cause: aftercastv1.DriftCause_DRIFT_CAUSE_REVISION}}
 	var b strings.Builder
-	if err := sc.WriteReport(&b, driftreport.Listing{States: states, ExpectedChancePagesPerWeek: 0.04}, events); err != nil {
+	es := ErrorScale{Mode: aftercastv1.ErrorScale_ERROR_SCALE_AUTO, Exponents: map[string]float64{"dh/aaskrog": 0.81, MeterFaultSeries: 0.6}}
+	if err := sc.WriteReport(&b, driftreport.Listing{States: states, ExpectedChancePagesPerWeek: 0.04}, events, es); err != nil {
 		t.Fatal(err)
 	}
 	out := b.String()
@@ -122,13 +124,18 @@ func TestReportShowsOnsetsFromStates(t *testing.T) {
 		"SUBSTATION  STATE          SINCE   ORIGINS AGO  WINDOW  MAE  EXPECTED  ALARM LIMIT  ME  ME ALARM BAND  INJECTED FAULT\n",
 		"dh/aaskrog  within         day 9   82           30",
 		"dh/kalkbro  degraded (me)  day 46  45           30",
-		"day 46  2026-10-15 05:00  dh/kalkbro  within → degraded (me, on revision)  0.610 > 0.550, window 30",
+		"day 46  " + at(loc, 46) + "  dh/kalkbro  within → degraded (me, on revision)  0.610 > 0.550, window 30",
 		"expected chance pages per week, if everything selected is healthy: 0.0400",
 		driftreport.Caution,
+		"\nerror scale auto (b̂ 0.60–0.81, fitted to each backtest): winter errors are judged against what the backtest promised at winter levels; " +
+			"0 of 6 healthy substations paged by chance; 0 of their leads entered degraded (leads do not page).\n",
 	} {
 		if !strings.Contains(out, want) {
 			t.Errorf("report lacks %q:\n%s", want, out)
 		}
+	}
+	if !strings.HasSuffix(out, "(leads do not page).\n") {
+		t.Errorf("report does not end with the error scale line:\n%s", out)
 	}
 	var lead2 []string
 	for _, line := range strings.Split(out, "\n") {
@@ -136,10 +143,106 @@ func TestReportShowsOnsetsFromStates(t *testing.T) {
 			lead2 = f
 		}
 	}
-	if want := []string{"2", "30", "—", "—", "—", "—", "—", "degraded", "day", "41", "50"}; !slices.Equal(lead2, want) {
+	if want := []string{"2", "30", "—", "—", "—", "—", "—", "degraded", "day", "41", strconv.Itoa(ProductionDays - 41 + 1)}; !slices.Equal(lead2, want) {
 		t.Errorf("lead 2 row %q, want %q", lead2, want)
 	}
 	if strings.Contains(out, "99%") || strings.Contains(out, "verdicts") {
 		t.Errorf("report speaks of 99%% or verdicts:\n%s", out)
 	}
 }
+
+// On level-scaled errors an event's window MAE and limit in MW may fall
+// on the side of each other its change does not say; the report marks it.
+func TestReportMarksScaledComparisons(t *testing.T) {
+	t.Parallel()
+	loc, err := time.LoadLocation(Zone)
+	if err != nil {
+		t.Fatal(err)
+	}
+	sc := &Scenario{Location: loc, Substations: Substations()}
+	v, l := 0.932, 0.940
+	var b strings.Builder
+	err = sc.writeEvents(&b, []*aftercastv1.DriftEvent{{Series: StaleFeedSeries, OriginTime: timestamppb.New(ProductionOrigin(loc, 65)),
+		PreviousState: aftercastv1.DriftState_DRIFT_STATE_WITHIN, NewState: aftercastv1.DriftState_DRIFT_STATE_DEGRADED,
+		Metric: aftercastv1.DriftMetric_DRIFT_METRIC_MAE, Value: &v, Limit: &l, WindowN: 30}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	out := b.String()
+	for _, want := range []string{"0.932 < 0.940, window 30 *\n", "  * judged on level-scaled errors"} {
+		if !strings.Contains(out, want) {
+			t.Errorf("report lacks %q:\n%s", want, out)
+		}
+	}
+	b.Reset()
+	v = 0.95
+	if err := sc.writeEvents(&b, []*aftercastv1.DriftEvent{{Series: StaleFeedSeries, PreviousState: aftercastv1.DriftState_DRIFT_STATE_WITHIN,
+		NewState: aftercastv1.DriftState_DRIFT_STATE_DEGRADED, Metric: aftercastv1.DriftMetric_DRIFT_METRIC_MAE, Value: &v, Limit: &l, WindowN: 30}}); err != nil {
+		t.Fatal(err)
+	}
+	if strings.Contains(b.String(), "*") {
+		t.Errorf("report marks a comparison that agrees with its change:\n%s", b.String())
+	}
+}
+
+// The report's last line counts, among the healthy substations only, those
+// that paged, those the service could not judge at the series level, and
+// the leads that entered degraded, from the states and events.
+func TestReportSaysWhatTheErrorScaleDid(t *testing.T) {
+	t.Parallel()
+	loc, err := time.LoadLocation(Zone)
+	if err != nil {
+		t.Fatal(err)
+	}
+	sc := &Scenario{Location: loc, Substations: Substations()}
+	const (
+		within   = aftercastv1.DriftState_DRIFT_STATE_WITHIN
+		degraded = aftercastv1.DriftState_DRIFT_STATE_DEGRADED
+		unusable = aftercastv1.DriftState_DRIFT_STATE_INSUFFICIENT_BASELINE
+	)
+	keff := func(k float64) *float64 { return &k }
+	states := []*aftercastv1.SeriesModelDrift{
+		{Series: "dh/aaskrog", SeriesStatus: &aftercastv1.DriftStatus{State: within}},
+		{Series: "dh/birkedal", SeriesStatus: &aftercastv1.DriftStatus{State: unusable, KEff: keff(14.6)}},
+		{Series: "dh/engtoft", SeriesStatus: &aftercastv1.DriftStatus{State: degraded, KEff: keff(250)}},
+		{Series: "dh/stenvig", SeriesStatus: &aftercastv1.DriftStatus{State: unusable, KEff: keff(27.2)}},
+		{Series: StaleFeedSeries, SeriesStatus: &aftercastv1.DriftStatus{State: unusable, KEff: keff(9)}},
+	}
+	ev := func(series string, lead int32, to aftercastv1.DriftState) *aftercastv1.DriftEvent {
+		e := &aftercastv1.DriftEvent{Series: series, PreviousState: within, NewState: to}
+		if lead > 0 {
+			e.Lead = &lead
+		}
+		return e
+	}
+	events := []*aftercastv1.DriftEvent{
+		ev("dh/engtoft", 0, degraded), ev("dh/engtoft", 0, within), ev("dh/engtoft", 0, degraded),
+		ev("dh/aaskrog", 3, degraded), ev("dh/aaskrog", 3, degraded), ev("dh/aaskrog", 5, degraded), ev("dh/birkedal", 3, degraded),
+		ev("dh/aaskrog", 7, within),
+		ev(MeterFaultSeries, 0, degraded), ev(MeterFaultSeries, 9, degraded),
+	}
+	for _, c := range []struct {
+		es   ErrorScale
+		want string
+	}{
+		{ErrorScale{Mode: aftercastv1.ErrorScale_ERROR_SCALE_ABSOLUTE, Exponents: map[string]float64{"dh/aaskrog": 0}},
+			"\nerror scale absolute: errors are judged as they are, against a band that averages the backtest's summer and winter; " +
+				"1 of 6 healthy substations paged in the winter, 2 could not be judged at the series level " +
+				"(insufficient_baseline: K_eff 15–27 < 30: the plain errors follow the season); 3 of their leads entered degraded (leads do not page).\n"},
+		{ErrorScale{Mode: aftercastv1.ErrorScale_ERROR_SCALE_AUTO},
+			"\nerror scale auto: winter errors are judged against what the backtest promised at winter levels; " +
+				"1 of 6 healthy substations paged by chance, 2 could not be judged at the series level " +
+				"(insufficient_baseline: K_eff 15–27 < 30); 3 of their leads entered degraded (leads do not page).\n"},
+		{ErrorScale{}, ""},
+	} {
+		var b strings.Builder
+		sc.writeErrorScale(&b, driftreport.Listing{States: states}, events, c.es)
+		if b.String() != c.want {
+			t.Errorf("%v: error scale line\n%q, want\n%q", c.es.Mode, b.String(), c.want)
+		}
+	}
+}
+
+// at is the local date and time of the origin of production day n, as the
+// report prints it.
+func at(loc *time.Location, n int) string { return ProductionOrigin(loc, n).Format("2006-01-02 15:04") }

@@ -60,10 +60,10 @@ func TestSeriesAndShape(t *testing.T) {
 		}
 	}
 	// Training actuals: hourly, 28 days up to and including the first
-	// backtest origin.
+	// backtest origin (a day may have 23 or 25 hours).
 	first := sc.Backtest[0].Origin
 	per := len(sc.Training) / len(sc.Substations)
-	if want := TrainingDays*24 + 1; per != want {
+	if want := int(first.Sub(ProductionOrigin(sc.Location, 1-BacktestOrigins-TrainingDays))/time.Hour) + 1; per != want {
 		t.Errorf("%d training actuals per series, want %d", per, want)
 	}
 	if last := sc.Training[per-1].Time; !last.Equal(first) {
@@ -124,17 +124,24 @@ func TestOriginsAreAtFiveLocal(t *testing.T) {
 			t.Errorf("lead %d from %v is %v, want %02d:00", FirstDecisionLead, prev, next, want)
 		}
 	}
-	want := map[time.Duration][]string{
-		23 * time.Hour: {"2026-03-29"},               // summer time begins
-		25 * time.Hour: {"2025-10-26", "2026-10-25"}, // and ends, in the backtest and in production
+	// The gaps follow the zone's changes of offset: summer time begins
+	// (23 hours) and ends (25) once each in the year of backtest origins.
+	want := map[time.Duration][]string{}
+	for i := 1; i < len(origins); i++ {
+		_, before := origins[i-1].In(sc.Location).Zone()
+		lt := origins[i].In(sc.Location)
+		if _, after := lt.Zone(); after != before {
+			gap := 24*time.Hour - time.Duration(after-before)*time.Second
+			want[gap] = append(want[gap], lt.Format("2006-01-02"))
+		}
 	}
 	for gap, days := range want {
 		if !reflect.DeepEqual(gaps[gap], days) {
 			t.Errorf("gaps of %v before the origins of %v, want %v", gap, gaps[gap], days)
 		}
 	}
-	if len(gaps) != 3 {
-		t.Errorf("gaps between origins: %d kinds, want 23, 24 and 25 hours", len(gaps))
+	if len(gaps) != 3 || len(want[23*time.Hour]) == 0 || len(want[25*time.Hour]) == 0 {
+		t.Errorf("gaps between origins: %v, want 23, 24 and 25 hours", gaps)
 	}
 	if n, ok := sc.DayOf(origins[len(origins)-1]); !ok || n != ProductionDays+TailDays {
 		t.Errorf("DayOf(last origin) = %d, %v", n, ok)
@@ -241,4 +248,37 @@ func index(sc *Scenario, key string) int {
 		}
 	}
 	panic("no substation " + key)
+}
+
+// Forecast errors grow with the heat load, as real heat-demand errors do:
+// in the backtest of every substation the decision-lead MAE of the winter
+// origins (December to February) is well above that of the summer ones
+// (June to August), and so is the load.
+func TestErrorsGrowWithTheLoad(t *testing.T) {
+	t.Parallel()
+	sc := generate(t, DefaultSeed)
+	for s, ss := range sc.Substations {
+		var mae, load, n [2]float64 // summer, winter
+		for o := range BacktestOrigins {
+			k := 0
+			switch sc.Backtest[(s*BacktestOrigins+o)*Horizon].Origin.In(sc.Location).Month() {
+			case time.June, time.July, time.August:
+			case time.December, time.January, time.February:
+				k = 1
+			default:
+				continue
+			}
+			for h := FirstDecisionLead; h <= LastDecisionLead; h++ {
+				r := sc.Backtest[(s*BacktestOrigins+o)*Horizon+h-1]
+				mae[k] += math.Abs(r.Actual - r.Forecast)
+				load[k] += r.Actual
+				n[k]++
+			}
+		}
+		m, l := mae[1]/n[1]/(mae[0]/n[0]), load[1]/n[1]/(load[0]/n[0])
+		t.Logf("%-13s winter/summer: load ×%.2f, MAE ×%.2f", ss.Key, l, m)
+		if m < 1.5 {
+			t.Errorf("%s: winter MAE ×%.2f of summer's (load ×%.2f); want errors that grow with the load", ss.Key, m, l)
+		}
+	}
 }
