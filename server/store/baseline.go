@@ -338,7 +338,7 @@ func (s *Store) storeBaseline(ctx context.Context, tx pgx.Tx, se *Series, model 
 	}
 	v.Warnings = append(v.Warnings, shape...)
 	for _, l := range leads {
-		if reason := leadUsability(l); reason != "" {
+		if reason := leadUsability(l, se.ErrorScale); reason != "" {
 			v.Warnings = append(v.Warnings, BaselineWarning{Kind: WarnLeadNotUsable, Lead: l.Lead, Message: reason})
 		}
 	}
@@ -373,13 +373,19 @@ func (s *Store) storeBaseline(ctx context.Context, tx pgx.Tx, se *Series, model 
 }
 
 // leadUsability judges a lead's backtest as the drift detector will
-// (method.md §4), for the import's warnings: "" when usable, else why not.
-func leadUsability(l BaselineLead) string {
-	e := make([]float64, len(l.Origins))
-	for i := range e {
-		e[i] = l.Actuals[i] - l.Forecasts[i]
+// (method.md §4), on errors scaled as the series' error scale says (§4a),
+// for the import's warnings: "" when usable, else why not.
+func leadUsability(l BaselineLead, mode scoring.ScaleMode) string {
+	fs, es := make([][]float64, len(l.Origins)), make([][]float64, len(l.Origins))
+	for i := range fs {
+		fs[i], es[i] = []float64{l.Forecasts[i]}, []float64{l.Actuals[i] - l.Forecasts[i]}
 	}
-	return scoring.Usability(scoring.Summarize(scoring.Quantities(scoring.MetricMAE, e), l.Lead)).Reason
+	sc := scoring.FitScale(fs, es, scoring.DriftWindow, mode)
+	q := make([]float64, len(l.Origins))
+	for i := range q {
+		q[i] = math.Abs(es[i][0]) / sc.Of(fs[i][0])
+	}
+	return scoring.Usability(scoring.Summarize(q, l.Lead)).Reason
 }
 
 // cadence is the most common gap, in steps, between consecutive origins
